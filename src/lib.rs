@@ -1,0 +1,15 @@
+//! fitaudit: audit the uncertainties of weighted nonlinear least-squares fits.
+//!
+//! The crate reads as the pipeline it runs:
+//!
+//! ```text
+//! study (TOML + CSV) -> model (formula -> tape with exact derivatives)
+//!   -> fit (one refit primitive) -> diagnostics -> report
+//! ```
+#![warn(missing_docs)]
+
+pub mod data;
+pub mod fit;
+pub mod model;
+pub mod rng;
+pub mod settings;

@@ -1,0 +1,252 @@
+//! Settings of the diagnostics battery: the `[audit]` table of a study file.
+//!
+//! Every table rejects unknown keys, so a typo is an error that names the
+//! key rather than a setting silently ignored. Defaults are those documented
+//! in the README's study-file reference.
+
+use serde::{Deserialize, Serialize};
+
+/// The `[audit]` table.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct AuditSettings {
+    /// Seed of every random stream.
+    pub seed: u64,
+    /// Confidence level of every interval (0 < level < 1).
+    pub level: f64,
+    /// Bootstrap settings.
+    pub bootstrap: BootstrapSettings,
+    /// Monte Carlo settings.
+    pub monte_carlo: MonteCarloSettings,
+    /// Profile settings.
+    pub profile: ProfileSettings,
+    /// Contour-map settings.
+    pub contours: ContourSettings,
+    /// Multi-start settings.
+    pub multistart: MultistartSettings,
+    /// Relative tolerance below which a disagreement between a resampled and
+    /// the analytic uncertainty does not count (0.2 = 20 %).
+    pub tolerance: f64,
+}
+
+impl Default for AuditSettings {
+    fn default() -> Self {
+        AuditSettings {
+            seed: 1,
+            level: 0.6827,
+            bootstrap: BootstrapSettings::default(),
+            monte_carlo: MonteCarloSettings::default(),
+            profile: ProfileSettings::default(),
+            contours: ContourSettings::default(),
+            multistart: MultistartSettings::default(),
+            tolerance: 0.2,
+        }
+    }
+}
+
+/// Bootstrap resampling scheme.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum BootstrapScheme {
+    /// Resample (x, y, sigma) points with replacement.
+    Case,
+    /// Fitted values plus resampled leverage-adjusted weighted residuals.
+    #[default]
+    Residual,
+    /// Residuals multiplied by random weights (heteroscedastic data).
+    Wild,
+}
+
+/// Multipliers of the wild bootstrap.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum WildWeights {
+    /// +1 or -1 with equal probability.
+    #[default]
+    Rademacher,
+    /// Mammen's two-point distribution.
+    Mammen,
+}
+
+/// `[audit] bootstrap = {...}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct BootstrapSettings {
+    /// Number of replicates.
+    pub replicates: usize,
+    /// Resampling scheme.
+    pub scheme: BootstrapScheme,
+    /// Multipliers of the wild scheme.
+    pub weights: WildWeights,
+}
+
+impl Default for BootstrapSettings {
+    fn default() -> Self {
+        BootstrapSettings {
+            replicates: 2000,
+            scheme: BootstrapScheme::Residual,
+            weights: WildWeights::Rademacher,
+        }
+    }
+}
+
+/// `[audit] monte_carlo = {...}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct MonteCarloSettings {
+    /// Number of trials (the maximum when `adaptive`).
+    pub replicates: usize,
+    /// Degrees of freedom of Student-t noise; normal noise when absent.
+    pub student_t_dof: Option<f64>,
+    /// Add trials until the standard uncertainties are stable (JCGM 101:2008, 7.9).
+    pub adaptive: bool,
+    /// Numerical tolerance of the adaptive stopping rule, relative to each
+    /// standard uncertainty.
+    pub adaptive_tolerance: f64,
+}
+
+impl Default for MonteCarloSettings {
+    fn default() -> Self {
+        MonteCarloSettings {
+            replicates: 2000,
+            student_t_dof: None,
+            adaptive: false,
+            adaptive_tolerance: 0.02,
+        }
+    }
+}
+
+/// `[audit] profile = {...}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ProfileSettings {
+    /// Grid points per profile.
+    pub points: usize,
+}
+
+impl Default for ProfileSettings {
+    fn default() -> Self {
+        ProfileSettings { points: 41 }
+    }
+}
+
+/// `[audit] contours = {...}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ContourSettings {
+    /// Grid nodes per axis.
+    pub grid: usize,
+    /// Pairs to map; default all pairs up to 5 free parameters, else the 6
+    /// most correlated.
+    pub pairs: Option<Vec<[String; 2]>>,
+}
+
+impl Default for ContourSettings {
+    fn default() -> Self {
+        ContourSettings {
+            grid: 41,
+            pairs: None,
+        }
+    }
+}
+
+/// `[audit] multistart = {...}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct MultistartSettings {
+    /// Number of starts.
+    pub starts: usize,
+    /// Sample positive parameters whose box spans more than a decade
+    /// log-uniformly.
+    pub log_uniform: bool,
+}
+
+impl Default for MultistartSettings {
+    fn default() -> Self {
+        MultistartSettings {
+            starts: 128,
+            log_uniform: true,
+        }
+    }
+}
+
+/// Which diagnostics an audit runs.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Diagnostic {
+    /// Bootstrap resampling.
+    Bootstrap,
+    /// Monte Carlo refits.
+    MonteCarlo,
+    /// Chi-squared profiles.
+    Profile,
+    /// Pairwise contour maps.
+    Contours,
+    /// Multi-start search.
+    Multistart,
+}
+
+impl Diagnostic {
+    /// All diagnostics, in run order.
+    pub const ALL: [Diagnostic; 5] = [
+        Diagnostic::Bootstrap,
+        Diagnostic::MonteCarlo,
+        Diagnostic::Profile,
+        Diagnostic::Contours,
+        Diagnostic::Multistart,
+    ];
+
+    /// The name used on the command line (`--only`).
+    pub fn cli_name(self) -> &'static str {
+        match self {
+            Diagnostic::Bootstrap => "bootstrap",
+            Diagnostic::MonteCarlo => "monte-carlo",
+            Diagnostic::Profile => "profile",
+            Diagnostic::Contours => "contours",
+            Diagnostic::Multistart => "multistart",
+        }
+    }
+}
+
+impl AuditSettings {
+    /// Checks value ranges; returns the offending key and why.
+    pub fn validate(&self) -> Result<(), (String, String)> {
+        let bad = |k: &str, why: &str| Err((k.to_string(), why.to_string()));
+        if !(self.level > 0.0 && self.level < 1.0) {
+            return bad("audit.level", "must lie strictly between 0 and 1");
+        }
+        if self.bootstrap.replicates < 2 {
+            return bad("audit.bootstrap.replicates", "must be at least 2");
+        }
+        if self.monte_carlo.replicates < 2 {
+            return bad("audit.monte_carlo.replicates", "must be at least 2");
+        }
+        if let Some(nu) = self.monte_carlo.student_t_dof {
+            if !(nu.is_finite() && nu > 2.0) {
+                return bad(
+                    "audit.monte_carlo.student_t_dof",
+                    "must be a number greater than 2 (the variance must exist)",
+                );
+            }
+        }
+        if !(self.monte_carlo.adaptive_tolerance > 0.0 && self.monte_carlo.adaptive_tolerance < 1.0) {
+            return bad(
+                "audit.monte_carlo.adaptive_tolerance",
+                "must lie strictly between 0 and 1",
+            );
+        }
+        if self.profile.points < 5 {
+            return bad("audit.profile.points", "must be at least 5");
+        }
+        if self.contours.grid < 5 {
+            return bad("audit.contours.grid", "must be at least 5");
+        }
+        if self.multistart.starts < 2 {
+            return bad("audit.multistart.starts", "must be at least 2");
+        }
+        if !(self.tolerance >= 0.0 && self.tolerance.is_finite()) {
+            return bad("audit.tolerance", "must be a non-negative number");
+        }
+        Ok(())
+    }
+}
