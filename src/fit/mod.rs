@@ -76,3 +76,72 @@ pub struct FitOptions {
     /// Covariance scaling.
     pub covariance: CovarianceScaling,
 }
+
+impl Default for FitOptions {
+    fn default() -> Self {
+        FitOptions {
+            method: Method::Lm,
+            max_iterations: 1000,
+            ftol: 1e-15,
+            xtol: 1e-15,
+            gtol: 1e-15,
+            geodesic: false,
+            covariance: CovarianceScaling::Auto,
+        }
+    }
+}
+
+/// A fitting problem: the model, its parameters and the optimiser settings.
+/// The data are passed separately so that diagnostics can refit the same
+/// problem on resampled or re-simulated data.
+pub struct Problem<'a> {
+    /// The model.
+    pub model: &'a dyn ModelFn,
+    /// Parameters in the order of the model's parameter vector.
+    pub params: Vec<ParamSpec>,
+    /// Optimiser settings.
+    pub options: FitOptions,
+}
+
+/// Borrowed data for one refit. `sigma` always has one entry per point (all
+/// ones when the study gives none).
+#[derive(Debug, Clone, Copy)]
+pub struct DataView<'a> {
+    /// One column per independent variable.
+    pub x: &'a [&'a [f64]],
+    /// Responses.
+    pub y: &'a [f64],
+    /// Standard uncertainties.
+    pub sigma: &'a [f64],
+}
+
+/// Why the optimiser stopped.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum StopReason {
+    /// The scaled gradient fell below `gtol`.
+    Gradient,
+    /// The relative chi-squared change fell below `ftol`.
+    ChiSquaredChange,
+    /// The relative step fell below `xtol`.
+    Step,
+    /// The iteration cap was reached (not converged).
+    IterationLimit,
+    /// The model was not finite and no step could avoid it (not converged).
+    NonFinite,
+}
+
+/// Outcome of one refit; the solution itself is [`Refitter::params`].
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Refit {
+    /// Chi-squared at the solution.
+    pub chi2: f64,
+    /// False for the iteration cap or non-finite model values.
+    pub converged: bool,
+    /// Why it stopped.
+    pub stop: StopReason,
+    /// Iterations taken.
+    pub iterations: usize,
+    /// Model evaluations (values, with or without Jacobian).
+    pub evaluations: usize,
+}
