@@ -4,6 +4,7 @@
 //! OWNER NOTE (scaffold): the types and signatures below are the pinned API
 //! that every diagnostic calls. Implementation goes in submodules.
 
+use crate::model::ModelFn;
 use serde::{Deserialize, Serialize};
 
 /// Minimisation method.
