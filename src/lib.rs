@@ -11,5 +11,6 @@
 pub mod data;
 pub mod fit;
 pub mod model;
+pub mod output;
 pub mod rng;
 pub mod settings;

@@ -1,0 +1,1 @@
+//! Bootstrap resampling (case, residual, wild) with refits from the base fit.

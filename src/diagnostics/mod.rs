@@ -1,0 +1,60 @@
+//! The diagnostics battery. Each diagnostic is a module that takes the
+//! fitted problem ([`Fitted`]) and its settings and returns a plain serde
+//! result struct; none formats text for display and none writes its own
+//! optimiser loop: every refit goes through [`crate::fit::Refitter`].
+
+use crate::data::Dataset;
+use crate::fit::{FitResult, Problem};
+use crate::settings::AuditSettings;
+
+pub mod bootstrap;
+pub mod contour;
+pub mod monte_carlo;
+pub mod multistart;
+pub mod profile;
+pub mod resample;
+pub mod verdict;
+
+/// A problem together with its base fit: the input of every diagnostic.
+pub struct Fitted<'a> {
+    /// Model, parameter specs and optimiser options.
+    pub problem: Problem<'a>,
+    /// The data of the base fit.
+    pub data: &'a Dataset,
+    /// The base fit.
+    pub fit: &'a FitResult,
+    /// Settings of the battery (seed, level, per-diagnostic settings).
+    pub settings: &'a AuditSettings,
+}
+
+impl Fitted<'_> {
+    /// Estimated parameter values of the base fit.
+    pub fn values(&self) -> Vec<f64> {
+        self.fit.parameters.iter().map(|p| p.value).collect()
+    }
+
+    /// Which parameters the optimiser may move (not fixed in the study).
+    pub fn free_mask(&self) -> Vec<bool> {
+        self.problem.params.iter().map(|p| !p.fixed).collect()
+    }
+}
+
+/// Progress reporting for long diagnostics. The command line implements it
+/// with a terminal progress bar; library callers may pass [`NoProgress`].
+pub trait Progress: Sync {
+    /// A stage with `total` units of work begins.
+    fn start(&self, stage: &str, total: u64);
+    /// `n` more units are done.
+    fn advance(&self, n: u64);
+    /// The stage is over.
+    fn finish(&self);
+}
+
+/// Progress reporting that shows nothing.
+pub struct NoProgress;
+
+impl Progress for NoProgress {
+    fn start(&self, _stage: &str, _total: u64) {}
+    fn advance(&self, _n: u64) {}
+    fn finish(&self) {}
+}

@@ -1,0 +1,1 @@
+//! Monte Carlo refits from synthetic noise around the base fit.
