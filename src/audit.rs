@@ -1,0 +1,209 @@
+//! The audit: base fit, then the diagnostics battery, then the verdicts,
+//! gathered into one [`AuditResults`] record that every renderer reads.
+
+use serde::{Deserialize, Serialize};
+
+use crate::data::Dataset;
+use crate::diagnostics::contour::ContourResult;
+use crate::diagnostics::multistart::MultistartResult;
+use crate::diagnostics::profile::ProfileResult;
+use crate::diagnostics::resample::ResampleResult;
+use crate::diagnostics::verdict::{self, Verdict, VerdictInputs};
+use crate::diagnostics::{self, Fitted, Progress};
+use crate::fit::{self, FitResult};
+use crate::model::ModelFn;
+use crate::settings::{AuditSettings, Diagnostic};
+use crate::study::Study;
+
+/// Version of the layout of `results.json` (docs/RESULTS.md).
+pub const SCHEMA_VERSION: u32 = 1;
+
+/// What to run and how the run was started.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AuditOptions {
+    /// Diagnostics to run.
+    pub only: Vec<Diagnostic>,
+    /// The command line, for the provenance record.
+    pub command_line: String,
+    /// Also write every replicate estimate to `replicates.csv`.
+    pub write_replicates: bool,
+}
+
+impl Default for AuditOptions {
+    fn default() -> Self {
+        AuditOptions { only: Diagnostic::ALL.to_vec(), command_line: String::new(), write_replicates: false }
+    }
+}
+
+/// Errors of the audit layer.
+#[derive(Debug, thiserror::Error)]
+pub enum AuditError {
+    /// The base fit could not be computed.
+    #[error("study {study}: the base fit failed: {source}")]
+    BaseFit {
+        /// Study name.
+        study: String,
+        /// Why.
+        source: fit::FitError,
+    },
+}
+
+/// Identification of the study in the record.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StudyInfo {
+    /// Study name (file stem).
+    pub name: String,
+    /// Title, when given.
+    pub title: Option<String>,
+    /// Study file as given.
+    pub path: String,
+    /// Data file, when the data came from one.
+    pub data_file: Option<String>,
+    /// Model formula.
+    pub formula: String,
+    /// Number of points.
+    pub points: usize,
+    /// Whether sigma was given (absolute covariance).
+    pub sigma_given: bool,
+    /// SHA-256 of the study file.
+    pub study_sha256: Option<String>,
+    /// SHA-256 of the data file.
+    pub data_sha256: Option<String>,
+}
+
+/// Tool version, command line, date and machine facts of the run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Provenance {
+    /// Tool name.
+    pub tool: String,
+    /// Tool version.
+    pub version: String,
+    /// Command line.
+    pub command_line: String,
+    /// UTC date and time of the run (RFC 3339).
+    pub date: String,
+    /// Worker threads used (results do not depend on it).
+    pub threads: usize,
+}
+
+/// The model curve on a fine grid of the (single) independent variable.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Curve {
+    /// Abscissae.
+    pub x: Vec<f64>,
+    /// Model values.
+    pub y: Vec<f64>,
+}
+
+/// Everything an audit computed: the content of `results.json`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AuditResults {
+    /// Layout version.
+    pub schema_version: u32,
+    /// Provenance.
+    pub provenance: Provenance,
+    /// The study.
+    pub study: StudyInfo,
+    /// Settings in force (study values overridden by flags).
+    pub settings: AuditSettings,
+    /// Diagnostics run.
+    pub diagnostics_run: Vec<Diagnostic>,
+    /// The data.
+    pub data: Dataset,
+    /// The base fit.
+    pub fit: FitResult,
+    /// The fitted curve, for one independent variable.
+    pub curve: Option<Curve>,
+    /// Bootstrap.
+    pub bootstrap: Option<ResampleResult>,
+    /// Monte Carlo.
+    pub monte_carlo: Option<ResampleResult>,
+    /// Profiles.
+    pub profile: Option<ProfileResult>,
+    /// Contour maps.
+    pub contours: Option<Vec<ContourResult>>,
+    /// Multi-start search.
+    pub multistart: Option<MultistartResult>,
+    /// Verdict per parameter.
+    pub verdicts: Vec<Verdict>,
+}
+
+/// Runs the base fit and the chosen diagnostics in the current rayon pool.
+pub fn run(study: &Study, options: &AuditOptions, progress: &dyn Progress) -> Result<AuditResults, AuditError> {
+    let problem = study.problem();
+    let base = fit::fit(&problem, &study.dataset)
+        .map_err(|source| AuditError::BaseFit { study: study.name.clone(), source })?;
+    let ctx = Fitted { problem, data: &study.dataset, fit: &base, settings: &study.audit };
+    let wants = |d: Diagnostic| options.only.contains(&d);
+
+    let bootstrap = wants(Diagnostic::Bootstrap).then(|| diagnostics::bootstrap::run(&ctx, progress));
+    let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| diagnostics::monte_carlo::run(&ctx, progress));
+    let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
+    let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
+    let multistart = wants(Diagnostic::Multistart).then(|| diagnostics::multistart::run(&ctx, progress));
+
+    let verdicts = verdict::decide(&VerdictInputs {
+        fit: &base,
+        bootstrap: bootstrap.as_ref(),
+        monte_carlo: monte_carlo.as_ref(),
+        profile: profile.as_ref(),
+        multistart: multistart.as_ref(),
+        tolerance: study.audit.tolerance,
+    });
+
+    let curve = model_curve(&study.model, &study.dataset, &base);
+    Ok(AuditResults {
+        schema_version: SCHEMA_VERSION,
+        provenance: Provenance {
+            tool: env!("CARGO_PKG_NAME").to_string(),
+            version: env!("CARGO_PKG_VERSION").to_string(),
+            command_line: options.command_line.clone(),
+            date: humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string(),
+            threads: rayon::current_num_threads(),
+        },
+        study: StudyInfo {
+            name: study.name.clone(),
+            title: study.title.clone(),
+            path: study.path.display().to_string(),
+            data_file: study.data_file.as_ref().map(|p| p.display().to_string()),
+            formula: study.formula.clone(),
+            points: study.dataset.len(),
+            sigma_given: study.dataset.has_sigma(),
+            study_sha256: study.study_sha256.clone(),
+            data_sha256: study.data_sha256.clone(),
+        },
+        settings: study.audit.clone(),
+        diagnostics_run: options.only.clone(),
+        data: study.dataset.clone(),
+        fit: base,
+        curve,
+        bootstrap,
+        monte_carlo,
+        profile,
+        contours,
+        multistart,
+        verdicts,
+    })
+}
+
+/// The model on 400 points spanning the data, when there is one independent variable.
+fn model_curve(model: &dyn ModelFn, data: &Dataset, fit: &FitResult) -> Option<Curve> {
+    if data.x.len() != 1 || data.is_empty() {
+        return None;
+    }
+    let col = &data.x[0];
+    let lo = col.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = col.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !(lo.is_finite() && hi.is_finite()) {
+        return None;
+    }
+    let n = 400;
+    let xs: Vec<f64> = (0..n).map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64).collect();
+    let params: Vec<f64> = fit.parameters.iter().map(|p| p.value).collect();
+    let mut ys = vec![0.0; n];
+    let mut scratch = Vec::new();
+    // Points where the model is not finite between the data stay in the
+    // record as non-finite values (serialised as null) rather than hidden.
+    let _ = model.eval(&params, &[xs.as_slice()], &mut ys, None, &mut scratch);
+    Some(Curve { x: xs, y: ys })
+}
