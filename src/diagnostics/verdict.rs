@@ -24,3 +24,26 @@ pub struct Verdict {
     /// Why, one sentence each.
     pub reasons: Vec<String>,
 }
+
+use super::multistart::MultistartResult;
+use super::profile::ProfileResult;
+use super::resample::ResampleResult;
+use crate::fit::FitResult;
+
+/// What the verdicts are decided from: the base fit and whichever
+/// diagnostics ran.
+#[derive(Debug, Clone, Copy)]
+pub struct VerdictInputs<'a> {
+    /// The base fit.
+    pub fit: &'a FitResult,
+    /// Bootstrap, when run.
+    pub bootstrap: Option<&'a ResampleResult>,
+    /// Monte Carlo, when run.
+    pub monte_carlo: Option<&'a ResampleResult>,
+    /// Profiles, when run.
+    pub profile: Option<&'a ProfileResult>,
+    /// Multi-start search, when run.
+    pub multistart: Option<&'a MultistartResult>,
+    /// Relative tolerance below which a disagreement does not count.
+    pub tolerance: f64,
+}
