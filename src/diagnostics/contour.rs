@@ -40,3 +40,11 @@ pub struct ContourResult {
     /// Grid nodes whose refit failed.
     pub failed: usize,
 }
+
+use super::{Fitted, Progress};
+
+/// Computes the contour maps (STUB).
+pub fn run(ctx: &Fitted, progress: &dyn Progress) -> Vec<ContourResult> {
+    let _ = (ctx, progress);
+    unimplemented!("contours not built yet")
+}

@@ -69,3 +69,11 @@ pub struct MultistartResult {
     /// Every start, for the figures.
     pub runs: Vec<StartRun>,
 }
+
+use super::{Fitted, Progress};
+
+/// Runs the multi-start search (STUB).
+pub fn run(ctx: &Fitted, progress: &dyn Progress) -> MultistartResult {
+    let _ = (ctx, progress);
+    unimplemented!("multi-start not built yet")
+}

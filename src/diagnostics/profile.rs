@@ -45,3 +45,11 @@ pub struct ProfileResult {
     /// Failed refits over all profiles.
     pub failed: usize,
 }
+
+use super::{Fitted, Progress};
+
+/// Runs the profile scans (STUB).
+pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ProfileResult {
+    let _ = (ctx, progress);
+    unimplemented!("profiles not built yet")
+}

@@ -47,3 +47,9 @@ pub struct VerdictInputs<'a> {
     /// Relative tolerance below which a disagreement does not count.
     pub tolerance: f64,
 }
+
+/// Decides the verdict of every parameter (STUB).
+pub fn decide(inputs: &VerdictInputs) -> Vec<Verdict> {
+    let _ = inputs;
+    unimplemented!("verdicts not built yet")
+}
