@@ -9,6 +9,7 @@
 #![warn(missing_docs)]
 
 pub mod data;
+pub mod demo;
 pub mod diagnostics;
 pub mod fit;
 pub mod model;
