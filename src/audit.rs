@@ -10,10 +10,9 @@ use crate::diagnostics::profile::ProfileResult;
 use crate::diagnostics::resample::ResampleResult;
 use crate::diagnostics::verdict::{self, Verdict, VerdictInputs};
 use crate::diagnostics::{self, Fitted, Progress};
-use crate::fit::{self, FitResult};
+use crate::fit::{self, FitOptions, FitResult, ParamSpec, Problem};
 use crate::model::ModelFn;
 use crate::settings::{AuditSettings, Diagnostic};
-use crate::study::Study;
 
 /// Version of the layout of `results.json` (docs/RESULTS.md).
 pub const SCHEMA_VERSION: u32 = 1;
@@ -31,7 +30,11 @@ pub struct AuditOptions {
 
 impl Default for AuditOptions {
     fn default() -> Self {
-        AuditOptions { only: Diagnostic::ALL.to_vec(), command_line: String::new(), write_replicates: false }
+        AuditOptions {
+            only: Diagnostic::ALL.to_vec(),
+            command_line: String::new(),
+            write_replicates: false,
+        }
     }
 }
 
@@ -128,12 +131,51 @@ pub struct AuditResults {
     pub verdicts: Vec<Verdict>,
 }
 
+/// What an audit runs on: the study resolved into its parts (the study
+/// layer builds it; library users may build one directly).
+pub struct AuditInput<'a> {
+    /// Identification of the study for the record.
+    pub info: StudyInfo,
+    /// The model.
+    pub model: &'a dyn ModelFn,
+    /// Parameter specifications.
+    pub params: Vec<ParamSpec>,
+    /// Optimiser options.
+    pub fit_options: FitOptions,
+    /// The data.
+    pub data: &'a Dataset,
+    /// Settings of the battery.
+    pub settings: AuditSettings,
+}
+
+impl AuditInput<'_> {
+    /// The fitting problem.
+    pub fn problem(&self) -> Problem<'_> {
+        Problem {
+            model: self.model,
+            params: self.params.clone(),
+            options: self.fit_options.clone(),
+        }
+    }
+}
+
 /// Runs the base fit and the chosen diagnostics in the current rayon pool.
-pub fn run(study: &Study, options: &AuditOptions, progress: &dyn Progress) -> Result<AuditResults, AuditError> {
-    let problem = study.problem();
-    let base = fit::fit(&problem, &study.dataset)
-        .map_err(|source| AuditError::BaseFit { study: study.name.clone(), source })?;
-    let ctx = Fitted { problem, data: &study.dataset, fit: &base, settings: &study.audit };
+pub fn run(
+    input: &AuditInput,
+    options: &AuditOptions,
+    progress: &dyn Progress,
+) -> Result<AuditResults, AuditError> {
+    let problem = input.problem();
+    let base = fit::fit(&problem, input.data).map_err(|source| AuditError::BaseFit {
+        study: input.info.name.clone(),
+        source,
+    })?;
+    let ctx = Fitted {
+        problem,
+        data: input.data,
+        fit: &base,
+        settings: &input.settings,
+    };
     let wants = |d: Diagnostic| options.only.contains(&d);
 
     let bootstrap = wants(Diagnostic::Bootstrap).then(|| diagnostics::bootstrap::run(&ctx, progress));
@@ -148,10 +190,10 @@ pub fn run(study: &Study, options: &AuditOptions, progress: &dyn Progress) -> Re
         monte_carlo: monte_carlo.as_ref(),
         profile: profile.as_ref(),
         multistart: multistart.as_ref(),
-        tolerance: study.audit.tolerance,
+        tolerance: input.settings.tolerance,
     });
 
-    let curve = model_curve(&study.model, &study.dataset, &base);
+    let curve = model_curve(input.model, input.data, &base);
     Ok(AuditResults {
         schema_version: SCHEMA_VERSION,
         provenance: Provenance {
@@ -161,20 +203,10 @@ pub fn run(study: &Study, options: &AuditOptions, progress: &dyn Progress) -> Re
             date: humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string(),
             threads: rayon::current_num_threads(),
         },
-        study: StudyInfo {
-            name: study.name.clone(),
-            title: study.title.clone(),
-            path: study.path.display().to_string(),
-            data_file: study.data_file.as_ref().map(|p| p.display().to_string()),
-            formula: study.formula.clone(),
-            points: study.dataset.len(),
-            sigma_given: study.dataset.has_sigma(),
-            study_sha256: study.study_sha256.clone(),
-            data_sha256: study.data_sha256.clone(),
-        },
-        settings: study.audit.clone(),
+        study: input.info.clone(),
+        settings: input.settings.clone(),
         diagnostics_run: options.only.clone(),
-        data: study.dataset.clone(),
+        data: input.data.clone(),
         fit: base,
         curve,
         bootstrap,
@@ -198,7 +230,9 @@ fn model_curve(model: &dyn ModelFn, data: &Dataset, fit: &FitResult) -> Option<C
         return None;
     }
     let n = 400;
-    let xs: Vec<f64> = (0..n).map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64).collect();
+    let xs: Vec<f64> = (0..n)
+        .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
+        .collect();
     let params: Vec<f64> = fit.parameters.iter().map(|p| p.value).collect();
     let mut ys = vec![0.0; n];
     let mut scratch = Vec::new();

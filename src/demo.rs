@@ -92,7 +92,8 @@ pub fn scenarios_csv() -> Vec<(String, String)> {
 
     let noise = gaussian_noise(3, 80);
     let mut jitter = rng::stream(20261201, Stream::Other(4), 0);
-    let mut csv = String::from("# invented demo data: accelerometer on a vibrating bracket\nt,accel,u_accel\n");
+    let mut csv =
+        String::from("# invented demo data: accelerometer on a vibrating bracket\nt,accel,u_accel\n");
     for (i, e) in noise.iter().enumerate() {
         let t = 0.03 * i as f64 + 0.005 * jitter.gen::<f64>();
         let sigma = 0.2;

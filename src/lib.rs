@@ -8,6 +8,7 @@
 //! ```
 #![warn(missing_docs)]
 
+pub mod audit;
 pub mod data;
 pub mod demo;
 pub mod diagnostics;
