@@ -13,3 +13,4 @@ pub mod fit;
 pub mod model;
 pub mod rng;
 pub mod settings;
+pub mod study;
