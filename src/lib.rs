@@ -17,3 +17,4 @@ pub mod model;
 pub mod output;
 pub mod rng;
 pub mod settings;
+pub mod study;
