@@ -616,6 +616,11 @@ fn finish(
             message: format!("nesting deeper than {limit} levels"),
             column: e.column,
         },
+        ModelErrorKind::Arity { function, expected, found } => StudyError::Formula {
+            at: formula_at(&spec, e.column),
+            message: format!("{function} takes {expected} argument(s), {found} given"),
+            column: e.column,
+        },
     })?;
     for (j, p) in params.iter().enumerate() {
         if !tape.uses_parameter(j) {
