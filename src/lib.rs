@@ -9,6 +9,7 @@
 #![warn(missing_docs)]
 
 pub mod audit;
+pub mod cli_support;
 pub mod data;
 pub mod demo;
 pub mod diagnostics;
