@@ -27,7 +27,10 @@ pub fn classify(err: &anyhow::Error) -> u8 {
 }
 
 /// Runs `f` inside a rayon pool of `threads` workers (all cores when None).
-pub fn with_threads<T>(threads: Option<usize>, f: impl FnOnce() -> anyhow::Result<T> + Send) -> anyhow::Result<T>
+pub fn with_threads<T>(
+    threads: Option<usize>,
+    f: impl FnOnce() -> anyhow::Result<T> + Send,
+) -> anyhow::Result<T>
 where
     T: Send,
 {
@@ -48,7 +51,10 @@ pub struct TerminalProgress {
 impl TerminalProgress {
     /// A progress reporter; silent when `quiet` or when stderr is not a terminal.
     pub fn new(quiet: bool) -> Self {
-        TerminalProgress { bar: Mutex::new(None), enabled: !quiet && std::io::stderr().is_terminal() }
+        TerminalProgress {
+            bar: Mutex::new(None),
+            enabled: !quiet && std::io::stderr().is_terminal(),
+        }
     }
 }
 
@@ -104,7 +110,11 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     let _ = writeln!(
         s,
         "sigma      {}",
-        if d.has_sigma() { "given (absolute covariance)" } else { "none (covariance scaled by chi2/dof)" }
+        if d.has_sigma() {
+            "given (absolute covariance)"
+        } else {
+            "none (covariance scaled by chi2/dof)"
+        }
     );
     let _ = writeln!(s, "formula    {}", study.formula);
     for p in &study.parameters {

@@ -155,7 +155,7 @@ pub enum DemoError {
         /// Scenario name.
         name: String,
         /// Why.
-        source: crate::study::StudyError,
+        source: Box<crate::study::StudyError>,
     },
     /// The audit failed.
     #[error(transparent)]
@@ -168,12 +168,18 @@ pub enum DemoError {
 /// Loads an embedded scenario as a study (its files are written to a
 /// private working folder first, so the record carries their SHA-256).
 pub fn load_scenario(scenario: &Scenario, work: &Path) -> Result<crate::study::Study, DemoError> {
-    let io = |source| DemoError::Io { path: work.to_path_buf(), source };
+    let io = |source| DemoError::Io {
+        path: work.to_path_buf(),
+        source,
+    };
     std::fs::create_dir_all(work).map_err(io)?;
     let study_path = work.join(format!("{}.toml", scenario.name));
     std::fs::write(&study_path, scenario.study).map_err(io)?;
     std::fs::write(work.join(scenario.data_file), scenario.data).map_err(io)?;
-    crate::study::load(&study_path).map_err(|source| DemoError::Study { name: scenario.name.to_string(), source })
+    crate::study::load(&study_path).map_err(|source| DemoError::Study {
+        name: scenario.name.to_string(),
+        source: Box::new(source),
+    })
 }
 
 /// Runs every scenario and writes its report under `out/<name>/`.
@@ -208,5 +214,8 @@ pub fn run_all(
         Ok(())
     })();
     let _ = std::fs::remove_dir_all(&work);
-    result.map(|()| DemoSummary { out: out.to_path_buf(), scenarios })
+    result.map(|()| DemoSummary {
+        out: out.to_path_buf(),
+        scenarios,
+    })
 }

@@ -7,8 +7,8 @@ use anyhow::Context;
 use clap::{Parser, Subcommand};
 use fitaudit::audit::{self, AuditOptions};
 use fitaudit::cli_support::{self, classify, TerminalProgress};
-use fitaudit::report::text;
 use fitaudit::fit::Method;
+use fitaudit::report::text;
 use fitaudit::settings::Diagnostic;
 use fitaudit::study;
 
@@ -157,7 +157,10 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     serde_json::to_string_pretty(&serde_json::json!({ "fit": fit }))?
                 );
             } else {
-                print!("{}", text::fit_table(study.title.as_deref(), &study.parameters, &fit));
+                print!(
+                    "{}",
+                    text::fit_table(study.title.as_deref(), &study.parameters, &fit)
+                );
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -170,7 +173,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Demo { out, threads, quiet } => cli_support::with_threads(threads, || {
             let progress = TerminalProgress::new(quiet);
             let summary = fitaudit::demo::run_all(&out, &command_line(), &progress)?;
-            print!("{}", fitaudit::report::text::demo_summary(&summary));
+            print!("{}", cli_support::demo_summary(&summary));
             Ok(ExitCode::SUCCESS)
         }),
         Command::Models => {
@@ -195,12 +198,10 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
     study
         .audit
         .validate()
-        .map_err(|(key, why)| study::StudyError::Setting {
-            file: study.path.clone(),
-            key: key
-                .replace("audit.", "--")
-                .replace("bootstrap.replicates", "replicates"),
-            message: why,
+        .map_err(|(key, why)| study::StudyError::Invalid {
+            at: study::At::file(&study.path),
+            key: format!("{key} (as set in the study or on the command line)"),
+            why,
         })?;
     let out = args
         .out

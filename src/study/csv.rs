@@ -49,7 +49,10 @@ pub struct Table {
 impl Table {
     /// The column with this header, if exactly present.
     pub fn column(&self, header: &str) -> Option<&[f64]> {
-        self.headers.iter().position(|h| h == header).map(|i| self.columns[i].as_slice())
+        self.headers
+            .iter()
+            .position(|h| h == header)
+            .map(|i| self.columns[i].as_slice())
     }
 }
 
@@ -241,7 +244,10 @@ fn split_fields(line: &[u8], delim: u8) -> Result<Vec<Vec<u8>>, (usize, String)>
             }
             while i < line.len() && line[i] != delim {
                 if !line[i].is_ascii_whitespace() {
-                    return Err((fields.len(), "text after the closing quote of a quoted field".into()));
+                    return Err((
+                        fields.len(),
+                        "text after the closing quote of a quoted field".into(),
+                    ));
                 }
                 i += 1;
             }
@@ -389,14 +395,32 @@ mod tests {
         assert_eq!(parse_number(" 2.5 ", ','), Ok(2.5));
         assert_eq!(parse_number("-1e-3", ';'), Ok(-1e-3));
         assert_eq!(parse_number("", ','), Err(NumberProblem::Empty));
-        assert!(matches!(parse_number("NaN", ','), Err(NumberProblem::NonFinite(None))));
-        assert!(matches!(parse_number("-inf", ','), Err(NumberProblem::NonFinite(None))));
-        assert!(matches!(parse_number("1e400", ','), Err(NumberProblem::NonFinite(Some(_)))));
-        assert!(matches!(parse_number("0x1A", ','), Err(NumberProblem::NotANumber(Some(_)))));
+        assert!(matches!(
+            parse_number("NaN", ','),
+            Err(NumberProblem::NonFinite(None))
+        ));
+        assert!(matches!(
+            parse_number("-inf", ','),
+            Err(NumberProblem::NonFinite(None))
+        ));
+        assert!(matches!(
+            parse_number("1e400", ','),
+            Err(NumberProblem::NonFinite(Some(_)))
+        ));
+        assert!(matches!(
+            parse_number("0x1A", ','),
+            Err(NumberProblem::NotANumber(Some(_)))
+        ));
         assert_eq!(parse_number("3,14", ';'), Err(NumberProblem::DecimalComma));
         assert_eq!(parse_number("3,14", '\t'), Err(NumberProblem::DecimalComma));
-        assert!(matches!(parse_number("abc", ';'), Err(NumberProblem::NotANumber(None))));
-        assert!(matches!(parse_number("1_000", ','), Err(NumberProblem::NotANumber(Some(_)))));
+        assert!(matches!(
+            parse_number("abc", ';'),
+            Err(NumberProblem::NotANumber(None))
+        ));
+        assert!(matches!(
+            parse_number("1_000", ','),
+            Err(NumberProblem::NotANumber(Some(_)))
+        ));
     }
 
     #[test]
@@ -425,9 +449,15 @@ mod tests {
         assert_eq!(t.headers, vec!["a \"q\"", "b"]);
         assert_eq!(t.rows[0], vec!["1", "2"]);
         let e = p("a,b\n\"1,2\n").unwrap_err().to_string();
-        assert!(e.contains("d.csv, line 2, column 1") && e.contains("no closing quote"), "{e}");
+        assert!(
+            e.contains("d.csv, line 2, column 1") && e.contains("no closing quote"),
+            "{e}"
+        );
         let e = p("a,b\n\"1\"x,2\n").unwrap_err().to_string();
-        assert!(e.contains("line 2, column 1") && e.contains("after the closing quote"), "{e}");
+        assert!(
+            e.contains("line 2, column 1") && e.contains("after the closing quote"),
+            "{e}"
+        );
     }
 
     #[test]

@@ -67,7 +67,11 @@ pub(crate) fn name_list(names: &[String]) -> String {
     if names.is_empty() {
         return "(none)".to_string();
     }
-    names.iter().map(|n| format!("`{n}`")).collect::<Vec<_>>().join(", ")
+    names
+        .iter()
+        .map(|n| format!("`{n}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 fn hint(s: &Option<String>) -> String {
@@ -228,7 +232,9 @@ pub enum StudyError {
         other_kind: String,
     },
     /// The data file has no header row.
-    #[error("{at}: the data file is empty: it needs a header row naming the columns, then one row per point")]
+    #[error(
+        "{at}: the data file is empty: it needs a header row naming the columns, then one row per point"
+    )]
     NoHeader {
         /// The data file.
         at: At,
@@ -259,7 +265,10 @@ pub enum StudyError {
         why: String,
     },
     /// A row with a different number of fields than the header.
-    #[error("{at}: this row has {found} fields but the header (line {header_line}) has {expected}{}", hint(hint_text))]
+    #[error(
+        "{at}: this row has {found} fields but the header (line {header_line}) has {expected}{}",
+        hint(hint_text)
+    )]
     Ragged {
         /// File and line.
         at: At,
@@ -311,7 +320,11 @@ pub enum StudyError {
         name: String,
     },
     /// A cell that is not a number.
-    #[error("{at}: `{text}` in column {column} ({}) is not a number{}", header(name), hint(why))]
+    #[error(
+        "{at}: `{text}` in column {column} ({}) is not a number{}",
+        header(name),
+        hint(why)
+    )]
     NotANumber {
         /// File, line, column.
         at: At,
@@ -337,7 +350,11 @@ pub enum StudyError {
         text: String,
     },
     /// NaN, infinity, or a number too large for a double.
-    #[error("{at}: `{text}` in column {column} ({}) is not a finite number{}", header(name), hint(why))]
+    #[error(
+        "{at}: `{text}` in column {column} ({}) is not a finite number{}",
+        header(name),
+        hint(why)
+    )]
     NonFiniteCell {
         /// File, line, column.
         at: At,
@@ -351,7 +368,10 @@ pub enum StudyError {
         why: Option<String>,
     },
     /// A sigma that is zero or negative.
-    #[error("{at}: sigma {value} in column {column} ({}) is not positive; every standard uncertainty must be > 0", header(name))]
+    #[error(
+        "{at}: sigma {value} in column {column} ({}) is not positive; every standard uncertainty must be > 0",
+        header(name)
+    )]
     BadSigma {
         /// File, line, column.
         at: At,
@@ -363,7 +383,9 @@ pub enum StudyError {
         value: f64,
     },
     /// Fewer points than free parameters + 1.
-    #[error("{at}: {points} data points cannot fit {free} free parameters: at least {needed} points are needed")]
+    #[error(
+        "{at}: {points} data points cannot fit {free} free parameters: at least {needed} points are needed"
+    )]
     TooFewPoints {
         /// The data file (or study name).
         at: At,
@@ -375,7 +397,10 @@ pub enum StudyError {
         needed: usize,
     },
     /// Every x column holds one value only.
-    #[error("{at}: every x column is constant ({}): the data cannot tell the parameters apart", name_list(columns))]
+    #[error(
+        "{at}: every x column is constant ({}): the data cannot tell the parameters apart",
+        name_list(columns)
+    )]
     ConstantX {
         /// The data file (or study name).
         at: At,

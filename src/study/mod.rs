@@ -121,7 +121,10 @@ impl fmt::Display for StudyWarning {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             StudyWarning::ConstantXColumn { column } => {
-                write!(f, "x column `{column}` holds one value only: the data carry no information on it")
+                write!(
+                    f,
+                    "x column `{column}` holds one value only: the data carry no information on it"
+                )
             }
         }
     }
@@ -249,7 +252,10 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
     spec.audit
         .validate()
         .map_err(|(key, why)| invalid(spec, &key, why))?;
-    let options = spec.fit.to_options().map_err(|(key, why)| invalid(spec, &key, why))?;
+    let options = spec
+        .fit
+        .to_options()
+        .map_err(|(key, why)| invalid(spec, &key, why))?;
     if spec.parameters.is_empty() {
         return Err(StudyError::NoParameters {
             at: spec.at("parameters"),
@@ -280,10 +286,18 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         let min = e.min.unwrap_or(f64::NEG_INFINITY);
         let max = e.max.unwrap_or(f64::INFINITY);
         if min.is_nan() || min == f64::INFINITY {
-            return Err(invalid(spec, &format!("{key}.min"), "must be a number below +inf"));
+            return Err(invalid(
+                spec,
+                &format!("{key}.min"),
+                "must be a number below +inf",
+            ));
         }
         if max.is_nan() || max == f64::NEG_INFINITY {
-            return Err(invalid(spec, &format!("{key}.max"), "must be a number above -inf"));
+            return Err(invalid(
+                spec,
+                &format!("{key}.max"),
+                "must be a number above -inf",
+            ));
         }
         if min >= max {
             return Err(StudyError::EmptyBounds {
@@ -455,13 +469,21 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         Some(SigmaSpec::Column(c)) => {
             let j = resolve(spec, raw, "data.sigma", c)?;
             if j == y_idx || x_idx.contains(&j) {
-                return Err(invalid(spec, "data.sigma", "names a column that is also the y or an x column"));
+                return Err(invalid(
+                    spec,
+                    "data.sigma",
+                    "names a column that is also the y or an x column",
+                ));
             }
             Some(j)
         }
         Some(SigmaSpec::Value(v)) => {
             if !(v.is_finite() && *v > 0.0) {
-                return Err(invalid(spec, "data.sigma", "must be a positive finite number or a column name"));
+                return Err(invalid(
+                    spec,
+                    "data.sigma",
+                    "must be a positive finite number or a column name",
+                ));
             }
             None
         }
@@ -521,7 +543,10 @@ fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
             return Err(bad(format!("names x column `{name}` twice")));
         }
         if col.len() != n {
-            return Err(bad(format!("x column `{name}` has {} values but y has {n}", col.len())));
+            return Err(bad(format!(
+                "x column `{name}` has {} values but y has {n}",
+                col.len()
+            )));
         }
         if let Some(p) = col.iter().position(|v| !v.is_finite()) {
             return Err(bad(format!("x column `{name}` is not finite at point {}", p + 1)));
@@ -616,7 +641,11 @@ fn finish(
             message: format!("nesting deeper than {limit} levels"),
             column: e.column,
         },
-        ModelErrorKind::Arity { function, expected, found } => StudyError::Formula {
+        ModelErrorKind::Arity {
+            function,
+            expected,
+            found,
+        } => StudyError::Formula {
             at: formula_at(&spec, e.column),
             message: format!("{function} takes {expected} argument(s), {found} given"),
             column: e.column,

@@ -438,7 +438,13 @@ fn walk_table(
     }
 }
 
-fn walk_value(v: &Spanned<Node>, key: String, text: &str, locs: &mut Locations, raw: &mut Vec<(String, String)>) {
+fn walk_value(
+    v: &Spanned<Node>,
+    key: String,
+    text: &str,
+    locs: &mut Locations,
+    raw: &mut Vec<(String, String)>,
+) {
     let span = v.span();
     let (line, column) = line_col(text, span.start);
     let src = text.get(span.clone()).unwrap_or("");
