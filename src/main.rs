@@ -152,32 +152,30 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             }
             let fit = fitaudit::fit::fit(&study.problem(), &study.dataset)?;
             if json {
-                println!(
-                    "{}",
-                    serde_json::to_string_pretty(&serde_json::json!({ "fit": fit }))?
-                );
+                #[derive(serde::Serialize)]
+                struct Wrapped<'a> {
+                    fit: &'a fitaudit::fit::FitResult,
+                }
+                emit(&(serde_json::to_string_pretty(&Wrapped { fit: &fit })? + "\n"))?;
             } else {
-                print!(
-                    "{}",
-                    text::fit_table(study.title.as_deref(), &study.parameters, &fit)
-                );
+                emit(&text::fit_table(study.title.as_deref(), &study.parameters, &fit))?;
             }
             Ok(ExitCode::SUCCESS)
         }
         Command::Check { study } => {
             let study = study::load(&study)?;
-            print!("{}", cli_support::check_summary(&study));
+            emit(&cli_support::check_summary(&study))?;
             Ok(ExitCode::SUCCESS)
         }
         Command::Audit(args) => audit_command(args),
         Command::Demo { out, threads, quiet } => cli_support::with_threads(threads, || {
             let progress = TerminalProgress::new(quiet);
             let summary = fitaudit::demo::run_all(&out, &command_line(), &progress)?;
-            print!("{}", cli_support::demo_summary(&summary));
+            emit(&cli_support::demo_summary(&summary))?;
             Ok(ExitCode::SUCCESS)
         }),
         Command::Models => {
-            print!("{}", text::models_table());
+            emit(&text::models_table())?;
             Ok(ExitCode::SUCCESS)
         }
     }
@@ -221,7 +219,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         if !args.quiet {
             eprintln!("report written to {}", dir.display());
         }
-        print!("{}", text::verdict_lines(&results));
+        emit(&text::verdict_lines(&results))?;
         let fails = results
             .verdicts
             .iter()
@@ -232,6 +230,16 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
             ExitCode::SUCCESS
         })
     })
+}
+
+/// Writes to stdout; a closed pipe (e.g. `| head`) ends the program quietly.
+fn emit(text: &str) -> anyhow::Result<()> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => std::process::exit(0),
+        other => Ok(other?),
+    }
 }
 
 fn command_line() -> String {
