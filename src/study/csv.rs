@@ -49,7 +49,10 @@ pub struct Table {
 impl Table {
     /// The column with this header, if exactly present.
     pub fn column(&self, header: &str) -> Option<&[f64]> {
-        self.headers.iter().position(|h| h == header).map(|i| self.columns[i].as_slice())
+        self.headers
+            .iter()
+            .position(|h| h == header)
+            .map(|i| self.columns[i].as_slice())
     }
 }
 
@@ -57,8 +60,8 @@ impl Table {
 /// columns it uses need to be numeric: see [`RawTable::numeric_column`]).
 pub fn read_csv(path: &Path) -> Result<Table, StudyError> {
     let bytes = std::fs::read(path).map_err(|source| StudyError::ReadData {
-        at: At::file(path),
-        key_at: At::file(path),
+        at: Box::new(At::file(path)),
+        key_at: Box::new(At::file(path)),
         source,
     })?;
     let raw = parse_raw(&bytes, path)?;
@@ -78,7 +81,7 @@ impl RawTable {
     pub fn require_rows(&self) -> Result<(), StudyError> {
         if self.rows.is_empty() {
             return Err(StudyError::NoDataRows {
-                at: At::file(&self.file),
+                at: Box::new(At::file(&self.file)),
             });
         }
         Ok(())
@@ -91,7 +94,7 @@ impl RawTable {
         let mut out = Vec::with_capacity(self.rows.len());
         for (row, &line) in self.rows.iter().zip(&self.lines) {
             let text = &row[j];
-            let at = At::cell(&self.file, line, j + 1);
+            let at = Box::new(At::cell(&self.file, line, j + 1));
             let column = j + 1;
             match parse_number(text, self.delimiter) {
                 Ok(v) => out.push(v),
@@ -241,7 +244,10 @@ fn split_fields(line: &[u8], delim: u8) -> Result<Vec<Vec<u8>>, (usize, String)>
             }
             while i < line.len() && line[i] != delim {
                 if !line[i].is_ascii_whitespace() {
-                    return Err((fields.len(), "text after the closing quote of a quoted field".into()));
+                    return Err((
+                        fields.len(),
+                        "text after the closing quote of a quoted field".into(),
+                    ));
                 }
                 i += 1;
             }
@@ -311,7 +317,7 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
             delim = detect_delimiter(line);
         }
         let fields = split_fields(line, delim).map_err(|(j, why)| StudyError::Quote {
-            at: At::cell(file, lineno, j + 1),
+            at: Box::new(At::cell(file, lineno, j + 1)),
             why,
         })?;
         let mut cells = Vec::with_capacity(fields.len());
@@ -320,7 +326,7 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
                 Ok(s) => cells.push(s.trim().to_string()),
                 Err(_) => {
                     return Err(StudyError::DataNotUtf8 {
-                        at: At::cell(file, lineno, j + 1),
+                        at: Box::new(At::cell(file, lineno, j + 1)),
                         column: j + 1,
                         header: header.as_ref().and_then(|(_, h)| h.get(j).cloned()),
                     })
@@ -340,7 +346,7 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
                         None
                     };
                     return Err(StudyError::Ragged {
-                        at: At::line(file, lineno),
+                        at: Box::new(At::line(file, lineno)),
                         found: cells.len(),
                         expected: h.len(),
                         header_line: *hl,
@@ -353,7 +359,9 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
         }
     }
     let Some((header_line, headers)) = header else {
-        return Err(StudyError::NoHeader { at: At::file(file) });
+        return Err(StudyError::NoHeader {
+            at: Box::new(At::file(file)),
+        });
     };
     Ok(RawTable {
         file: file.to_path_buf(),
@@ -389,14 +397,32 @@ mod tests {
         assert_eq!(parse_number(" 2.5 ", ','), Ok(2.5));
         assert_eq!(parse_number("-1e-3", ';'), Ok(-1e-3));
         assert_eq!(parse_number("", ','), Err(NumberProblem::Empty));
-        assert!(matches!(parse_number("NaN", ','), Err(NumberProblem::NonFinite(None))));
-        assert!(matches!(parse_number("-inf", ','), Err(NumberProblem::NonFinite(None))));
-        assert!(matches!(parse_number("1e400", ','), Err(NumberProblem::NonFinite(Some(_)))));
-        assert!(matches!(parse_number("0x1A", ','), Err(NumberProblem::NotANumber(Some(_)))));
+        assert!(matches!(
+            parse_number("NaN", ','),
+            Err(NumberProblem::NonFinite(None))
+        ));
+        assert!(matches!(
+            parse_number("-inf", ','),
+            Err(NumberProblem::NonFinite(None))
+        ));
+        assert!(matches!(
+            parse_number("1e400", ','),
+            Err(NumberProblem::NonFinite(Some(_)))
+        ));
+        assert!(matches!(
+            parse_number("0x1A", ','),
+            Err(NumberProblem::NotANumber(Some(_)))
+        ));
         assert_eq!(parse_number("3,14", ';'), Err(NumberProblem::DecimalComma));
         assert_eq!(parse_number("3,14", '\t'), Err(NumberProblem::DecimalComma));
-        assert!(matches!(parse_number("abc", ';'), Err(NumberProblem::NotANumber(None))));
-        assert!(matches!(parse_number("1_000", ','), Err(NumberProblem::NotANumber(Some(_)))));
+        assert!(matches!(
+            parse_number("abc", ';'),
+            Err(NumberProblem::NotANumber(None))
+        ));
+        assert!(matches!(
+            parse_number("1_000", ','),
+            Err(NumberProblem::NotANumber(Some(_)))
+        ));
     }
 
     #[test]
@@ -425,9 +451,15 @@ mod tests {
         assert_eq!(t.headers, vec!["a \"q\"", "b"]);
         assert_eq!(t.rows[0], vec!["1", "2"]);
         let e = p("a,b\n\"1,2\n").unwrap_err().to_string();
-        assert!(e.contains("d.csv, line 2, column 1") && e.contains("no closing quote"), "{e}");
+        assert!(
+            e.contains("d.csv, line 2, column 1") && e.contains("no closing quote"),
+            "{e}"
+        );
         let e = p("a,b\n\"1\"x,2\n").unwrap_err().to_string();
-        assert!(e.contains("line 2, column 1") && e.contains("after the closing quote"), "{e}");
+        assert!(
+            e.contains("line 2, column 1") && e.contains("after the closing quote"),
+            "{e}"
+        );
     }
 
     #[test]

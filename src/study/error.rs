@@ -67,12 +67,16 @@ pub(crate) fn name_list(names: &[String]) -> String {
     if names.is_empty() {
         return "(none)".to_string();
     }
-    names.iter().map(|n| format!("`{n}`")).collect::<Vec<_>>().join(", ")
+    names
+        .iter()
+        .map(|n| format!("`{n}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
-fn hint(s: &Option<String>) -> String {
+fn hint<S: AsRef<str>>(s: &Option<S>) -> String {
     match s {
-        Some(h) => format!("; {h}"),
+        Some(h) => format!("; {}", h.as_ref()),
         None => String::new(),
     }
 }
@@ -85,6 +89,45 @@ fn header(h: &str) -> String {
     }
 }
 
+/// Which two kinds of names collide in [`StudyError::Shadowing`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Shadow {
+    /// A constant with a parameter's name (the parameter wins).
+    ConstantIsParameter,
+    /// A parameter with an x column's name (the parameter wins).
+    ParameterIsColumn,
+    /// A constant with an x column's name (the constant wins).
+    ConstantIsColumn,
+}
+
+impl Shadow {
+    fn what(self) -> &'static str {
+        match self {
+            Shadow::ParameterIsColumn => "parameter",
+            _ => "constant",
+        }
+    }
+    fn other(self) -> &'static str {
+        match self {
+            Shadow::ConstantIsParameter => "the parameter",
+            _ => "the x column",
+        }
+    }
+    fn loser(self) -> &'static str {
+        match self {
+            Shadow::ConstantIsParameter => "constant",
+            _ => "column",
+        }
+    }
+    /// The study-file key of the shadowing name.
+    pub fn key(self, name: &str) -> String {
+        match self {
+            Shadow::ParameterIsColumn => format!("parameters.{name}"),
+            _ => format!("constants.{name}"),
+        }
+    }
+}
+
 /// Everything that can be wrong with a study file, its data file or a
 /// programmatic data set.
 #[derive(Debug, thiserror::Error)]
@@ -93,7 +136,7 @@ pub enum StudyError {
     #[error("{at}: cannot read the study file: {source}")]
     ReadStudy {
         /// The study file.
-        at: At,
+        at: Box<At>,
         /// The I/O error.
         #[source]
         source: std::io::Error,
@@ -102,9 +145,9 @@ pub enum StudyError {
     #[error("{at}: cannot read the data file named by `data.file` ({key_at}): {source}")]
     ReadData {
         /// The data file as resolved.
-        at: At,
+        at: Box<At>,
         /// Where the study file names it.
-        key_at: At,
+        key_at: Box<At>,
         /// The I/O error.
         #[source]
         source: std::io::Error,
@@ -113,14 +156,14 @@ pub enum StudyError {
     #[error("{at}: the study file is not valid UTF-8 (save it as UTF-8)")]
     StudyNotUtf8 {
         /// File, line and column of the first bad byte.
-        at: At,
+        at: Box<At>,
     },
     /// TOML syntax error, an unknown key, a missing key or a value of the
     /// wrong type.
     #[error("{at}: {message}{}", context.as_ref().map(|c| format!(" (in `{c}`)")).unwrap_or_default())]
     Toml {
         /// Position reported by the TOML reader.
-        at: At,
+        at: Box<At>,
         /// What the TOML reader said.
         message: String,
         /// The table the error lies in, when known.
@@ -130,7 +173,7 @@ pub enum StudyError {
     #[error("{at}: `{key}` {why}")]
     Invalid {
         /// Where the key is.
-        at: At,
+        at: Box<At>,
         /// Full key path, e.g. `audit.level`.
         key: String,
         /// What is wrong and what to write instead.
@@ -140,7 +183,7 @@ pub enum StudyError {
     #[error("{at}: parameter `{name}` has no start value (key `parameters.{name}.start`): write `{name} = {{ start = ... }}`")]
     MissingStart {
         /// Where the parameter is declared.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
     },
@@ -148,7 +191,7 @@ pub enum StudyError {
     #[error("{at}: parameter `{name}` has min = {min} not below max = {max} (keys `parameters.{name}.min`, `parameters.{name}.max`)")]
     EmptyBounds {
         /// Where the parameter is declared.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
         /// Lower bound.
@@ -160,7 +203,7 @@ pub enum StudyError {
     #[error("{at}: the start of parameter `{name}` ({start}) lies outside its bounds [{min}, {max}] (key `parameters.{name}.start`)")]
     StartOutsideBounds {
         /// Where the start is.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
         /// Start value.
@@ -174,13 +217,13 @@ pub enum StudyError {
     #[error("{at}: the study declares no parameters: list every parameter of `model.formula` under [parameters], each with a start")]
     NoParameters {
         /// The study file.
-        at: At,
+        at: Box<At>,
     },
     /// The formula does not parse.
     #[error("{at}: `model.formula`: {message}{}", column.map(|c| format!(" (column {c} of the formula)")).unwrap_or_default())]
     Formula {
         /// Where the formula is.
-        at: At,
+        at: Box<At>,
         /// What the compiler said.
         message: String,
         /// 1-based column in the formula.
@@ -193,7 +236,7 @@ pub enum StudyError {
         suggestion.as_ref().map(|s| format!("; did you mean `{s}`?")).unwrap_or_default())]
     UnknownName {
         /// Where the formula is.
-        at: At,
+        at: Box<At>,
         /// The name as written.
         name: String,
         /// 1-based column in the formula.
@@ -207,44 +250,42 @@ pub enum StudyError {
     #[error("{at}: parameter `{name}` is declared but `model.formula` does not use it: remove `parameters.{name}` or use it in the formula")]
     UnusedParameter {
         /// Where the parameter is declared.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
     },
-    /// Two kinds of names collide.
-    #[error("{at}: {what} `{name}` (key `{key}`) has the same name as {other}; names resolve parameters first, then constants, then columns, so the {other_kind} would never be read: rename one of them")]
+    /// A parameter or constant with the name of another parameter,
+    /// constant or x column.
+    #[error("{at}: {} `{name}` (key `{}`) has the same name as {} `{name}`; names resolve parameters first, then constants, then columns, so the {} would never be read: rename one of them",
+        kind.what(), kind.key(name), kind.other(), kind.loser())]
     Shadowing {
         /// Where the shadowing name is declared.
-        at: At,
-        /// Key of the shadowing name.
-        key: String,
+        at: Box<At>,
         /// The name.
         name: String,
-        /// "parameter" or "constant".
-        what: String,
-        /// What it shadows, e.g. "the x column `t`".
-        other: String,
-        /// "constant" or "column".
-        other_kind: String,
+        /// Which names collide.
+        kind: Shadow,
     },
     /// The data file has no header row.
-    #[error("{at}: the data file is empty: it needs a header row naming the columns, then one row per point")]
+    #[error(
+        "{at}: the data file is empty: it needs a header row naming the columns, then one row per point"
+    )]
     NoHeader {
         /// The data file.
-        at: At,
+        at: Box<At>,
     },
     /// The data file has a header but no data row.
     #[error("{at}: the data file has a header but no data rows")]
     NoDataRows {
         /// The data file.
-        at: At,
+        at: Box<At>,
     },
     /// A byte sequence that is not UTF-8 in the data file.
     #[error("{at}: the data file is not valid UTF-8 in column {column}{} (save it as UTF-8)",
         header.as_ref().map(|h| format!(" ({})", self::header(h))).unwrap_or_default())]
     DataNotUtf8 {
         /// File, line and column (field number).
-        at: At,
+        at: Box<At>,
         /// Field number.
         column: usize,
         /// Header of that column, when known.
@@ -254,15 +295,18 @@ pub enum StudyError {
     #[error("{at}: {why}")]
     Quote {
         /// File, line and column (field number).
-        at: At,
+        at: Box<At>,
         /// What is wrong.
         why: String,
     },
     /// A row with a different number of fields than the header.
-    #[error("{at}: this row has {found} fields but the header (line {header_line}) has {expected}{}", hint(hint_text))]
+    #[error(
+        "{at}: this row has {found} fields but the header (line {header_line}) has {expected}{}",
+        hint(hint_text)
+    )]
     Ragged {
         /// File and line.
-        at: At,
+        at: Box<At>,
         /// Fields found.
         found: usize,
         /// Fields of the header.
@@ -276,7 +320,7 @@ pub enum StudyError {
     #[error("{at}: header `{header}` appears in columns {first} and {second}; rename one (or name the column by an alias in `data.columns`)")]
     DuplicateHeader {
         /// Data file and header line.
-        at: At,
+        at: Box<At>,
         /// The header.
         header: String,
         /// First column number.
@@ -288,7 +332,7 @@ pub enum StudyError {
     #[error("{at}: `{key}` names column `{name}`, which {} does not have; its columns are: {}{}", data_file.display(), name_list(available), hint(hint_text))]
     MissingColumn {
         /// Where the key is in the study file.
-        at: At,
+        at: Box<At>,
         /// The key (`data.y`, `data.x[1]`, `data.columns.temp`).
         key: String,
         /// The header looked for.
@@ -298,23 +342,27 @@ pub enum StudyError {
         /// The headers the data file has.
         available: Vec<String>,
         /// An extra hint.
-        hint_text: Option<String>,
+        hint_text: Option<Box<str>>,
     },
     /// An empty cell in a used column.
     #[error("{at}: empty cell in column {column} ({})", header(name))]
     EmptyCell {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
         name: String,
     },
     /// A cell that is not a number.
-    #[error("{at}: `{text}` in column {column} ({}) is not a number{}", header(name), hint(why))]
+    #[error(
+        "{at}: `{text}` in column {column} ({}) is not a number{}",
+        header(name),
+        hint(why)
+    )]
     NotANumber {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -328,7 +376,7 @@ pub enum StudyError {
     #[error("{at}: `{text}` in column {column} ({}) uses a decimal comma; decimal commas are not read, use '.' as the decimal separator (write `{}`)", header(name), text.replace(',', "."))]
     DecimalComma {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -337,10 +385,14 @@ pub enum StudyError {
         text: String,
     },
     /// NaN, infinity, or a number too large for a double.
-    #[error("{at}: `{text}` in column {column} ({}) is not a finite number{}", header(name), hint(why))]
+    #[error(
+        "{at}: `{text}` in column {column} ({}) is not a finite number{}",
+        header(name),
+        hint(why)
+    )]
     NonFiniteCell {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -351,10 +403,13 @@ pub enum StudyError {
         why: Option<String>,
     },
     /// A sigma that is zero or negative.
-    #[error("{at}: sigma {value} in column {column} ({}) is not positive; every standard uncertainty must be > 0", header(name))]
+    #[error(
+        "{at}: sigma {value} in column {column} ({}) is not positive; every standard uncertainty must be > 0",
+        header(name)
+    )]
     BadSigma {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -363,10 +418,12 @@ pub enum StudyError {
         value: f64,
     },
     /// Fewer points than free parameters + 1.
-    #[error("{at}: {points} data points cannot fit {free} free parameters: at least {needed} points are needed")]
+    #[error(
+        "{at}: {points} data points cannot fit {free} free parameters: at least {needed} points are needed"
+    )]
     TooFewPoints {
         /// The data file (or study name).
-        at: At,
+        at: Box<At>,
         /// Points.
         points: usize,
         /// Free parameters.
@@ -375,10 +432,13 @@ pub enum StudyError {
         needed: usize,
     },
     /// Every x column holds one value only.
-    #[error("{at}: every x column is constant ({}): the data cannot tell the parameters apart", name_list(columns))]
+    #[error(
+        "{at}: every x column is constant ({}): the data cannot tell the parameters apart",
+        name_list(columns)
+    )]
     ConstantX {
         /// The data file (or study name).
-        at: At,
+        at: Box<At>,
         /// The x columns.
         columns: Vec<String>,
     },
@@ -388,9 +448,9 @@ pub enum StudyError {
         x.iter().map(|(n, v)| format!("{n} = {v}")).collect::<Vec<_>>().join(", "))]
     NotFiniteAtStart {
         /// The data line of the point (or the study name when no file).
-        at: At,
+        at: Box<At>,
         /// The study file.
-        study: At,
+        study: Box<At>,
         /// 1-based point number.
         point: usize,
         /// The x values of the point.
@@ -402,7 +462,7 @@ pub enum StudyError {
     #[error("{at}: the data set {why}")]
     InvalidDataset {
         /// The study (virtual) name.
-        at: At,
+        at: Box<At>,
         /// What is wrong.
         why: String,
     },
