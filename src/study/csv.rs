@@ -60,8 +60,8 @@ impl Table {
 /// columns it uses need to be numeric: see [`RawTable::numeric_column`]).
 pub fn read_csv(path: &Path) -> Result<Table, StudyError> {
     let bytes = std::fs::read(path).map_err(|source| StudyError::ReadData {
-        at: At::file(path),
-        key_at: At::file(path),
+        at: Box::new(At::file(path)),
+        key_at: Box::new(At::file(path)),
         source,
     })?;
     let raw = parse_raw(&bytes, path)?;
@@ -81,7 +81,7 @@ impl RawTable {
     pub fn require_rows(&self) -> Result<(), StudyError> {
         if self.rows.is_empty() {
             return Err(StudyError::NoDataRows {
-                at: At::file(&self.file),
+                at: Box::new(At::file(&self.file)),
             });
         }
         Ok(())
@@ -94,7 +94,7 @@ impl RawTable {
         let mut out = Vec::with_capacity(self.rows.len());
         for (row, &line) in self.rows.iter().zip(&self.lines) {
             let text = &row[j];
-            let at = At::cell(&self.file, line, j + 1);
+            let at = Box::new(At::cell(&self.file, line, j + 1));
             let column = j + 1;
             match parse_number(text, self.delimiter) {
                 Ok(v) => out.push(v),
@@ -317,7 +317,7 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
             delim = detect_delimiter(line);
         }
         let fields = split_fields(line, delim).map_err(|(j, why)| StudyError::Quote {
-            at: At::cell(file, lineno, j + 1),
+            at: Box::new(At::cell(file, lineno, j + 1)),
             why,
         })?;
         let mut cells = Vec::with_capacity(fields.len());
@@ -326,7 +326,7 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
                 Ok(s) => cells.push(s.trim().to_string()),
                 Err(_) => {
                     return Err(StudyError::DataNotUtf8 {
-                        at: At::cell(file, lineno, j + 1),
+                        at: Box::new(At::cell(file, lineno, j + 1)),
                         column: j + 1,
                         header: header.as_ref().and_then(|(_, h)| h.get(j).cloned()),
                     })
@@ -346,7 +346,7 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
                         None
                     };
                     return Err(StudyError::Ragged {
-                        at: At::line(file, lineno),
+                        at: Box::new(At::line(file, lineno)),
                         found: cells.len(),
                         expected: h.len(),
                         header_line: *hl,
@@ -359,7 +359,9 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
         }
     }
     let Some((header_line, headers)) = header else {
-        return Err(StudyError::NoHeader { at: At::file(file) });
+        return Err(StudyError::NoHeader {
+            at: Box::new(At::file(file)),
+        });
     };
     Ok(RawTable {
         file: file.to_path_buf(),

@@ -74,9 +74,9 @@ pub(crate) fn name_list(names: &[String]) -> String {
         .join(", ")
 }
 
-fn hint(s: &Option<String>) -> String {
+fn hint<S: AsRef<str>>(s: &Option<S>) -> String {
     match s {
-        Some(h) => format!("; {h}"),
+        Some(h) => format!("; {}", h.as_ref()),
         None => String::new(),
     }
 }
@@ -89,6 +89,45 @@ fn header(h: &str) -> String {
     }
 }
 
+/// Which two kinds of names collide in [`StudyError::Shadowing`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Shadow {
+    /// A constant with a parameter's name (the parameter wins).
+    ConstantIsParameter,
+    /// A parameter with an x column's name (the parameter wins).
+    ParameterIsColumn,
+    /// A constant with an x column's name (the constant wins).
+    ConstantIsColumn,
+}
+
+impl Shadow {
+    fn what(self) -> &'static str {
+        match self {
+            Shadow::ParameterIsColumn => "parameter",
+            _ => "constant",
+        }
+    }
+    fn other(self) -> &'static str {
+        match self {
+            Shadow::ConstantIsParameter => "the parameter",
+            _ => "the x column",
+        }
+    }
+    fn loser(self) -> &'static str {
+        match self {
+            Shadow::ConstantIsParameter => "constant",
+            _ => "column",
+        }
+    }
+    /// The study-file key of the shadowing name.
+    pub fn key(self, name: &str) -> String {
+        match self {
+            Shadow::ParameterIsColumn => format!("parameters.{name}"),
+            _ => format!("constants.{name}"),
+        }
+    }
+}
+
 /// Everything that can be wrong with a study file, its data file or a
 /// programmatic data set.
 #[derive(Debug, thiserror::Error)]
@@ -97,7 +136,7 @@ pub enum StudyError {
     #[error("{at}: cannot read the study file: {source}")]
     ReadStudy {
         /// The study file.
-        at: At,
+        at: Box<At>,
         /// The I/O error.
         #[source]
         source: std::io::Error,
@@ -106,9 +145,9 @@ pub enum StudyError {
     #[error("{at}: cannot read the data file named by `data.file` ({key_at}): {source}")]
     ReadData {
         /// The data file as resolved.
-        at: At,
+        at: Box<At>,
         /// Where the study file names it.
-        key_at: At,
+        key_at: Box<At>,
         /// The I/O error.
         #[source]
         source: std::io::Error,
@@ -117,14 +156,14 @@ pub enum StudyError {
     #[error("{at}: the study file is not valid UTF-8 (save it as UTF-8)")]
     StudyNotUtf8 {
         /// File, line and column of the first bad byte.
-        at: At,
+        at: Box<At>,
     },
     /// TOML syntax error, an unknown key, a missing key or a value of the
     /// wrong type.
     #[error("{at}: {message}{}", context.as_ref().map(|c| format!(" (in `{c}`)")).unwrap_or_default())]
     Toml {
         /// Position reported by the TOML reader.
-        at: At,
+        at: Box<At>,
         /// What the TOML reader said.
         message: String,
         /// The table the error lies in, when known.
@@ -134,7 +173,7 @@ pub enum StudyError {
     #[error("{at}: `{key}` {why}")]
     Invalid {
         /// Where the key is.
-        at: At,
+        at: Box<At>,
         /// Full key path, e.g. `audit.level`.
         key: String,
         /// What is wrong and what to write instead.
@@ -144,7 +183,7 @@ pub enum StudyError {
     #[error("{at}: parameter `{name}` has no start value (key `parameters.{name}.start`): write `{name} = {{ start = ... }}`")]
     MissingStart {
         /// Where the parameter is declared.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
     },
@@ -152,7 +191,7 @@ pub enum StudyError {
     #[error("{at}: parameter `{name}` has min = {min} not below max = {max} (keys `parameters.{name}.min`, `parameters.{name}.max`)")]
     EmptyBounds {
         /// Where the parameter is declared.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
         /// Lower bound.
@@ -164,7 +203,7 @@ pub enum StudyError {
     #[error("{at}: the start of parameter `{name}` ({start}) lies outside its bounds [{min}, {max}] (key `parameters.{name}.start`)")]
     StartOutsideBounds {
         /// Where the start is.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
         /// Start value.
@@ -178,13 +217,13 @@ pub enum StudyError {
     #[error("{at}: the study declares no parameters: list every parameter of `model.formula` under [parameters], each with a start")]
     NoParameters {
         /// The study file.
-        at: At,
+        at: Box<At>,
     },
     /// The formula does not parse.
     #[error("{at}: `model.formula`: {message}{}", column.map(|c| format!(" (column {c} of the formula)")).unwrap_or_default())]
     Formula {
         /// Where the formula is.
-        at: At,
+        at: Box<At>,
         /// What the compiler said.
         message: String,
         /// 1-based column in the formula.
@@ -197,7 +236,7 @@ pub enum StudyError {
         suggestion.as_ref().map(|s| format!("; did you mean `{s}`?")).unwrap_or_default())]
     UnknownName {
         /// Where the formula is.
-        at: At,
+        at: Box<At>,
         /// The name as written.
         name: String,
         /// 1-based column in the formula.
@@ -211,25 +250,21 @@ pub enum StudyError {
     #[error("{at}: parameter `{name}` is declared but `model.formula` does not use it: remove `parameters.{name}` or use it in the formula")]
     UnusedParameter {
         /// Where the parameter is declared.
-        at: At,
+        at: Box<At>,
         /// The parameter.
         name: String,
     },
-    /// Two kinds of names collide.
-    #[error("{at}: {what} `{name}` (key `{key}`) has the same name as {other}; names resolve parameters first, then constants, then columns, so the {other_kind} would never be read: rename one of them")]
+    /// A parameter or constant with the name of another parameter,
+    /// constant or x column.
+    #[error("{at}: {} `{name}` (key `{}`) has the same name as {} `{name}`; names resolve parameters first, then constants, then columns, so the {} would never be read: rename one of them",
+        kind.what(), kind.key(name), kind.other(), kind.loser())]
     Shadowing {
         /// Where the shadowing name is declared.
-        at: At,
-        /// Key of the shadowing name.
-        key: String,
+        at: Box<At>,
         /// The name.
         name: String,
-        /// "parameter" or "constant".
-        what: String,
-        /// What it shadows, e.g. "the x column `t`".
-        other: String,
-        /// "constant" or "column".
-        other_kind: String,
+        /// Which names collide.
+        kind: Shadow,
     },
     /// The data file has no header row.
     #[error(
@@ -237,20 +272,20 @@ pub enum StudyError {
     )]
     NoHeader {
         /// The data file.
-        at: At,
+        at: Box<At>,
     },
     /// The data file has a header but no data row.
     #[error("{at}: the data file has a header but no data rows")]
     NoDataRows {
         /// The data file.
-        at: At,
+        at: Box<At>,
     },
     /// A byte sequence that is not UTF-8 in the data file.
     #[error("{at}: the data file is not valid UTF-8 in column {column}{} (save it as UTF-8)",
         header.as_ref().map(|h| format!(" ({})", self::header(h))).unwrap_or_default())]
     DataNotUtf8 {
         /// File, line and column (field number).
-        at: At,
+        at: Box<At>,
         /// Field number.
         column: usize,
         /// Header of that column, when known.
@@ -260,7 +295,7 @@ pub enum StudyError {
     #[error("{at}: {why}")]
     Quote {
         /// File, line and column (field number).
-        at: At,
+        at: Box<At>,
         /// What is wrong.
         why: String,
     },
@@ -271,7 +306,7 @@ pub enum StudyError {
     )]
     Ragged {
         /// File and line.
-        at: At,
+        at: Box<At>,
         /// Fields found.
         found: usize,
         /// Fields of the header.
@@ -285,7 +320,7 @@ pub enum StudyError {
     #[error("{at}: header `{header}` appears in columns {first} and {second}; rename one (or name the column by an alias in `data.columns`)")]
     DuplicateHeader {
         /// Data file and header line.
-        at: At,
+        at: Box<At>,
         /// The header.
         header: String,
         /// First column number.
@@ -297,7 +332,7 @@ pub enum StudyError {
     #[error("{at}: `{key}` names column `{name}`, which {} does not have; its columns are: {}{}", data_file.display(), name_list(available), hint(hint_text))]
     MissingColumn {
         /// Where the key is in the study file.
-        at: At,
+        at: Box<At>,
         /// The key (`data.y`, `data.x[1]`, `data.columns.temp`).
         key: String,
         /// The header looked for.
@@ -307,13 +342,13 @@ pub enum StudyError {
         /// The headers the data file has.
         available: Vec<String>,
         /// An extra hint.
-        hint_text: Option<String>,
+        hint_text: Option<Box<str>>,
     },
     /// An empty cell in a used column.
     #[error("{at}: empty cell in column {column} ({})", header(name))]
     EmptyCell {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -327,7 +362,7 @@ pub enum StudyError {
     )]
     NotANumber {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -341,7 +376,7 @@ pub enum StudyError {
     #[error("{at}: `{text}` in column {column} ({}) uses a decimal comma; decimal commas are not read, use '.' as the decimal separator (write `{}`)", header(name), text.replace(',', "."))]
     DecimalComma {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -357,7 +392,7 @@ pub enum StudyError {
     )]
     NonFiniteCell {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -374,7 +409,7 @@ pub enum StudyError {
     )]
     BadSigma {
         /// File, line, column.
-        at: At,
+        at: Box<At>,
         /// Column number.
         column: usize,
         /// Header.
@@ -388,7 +423,7 @@ pub enum StudyError {
     )]
     TooFewPoints {
         /// The data file (or study name).
-        at: At,
+        at: Box<At>,
         /// Points.
         points: usize,
         /// Free parameters.
@@ -403,7 +438,7 @@ pub enum StudyError {
     )]
     ConstantX {
         /// The data file (or study name).
-        at: At,
+        at: Box<At>,
         /// The x columns.
         columns: Vec<String>,
     },
@@ -413,9 +448,9 @@ pub enum StudyError {
         x.iter().map(|(n, v)| format!("{n} = {v}")).collect::<Vec<_>>().join(", "))]
     NotFiniteAtStart {
         /// The data line of the point (or the study name when no file).
-        at: At,
+        at: Box<At>,
         /// The study file.
-        study: At,
+        study: Box<At>,
         /// 1-based point number.
         point: usize,
         /// The x values of the point.
@@ -427,7 +462,7 @@ pub enum StudyError {
     #[error("{at}: the data set {why}")]
     InvalidDataset {
         /// The study (virtual) name.
-        at: At,
+        at: Box<At>,
         /// What is wrong.
         why: String,
     },

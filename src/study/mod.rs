@@ -62,7 +62,7 @@ mod error;
 mod spec;
 
 pub use self::csv::{parse_raw, read_csv, RawTable, Table};
-pub use self::error::{At, StudyError};
+pub use self::error::{At, Shadow, StudyError};
 pub use self::spec::{DataSpec, FitSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec};
 
 use crate::data::Dataset;
@@ -133,7 +133,7 @@ impl fmt::Display for StudyWarning {
 /// Reads a study file and its data file, resolves and checks everything.
 pub fn load(path: &Path) -> Result<Study, StudyError> {
     let bytes = std::fs::read(path).map_err(|source| StudyError::ReadStudy {
-        at: At::file(path),
+        at: Box::new(At::file(path)),
         source,
     })?;
     let text = match std::str::from_utf8(&bytes) {
@@ -142,7 +142,7 @@ pub fn load(path: &Path) -> Result<Study, StudyError> {
             let good = std::str::from_utf8(&bytes[..e.valid_up_to()]).unwrap_or("");
             let (l, c) = spec::line_col(good, good.len());
             return Err(StudyError::StudyNotUtf8 {
-                at: At::cell(path, l, c),
+                at: Box::new(At::cell(path, l, c)),
             });
         }
     };
@@ -191,15 +191,15 @@ impl Study {
         let (params, options) = check_spec(&spec)?;
         if spec.data.file.as_os_str().is_empty() {
             return Err(StudyError::Invalid {
-                at: spec.at("data.file"),
+                at: Box::new(spec.at("data.file")),
                 key: "data.file".into(),
                 why: "is missing or empty: name the data file (CSV), relative to the study file".into(),
             });
         }
         let file = base_dir.join(&spec.data.file);
         let bytes = std::fs::read(&file).map_err(|source| StudyError::ReadData {
-            at: At::file(&file),
-            key_at: spec.at("data.file"),
+            at: Box::new(At::file(&file)),
+            key_at: Box::new(spec.at("data.file")),
             source,
         })?;
         let raw = parse_raw(&bytes, &file)?;
@@ -240,7 +240,7 @@ impl Study {
 
 fn invalid(spec: &StudySpec, key: &str, why: impl Into<String>) -> StudyError {
     StudyError::Invalid {
-        at: spec.at(key),
+        at: Box::new(spec.at(key)),
         key: key.to_string(),
         why: why.into(),
     }
@@ -258,7 +258,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         .map_err(|(key, why)| invalid(spec, &key, why))?;
     if spec.parameters.is_empty() {
         return Err(StudyError::NoParameters {
-            at: spec.at("parameters"),
+            at: Box::new(spec.at("parameters")),
         });
     }
     let mut params = Vec::with_capacity(spec.parameters.len());
@@ -276,7 +276,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         }
         let Some(start) = e.start else {
             return Err(StudyError::MissingStart {
-                at: spec.at(&key),
+                at: Box::new(spec.at(&key)),
                 name: name.clone(),
             });
         };
@@ -301,7 +301,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         }
         if min >= max {
             return Err(StudyError::EmptyBounds {
-                at: spec.at(&format!("{key}.min")),
+                at: Box::new(spec.at(&format!("{key}.min"))),
                 name: name.clone(),
                 min,
                 max,
@@ -309,7 +309,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         }
         if start < min || start > max {
             return Err(StudyError::StartOutsideBounds {
-                at: spec.at(&format!("{key}.start")),
+                at: Box::new(spec.at(&format!("{key}.start"))),
                 name: name.clone(),
                 start,
                 min,
@@ -341,12 +341,9 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         }
         if spec.parameters.iter().any(|(n, _)| n == name) {
             return Err(StudyError::Shadowing {
-                at: spec.at(&key),
-                key,
+                at: Box::new(spec.at(&key)),
                 name: name.clone(),
-                what: "constant".into(),
-                other: format!("the parameter `{name}`"),
-                other_kind: "constant".into(),
+                kind: Shadow::ConstantIsParameter,
             });
         }
     }
@@ -381,17 +378,17 @@ fn find_header(
                     .map(|h| format!("did you mean `{h}`?"))
             };
             Err(StudyError::MissingColumn {
-                at: spec.at(key),
+                at: Box::new(spec.at(key)),
                 key: key.to_string(),
                 name: header.to_string(),
                 data_file: raw.file.clone(),
                 available: raw.headers.clone(),
-                hint_text,
+                hint_text: hint_text.map(String::into_boxed_str),
             })
         }
         [i] => Ok(*i),
         [a, b, ..] => Err(StudyError::DuplicateHeader {
-            at: At::line(&raw.file, raw.header_line),
+            at: Box::new(At::line(&raw.file, raw.header_line)),
             header: header.to_string(),
             first: a + 1,
             second: b + 1,
@@ -501,7 +498,7 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
             for (v, &line) in s.iter().zip(&raw.lines) {
                 if *v <= 0.0 {
                     return Err(StudyError::BadSigma {
-                        at: At::cell(&raw.file, line, j + 1),
+                        at: Box::new(At::cell(&raw.file, line, j + 1)),
                         column: j + 1,
                         name: raw.headers[j].clone(),
                         value: *v,
@@ -524,7 +521,7 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
 
 fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
     let bad = |why: String| StudyError::InvalidDataset {
-        at: At::file(&spec.origin),
+        at: Box::new(At::file(&spec.origin)),
         why,
     };
     let n = ds.y.len();
@@ -589,28 +586,18 @@ fn finish(
 ) -> Result<Study, StudyError> {
     // Parameters and constants must not hide an x column.
     for xn in &dataset.x_names {
-        if spec.parameters.iter().any(|(n, _)| n == xn) {
-            let key = format!("parameters.{xn}");
-            return Err(StudyError::Shadowing {
-                at: spec.at(&key),
-                key,
-                name: xn.clone(),
-                what: "parameter".into(),
-                other: format!("the x column `{xn}`"),
-                other_kind: "column".into(),
-            });
-        }
-        if spec.constants.iter().any(|(n, _)| n == xn) {
-            let key = format!("constants.{xn}");
-            return Err(StudyError::Shadowing {
-                at: spec.at(&key),
-                key,
-                name: xn.clone(),
-                what: "constant".into(),
-                other: format!("the x column `{xn}`"),
-                other_kind: "column".into(),
-            });
-        }
+        let kind = if spec.parameters.iter().any(|(n, _)| n == xn) {
+            Shadow::ParameterIsColumn
+        } else if spec.constants.iter().any(|(n, _)| n == xn) {
+            Shadow::ConstantIsColumn
+        } else {
+            continue;
+        };
+        return Err(StudyError::Shadowing {
+            at: Box::new(spec.at(&kind.key(xn))),
+            name: xn.clone(),
+            kind,
+        });
     }
     let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
     let symbols = Symbols {
@@ -620,7 +607,7 @@ fn finish(
     };
     let tape = model::compile(&spec.model.formula, &symbols).map_err(|e| match e.kind {
         ModelErrorKind::UnknownName { name, suggestion } => StudyError::UnknownName {
-            at: formula_at(&spec, e.column),
+            at: Box::new(formula_at(&spec, e.column)),
             name,
             column: e.column,
             suggestion,
@@ -632,13 +619,13 @@ fn finish(
                 .collect(),
         },
         ModelErrorKind::Syntax(message) => StudyError::Formula {
-            at: formula_at(&spec, e.column),
+            at: Box::new(formula_at(&spec, e.column)),
             message,
             column: e.column,
         },
-        ModelErrorKind::TooDeep { limit } => StudyError::Formula {
-            at: formula_at(&spec, e.column),
-            message: format!("nesting deeper than {limit} levels"),
+        other => StudyError::Formula {
+            at: Box::new(formula_at(&spec, e.column)),
+            message: other.to_string(),
             column: e.column,
         },
         ModelErrorKind::Arity {
@@ -654,15 +641,15 @@ fn finish(
     for (j, p) in params.iter().enumerate() {
         if !tape.uses_parameter(j) {
             return Err(StudyError::UnusedParameter {
-                at: spec.at(&format!("parameters.{}", p.name)),
+                at: Box::new(spec.at(&format!("parameters.{}", p.name))),
                 name: p.name.clone(),
             });
         }
     }
-    let data_at = match &source {
+    let data_at = Box::new(match &source {
         Some(s) => At::file(&s.file),
         None => At::file(&spec.origin),
-    };
+    });
     let n = dataset.len();
     if n == 0 {
         return Err(StudyError::NoDataRows { at: data_at });
@@ -701,13 +688,13 @@ fn finish(
     let mut scratch = Vec::new();
     if let Err(bad) = tape.eval(&starts, &xs, &mut values, Some(&mut jac), &mut scratch) {
         let i = bad.point.min(n - 1);
-        let at = match &source {
+        let at = Box::new(match &source {
             Some(s) => At::line(&s.file, s.lines[i]),
             None => At::file(&spec.origin),
-        };
+        });
         return Err(StudyError::NotFiniteAtStart {
             at,
-            study: At::file(&spec.origin),
+            study: Box::new(At::file(&spec.origin)),
             point: i + 1,
             x: dataset
                 .x_names
@@ -739,4 +726,39 @@ fn finish(
         data_lines,
         warnings,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sha256_hex_matches_the_fips_180_2_vector() {
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+    }
+
+    #[test]
+    fn the_error_type_stays_small() {
+        // Keeps Result<_, StudyError> cheap to return (clippy's
+        // result_large_err threshold is 128 bytes).
+        assert!(
+            std::mem::size_of::<StudyError>() <= 128,
+            "{}",
+            std::mem::size_of::<StudyError>()
+        );
+    }
+
+    #[test]
+    fn identifiers() {
+        for ok in ["t", "T_env", "_x1", "k2"] {
+            assert!(is_identifier(ok), "{ok}");
+        }
+        for bad in ["", "1t", "Temp (C)", "a-b", "é"] {
+            assert!(!is_identifier(bad), "{bad}");
+        }
+    }
 }

@@ -285,7 +285,7 @@ impl StudySpec {
                 let t = text.trim_start_matches(['+', '-']);
                 if t.starts_with("0x") || t.starts_with("0o") || t.starts_with("0b") {
                     return Err(StudyError::Invalid {
-                        at: spec.locations.at(origin, &key),
+                        at: Box::new(spec.locations.at(origin, &key)),
                         key,
                         why: format!(
                             "is written `{text}`: hexadecimal, octal and binary numbers are not accepted, write it in decimal"
@@ -323,12 +323,10 @@ impl StudySpec {
 
 fn is_number_key(key: &str) -> bool {
     let parts: Vec<&str> = key.split('.').collect();
-    match parts.as_slice() {
-        ["parameters", _, "start" | "min" | "max"] => true,
-        ["constants", _] => true,
-        ["data", "sigma"] => true,
-        _ => false,
-    }
+    matches!(
+        parts.as_slice(),
+        ["parameters", _, "start" | "min" | "max"] | ["constants", _] | ["data", "sigma"]
+    )
 }
 
 /// 1-based (line, character column) of a byte offset.
@@ -351,7 +349,11 @@ fn toml_error(e: &toml::de::Error, text: &str, origin: &Path, locs: Option<&Loca
         None => (At::file(origin), None),
     };
     let message = e.message().trim_end().replace('\n', "; ");
-    StudyError::Toml { at, message, context }
+    StudyError::Toml {
+        at: Box::new(at),
+        message,
+        context,
+    }
 }
 
 // ---------------------------------------------------------------------------
