@@ -197,7 +197,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         .audit
         .validate()
         .map_err(|(key, why)| study::StudyError::Invalid {
-            at: study::At::file(&study.path),
+            at: Box::new(study::At::file(&study.path)),
             key: format!("{key} (as set in the study or on the command line)"),
             why,
         })?;

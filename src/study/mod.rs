@@ -628,15 +628,6 @@ fn finish(
             message: other.to_string(),
             column: e.column,
         },
-        ModelErrorKind::Arity {
-            function,
-            expected,
-            found,
-        } => StudyError::Formula {
-            at: formula_at(&spec, e.column),
-            message: format!("{function} takes {expected} argument(s), {found} given"),
-            column: e.column,
-        },
     })?;
     for (j, p) in params.iter().enumerate() {
         if !tape.uses_parameter(j) {
