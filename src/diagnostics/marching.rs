@@ -28,12 +28,8 @@ pub fn contour_paths(x: &[f64], y: &[f64], z: &[Vec<f64>], level: f64) -> Vec<Ve
     if nx < 2 || ny < 2 || !level.is_finite() {
         return Vec::new();
     }
-    let value = |r: usize, c: usize| -> f64 {
-        z.get(r)
-            .and_then(|row| row.get(c))
-            .copied()
-            .unwrap_or(f64::NAN)
-    };
+    let value =
+        |r: usize, c: usize| -> f64 { z.get(r).and_then(|row| row.get(c)).copied().unwrap_or(f64::NAN) };
     // Edge ids: the horizontal edge from node (r, c) to (r, c + 1) is
     // 2 * (r * nx + c); the vertical edge from (r, c) to (r + 1, c) is that plus one.
     let h_edge = |r: usize, c: usize| 2 * (r * nx + c);
@@ -54,7 +50,12 @@ pub fn contour_paths(x: &[f64], y: &[f64], z: &[Vec<f64>], level: f64) -> Vec<Ve
             if zs.iter().any(|v| !v.is_finite()) {
                 continue;
             }
-            let ps = [[x[c], y[r]], [x[c + 1], y[r]], [x[c + 1], y[r + 1]], [x[c], y[r + 1]]];
+            let ps = [
+                [x[c], y[r]],
+                [x[c + 1], y[r]],
+                [x[c + 1], y[r + 1]],
+                [x[c], y[r + 1]],
+            ];
             let above = zs.map(|v| v >= level);
             // Edge k joins corner k and corner k + 1 (mod 4):
             // 0 bottom, 1 right, 2 top, 3 left.
@@ -63,8 +64,9 @@ pub fn contour_paths(x: &[f64], y: &[f64], z: &[Vec<f64>], level: f64) -> Vec<Ve
                 let (i, j) = (k, (k + 1) % 4);
                 (above[i] != above[j]).then(|| cross(ids[k], ps[i], zs[i], ps[j], zs[j]))
             };
-            let crossings: Vec<(usize, Crossing)> =
-                (0..4).filter_map(|k| edge_crossing(k).map(|cr| (k, cr))).collect();
+            let crossings: Vec<(usize, Crossing)> = (0..4)
+                .filter_map(|k| edge_crossing(k).map(|cr| (k, cr)))
+                .collect();
             match crossings.len() {
                 2 => segments.push([crossings[0].1, crossings[1].1]),
                 4 => {
@@ -133,7 +135,12 @@ fn join(segments: Vec<[Crossing; 2]>) -> Vec<Vec<[f64; 2]>> {
                 from = s;
             }
         }
-        let mut path: Vec<[f64; 2]> = backward.iter().rev().chain(forward.iter()).map(|c| c.point).collect();
+        let mut path: Vec<[f64; 2]> = backward
+            .iter()
+            .rev()
+            .chain(forward.iter())
+            .map(|c| c.point)
+            .collect();
         path.dedup();
         if closed && path.first() != path.last() {
             let p = path[0];
@@ -151,7 +158,9 @@ mod tests {
     use super::*;
 
     fn grid(lo: f64, hi: f64, n: usize) -> Vec<f64> {
-        (0..n).map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64).collect()
+        (0..n)
+            .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
+            .collect()
     }
 
     #[test]
@@ -163,14 +172,20 @@ mod tests {
         let x = grid(-2.0, 2.0, n);
         let y = grid(-2.0, 2.0, n);
         let h = 4.0 / (n - 1) as f64;
-        let z: Vec<Vec<f64>> = y.iter().map(|&yv| x.iter().map(|&xv| xv * xv + yv * yv).collect()).collect();
+        let z: Vec<Vec<f64>> = y
+            .iter()
+            .map(|&yv| x.iter().map(|&xv| xv * xv + yv * yv).collect())
+            .collect();
         let paths = contour_paths(&x, &y, &z, r * r);
         assert_eq!(paths.len(), 1, "one closed line");
         let p = &paths[0];
         assert_eq!(p.first(), p.last(), "closed");
         assert!(p.len() > 60, "{} vertices", p.len());
         let bound = h * h / (8.0 * r) * 1.5;
-        let worst = p.iter().map(|v| ((v[0] * v[0] + v[1] * v[1]).sqrt() - r).abs()).fold(0.0, f64::max);
+        let worst = p
+            .iter()
+            .map(|v| ((v[0] * v[0] + v[1] * v[1]).sqrt() - r).abs())
+            .fold(0.0, f64::max);
         assert!(worst <= bound, "worst radial error {worst} > {bound}");
         // Vertices go round the circle once: the total turning angle is 2 pi.
         let mut turn = 0.0;
@@ -186,7 +201,10 @@ mod tests {
             }
             turn += d;
         }
-        assert!((turn.abs() - 2.0 * std::f64::consts::PI).abs() < 1e-9, "turn {turn}");
+        assert!(
+            (turn.abs() - 2.0 * std::f64::consts::PI).abs() < 1e-9,
+            "turn {turn}"
+        );
     }
 
     #[test]
@@ -229,7 +247,10 @@ mod tests {
         assert_eq!(paths.len(), 2);
         z[3][3] = f64::NAN;
         let with_hole = contour_paths(&x, &y, &z, 0.5);
-        assert!(with_hole.iter().flatten().all(|v| v[0].is_finite() && v[1].is_finite()));
+        assert!(with_hole
+            .iter()
+            .flatten()
+            .all(|v| v[0].is_finite() && v[1].is_finite()));
         assert!(contour_paths(&x, &y, &z, f64::NAN).is_empty());
     }
 }

@@ -23,7 +23,9 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
-use super::profile_scan::{chi2_scale, explore, step_scale, Node, Scanner, Target, WalkEnd, SCAN_LIMIT_SCALES};
+use super::profile_scan::{
+    chi2_scale, explore, step_scale, Node, Scanner, Target, WalkEnd, SCAN_LIMIT_SCALES,
+};
 use super::roots::brent;
 use super::{Fitted, Progress};
 
@@ -232,7 +234,11 @@ fn profile_one(
             let mut start = base.clone();
             let before = sc.failed;
             for i in 1..=n {
-                let x = if i == n { far } else { est + dir * reach[k] * i as f64 / n as f64 };
+                let x = if i == n {
+                    far
+                } else {
+                    est + dir * reach[k] * i as f64 / n as f64
+                };
                 if let Some(node) = sc.at(&[(j, x)], &start) {
                     start.copy_from_slice(&node.params);
                     nodes.push((x, node));
@@ -283,7 +289,9 @@ fn profile_one(
         }
     }
 
-    let se = ctx.fit.parameters[j].std_error.filter(|v| v.is_finite() && *v > 0.0);
+    let se = ctx.fit.parameters[j]
+        .std_error
+        .filter(|v| v.is_finite() && *v > 0.0);
     let parabola = match se {
         Some(se) => all
             .iter()
@@ -365,7 +373,11 @@ fn locate(
     let xtol = 1e-10 * scale.max(f64::EPSILON * est.abs());
     let root = brent(
         |x| {
-            let start = if (x - x0).abs() <= (x - x1).abs() { &n0.params } else { &n1.params };
+            let start = if (x - x0).abs() <= (x - x1).abs() {
+                &n0.params
+            } else {
+                &n1.params
+            };
             let node = sc.at(&[(j, x)], start)?;
             let f = rise(&node);
             evaluated.push((x, node));
@@ -385,13 +397,21 @@ fn locate(
             } else if r.x == x1 {
                 Some(n1.clone())
             } else {
-                evaluated.into_iter().rev().find(|(x, _)| *x == r.x).map(|(_, n)| n)
+                evaluated
+                    .into_iter()
+                    .rev()
+                    .find(|(x, _)| *x == r.x)
+                    .map(|(_, n)| n)
             };
             (r.x, node)
         }
         Err(_) => {
             // Linear interpolation between the bracket points.
-            let t = if f1 != f0 { (-f0 / (f1 - f0)).clamp(0.0, 1.0) } else { 0.5 };
+            let t = if f1 != f0 {
+                (-f0 / (f1 - f0)).clamp(0.0, 1.0)
+            } else {
+                0.5
+            };
             let x = x0 + t * (x1 - x0);
             let start = if t <= 0.5 { &n0.params } else { &n1.params };
             (x, sc.at(&[(j, x)], start))

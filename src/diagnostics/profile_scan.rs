@@ -71,7 +71,9 @@ impl<'c> Scanner<'c> {
             sigma: &self.sigma,
         };
         self.refits += 1;
-        let out = self.refitter.refit(&self.ctx.problem, &view, &self.start, &self.free);
+        let out = self
+            .refitter
+            .refit(&self.ctx.problem, &view, &self.start, &self.free);
         let params = self.refitter.params();
         if out.converged && out.chi2.is_finite() && params.iter().all(|p| p.is_finite()) {
             Some(Node {
@@ -111,7 +113,11 @@ pub(crate) fn step_scale(ctx: &Fitted, j: usize) -> f64 {
             return se.max(floor);
         }
     }
-    let mut s = if v.abs() > 0.0 && v.is_finite() { 0.1 * v.abs() } else { 0.1 };
+    let mut s = if v.abs() > 0.0 && v.is_finite() {
+        0.1 * v.abs()
+    } else {
+        0.1
+    };
     let spec = &ctx.problem.params[j];
     let range = spec.max - spec.min;
     if range.is_finite() && range > 0.0 {
@@ -182,11 +188,19 @@ pub(crate) fn explore(
     let est = base[j];
     let spec = &sc.ctx.problem.params[j];
     let bound = if dir > 0.0 { spec.max } else { spec.min };
-    let room = if bound.is_finite() { (bound - est).abs() } else { f64::INFINITY };
+    let room = if bound.is_finite() {
+        (bound - est).abs()
+    } else {
+        f64::INFINITY
+    };
     let dmax = room.min(target.limit);
     let mut nodes: Vec<(f64, Node)> = Vec::new();
     if !(dmax > 0.0) {
-        let end = if room <= target.limit { WalkEnd::Bound } else { WalkEnd::Limit };
+        let end = if room <= target.limit {
+            WalkEnd::Bound
+        } else {
+            WalkEnd::Limit
+        };
         return Walk { nodes, end };
     }
     let mut start = base.to_vec();

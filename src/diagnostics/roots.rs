@@ -95,7 +95,11 @@ where
         let tol = 2.0 * f64::EPSILON * b.abs() + 0.5 * xtol;
         let half = 0.5 * (c - b);
         if half.abs() <= tol || fb == 0.0 {
-            return Ok(Root { x: b, fx: fb, evaluations });
+            return Ok(Root {
+                x: b,
+                fx: fb,
+                evaluations,
+            });
         }
         if evaluations >= max_evaluations {
             return Err(RootFailure::EvaluationLimit);
