@@ -32,8 +32,10 @@ fn line_data(with_sigma: bool) -> Dataset {
 }
 
 fn settings(level: f64, points: usize) -> AuditSettings {
-    let mut s = AuditSettings::default();
-    s.level = level;
+    let mut s = AuditSettings {
+        level,
+        ..AuditSettings::default()
+    };
     s.profile.points = points;
     s
 }

@@ -195,7 +195,7 @@ pub(crate) fn explore(
     };
     let dmax = room.min(target.limit);
     let mut nodes: Vec<(f64, Node)> = Vec::new();
-    if !(dmax > 0.0) {
+    if dmax.is_nan() || dmax <= 0.0 {
         let end = if room <= target.limit {
             WalkEnd::Bound
         } else {
@@ -236,7 +236,7 @@ pub(crate) fn explore(
             None => {
                 retries += 1;
                 let half = d_last + 0.5 * (d - d_last);
-                if retries > 3 || !(half > d_last) {
+                if retries > 3 || half.is_nan() || half <= d_last {
                     break;
                 }
                 d = half;
