@@ -6,7 +6,7 @@
 
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::contour::{
-    self, delta_chi2_2dof, level_probabilities, validate_pairs, ContourError,
+    self, choose_pairs, delta_chi2_2dof, level_probabilities, validate_pairs, ContourError,
 };
 use fitaudit::diagnostics::{Fitted, NoProgress};
 use fitaudit::fit::{fit, FitOptions, ParamSpec, Problem};
@@ -232,4 +232,55 @@ fn pairs_are_validated_and_a_flat_valley_gives_no_nan() {
         Some(ContourError::UnknownParameter { .. })
     ));
     assert!(maps[0].grid.chi2.is_empty());
+}
+
+fn quintic(p: &[f64], x: &[f64], g: &mut [f64]) -> f64 {
+    let mut v = 0.0;
+    let mut t = 1.0;
+    for j in 0..6 {
+        g[j] = t;
+        v += p[j] * t;
+        t *= x[0];
+    }
+    v
+}
+
+#[test]
+fn more_than_five_parameters_map_the_six_most_correlated_pairs() {
+    // Selection rule of the issue: with more than five free parameters the
+    // six pairs of largest |correlation| in the base fit, largest first.
+    let model = NativeModel::new(6, quintic as PointFn);
+    let params = (0..6).map(|j| ParamSpec::free(&format!("p{j}"), 0.0)).collect();
+    let problem = Problem {
+        model: &model,
+        params,
+        options: FitOptions::default(),
+    };
+    let data = data();
+    let base = fit(&problem, &data).unwrap();
+    let st = AuditSettings::default();
+    let ctx = Fitted {
+        problem,
+        data: &data,
+        fit: &base,
+        settings: &st,
+    };
+    let pairs = choose_pairs(&ctx);
+    assert_eq!(pairs.len(), 6);
+    let corr: Vec<f64> = pairs
+        .iter()
+        .map(|(_, r)| {
+            let [i, k] = *r.as_ref().unwrap();
+            base.correlation[i][k].abs()
+        })
+        .collect();
+    assert!(corr.windows(2).all(|w| w[0] >= w[1]), "{corr:?}");
+    // No unchosen pair is more correlated than the weakest chosen one.
+    let weakest = corr[5];
+    for i in 0..6 {
+        for k in i + 1..6 {
+            let chosen = pairs.iter().any(|(_, r)| r.as_ref().unwrap() == &[i, k]);
+            assert!(chosen || base.correlation[i][k].abs() <= weakest);
+        }
+    }
 }
