@@ -205,7 +205,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         .out
         .clone()
         .unwrap_or_else(|| Path::new("out").join(&study.name));
-    fitaudit::output::check_destination(&out)?;
+    fitaudit::output::preflight(&out)?;
     let options = AuditOptions {
         only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
         command_line: command_line(),
