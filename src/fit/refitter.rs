@@ -357,6 +357,7 @@ impl Refitter {
 
 /// Evaluates values, weighted residuals and (optionally) the weighted
 /// Jacobian at `params`; returns chi2. `inv_sigma` is `1 / data.sigma`.
+#[allow(clippy::too_many_arguments)] // buffers passed apart so the caller can split borrows
 pub(crate) fn eval_into(
     model: &dyn ModelFn,
     data: &DataView,
