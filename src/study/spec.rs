@@ -348,7 +348,10 @@ fn toml_error(e: &toml::de::Error, text: &str, origin: &Path, locs: Option<&Loca
         }
         None => (At::file(origin), None),
     };
-    let message = e.message().trim_end().replace('\n', "; ");
+    let mut message = e.message().trim_end().replace('\n', "; ");
+    if message.contains("invalid floating-point number") {
+        message.push_str(" (write an ordinary decimal number within the range of a double, |x| < 1.8e308)");
+    }
     StudyError::Toml {
         at: Box::new(at),
         message,
