@@ -1,11 +1,31 @@
 //! The refit primitive: weighted least squares by Levenberg-Marquardt or
 //! steepest descent, with bounds, fixed parameters and covariance.
 //!
-//! OWNER NOTE (scaffold): the types and signatures below are the pinned API
-//! that every diagnostic calls. Implementation goes in submodules.
+//! The types and signatures in this module are the pinned API that every
+//! diagnostic calls. The work is done in submodules:
+//!
+//! - `refitter`: the reusable workspace [`Refitter`] (no allocation in the
+//!   loop) and the evaluation helpers;
+//! - `lm`: Levenberg-Marquardt with a trust region, More's scaling and
+//!   optional geodesic acceleration;
+//! - `steepest`: steepest descent with a backtracking Armijo rule;
+//! - `linalg`: Householder QR and Jacobi SVD over caller buffers;
+//! - `covariance`: covariance, rank and null space from the SVD;
+//! - `result`: [`fit`], [`fit_from`], [`analyse`] and their result types.
 
 use crate::model::ModelFn;
 use serde::{Deserialize, Serialize};
+
+mod covariance;
+mod linalg;
+mod lm;
+mod refitter;
+mod result;
+mod steepest;
+
+pub use covariance::{RANK_TOLERANCE, UNDETERMINED_WEIGHT};
+pub use refitter::Refitter;
+pub use result::{analyse, fit, fit_from, FitError, FitResult, ParamResult};
 
 /// Minimisation method.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
