@@ -99,6 +99,20 @@ fn a_parameter_without_start_is_named() {
 }
 
 #[test]
+fn positions_hold_for_tables_given_only_by_dotted_headers() {
+    // No `[parameters]` header: the parameters table exists only through
+    // `[parameters.X]` headers (valid TOML, and such a table has no span).
+    let params = "[parameters]\nT_env = { start = 20.0 }\ndT = { start = 50.0, min = 0 }\ntau = { start = 300, min = 1, max = 1e5 }\n";
+    let dotted =
+        "[parameters.T_env]\nstart = 20.0\n[parameters.dT]\nmin = 0\n[parameters.tau]\nstart = 300\n";
+    let e = err(&STUDY.replace(params, dotted), CSV);
+    has(
+        &e,
+        &["study.toml, line 11, column 1", "parameter `dT` has no start"],
+    );
+}
+
+#[test]
 fn a_start_outside_its_bounds_is_named() {
     let (_c, r) = load(&STUDY.replace("start = 300,", "start = 0,"), CSV);
     let e = r.unwrap_err();
