@@ -13,6 +13,7 @@ pub mod monte_carlo;
 pub mod multistart;
 pub mod profile;
 pub mod resample;
+pub mod sampling;
 pub mod verdict;
 
 /// A problem together with its base fit: the input of every diagnostic.
