@@ -1,0 +1,160 @@
+//! Small dense kernels over caller-owned buffers: a Householder QR of a tall
+//! column-major matrix and a one-sided Jacobi SVD of the square triangular
+//! factor. Neither allocates; both are used inside the refit loop.
+
+/// In-place Householder QR of the `n x k` column-major matrix `a` (leading
+/// dimension `n`). On exit column `j` holds, in rows `j..n`, the Householder
+/// vector `v_j`, and rows `0..j` hold the strict upper part of `R`; the
+/// diagonal of `R` goes to `rdiag[j]` and the reflector scalars to `beta[j]`
+/// (`H_j = I - beta_j v_j v_j^T`).
+pub(crate) fn householder_qr(a: &mut [f64], n: usize, k: usize, rdiag: &mut [f64], beta: &mut [f64]) {
+    for j in 0..k {
+        let (left, right) = a.split_at_mut((j + 1) * n);
+        let col = &mut left[j * n..];
+        let x = &mut col[j..n];
+        let norm = norm2(x);
+        if norm == 0.0 {
+            rdiag[j] = 0.0;
+            beta[j] = 0.0;
+            continue;
+        }
+        let alpha = if x[0] > 0.0 { -norm } else { norm };
+        x[0] -= alpha;
+        // v^T v = 2 (|x|^2 - alpha x0) = 2 norm (norm + |x0|)
+        let vtv = 2.0 * norm * (norm + (x[0] + alpha).abs());
+        let b = 2.0 / vtv;
+        rdiag[j] = alpha;
+        beta[j] = b;
+        for c in 0..(k - j - 1) {
+            let other = &mut right[c * n + j..c * n + n];
+            let s = b * dot(x, other);
+            for (o, v) in other.iter_mut().zip(x.iter()) {
+                *o -= s * v;
+            }
+        }
+    }
+}
+
+/// Applies `Q^T` (from [`householder_qr`]) to the vector `r` of length `n`.
+pub(crate) fn apply_qt(a: &[f64], n: usize, k: usize, beta: &[f64], r: &mut [f64]) {
+    for j in 0..k {
+        if beta[j] == 0.0 {
+            continue;
+        }
+        let v = &a[j * n + j..j * n + n];
+        let rr = &mut r[j..n];
+        let s = beta[j] * dot(v, rr);
+        for (o, x) in rr.iter_mut().zip(v.iter()) {
+            *o -= s * x;
+        }
+    }
+}
+
+/// Copies the `k x k` factor `R` out of the QR storage into `w`
+/// (column-major, leading dimension `k`, zeros below the diagonal).
+pub(crate) fn extract_r(a: &[f64], n: usize, k: usize, rdiag: &[f64], w: &mut [f64]) {
+    for j in 0..k {
+        for i in 0..k {
+            w[j * k + i] = if i < j {
+                a[j * n + i]
+            } else if i == j {
+                rdiag[j]
+            } else {
+                0.0
+            };
+        }
+    }
+}
+
+/// One-sided (Hestenes) Jacobi SVD of the `k x k` column-major `w`.
+/// On exit the columns of `w` are `u_i s_i` (mutually orthogonal), `v`
+/// holds the right singular vectors as columns and `s` the singular values
+/// (column norms of `w`), unsorted.
+pub(crate) fn jacobi_svd(w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64]) {
+    for j in 0..k {
+        for i in 0..k {
+            v[j * k + i] = if i == j { 1.0 } else { 0.0 };
+        }
+    }
+    for _sweep in 0..80 {
+        let mut rotated = false;
+        for p in 0..k {
+            for q in (p + 1)..k {
+                let (alpha, beta, gamma) = {
+                    let wp = &w[p * k..p * k + k];
+                    let wq = &w[q * k..q * k + k];
+                    (dot(wp, wp), dot(wq, wq), dot(wp, wq))
+                };
+                if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
+                    continue;
+                }
+                rotated = true;
+                let zeta = (beta - alpha) / (2.0 * gamma);
+                let t = zeta.signum() / (zeta.abs() + (1.0 + zeta * zeta).sqrt());
+                let c = 1.0 / (1.0 + t * t).sqrt();
+                let sn = c * t;
+                rotate(w, k, p, q, c, sn);
+                rotate(v, k, p, q, c, sn);
+            }
+        }
+        if !rotated {
+            break;
+        }
+    }
+    for (i, si) in s.iter_mut().enumerate().take(k) {
+        *si = norm2(&w[i * k..i * k + k]);
+    }
+}
+
+fn rotate(m: &mut [f64], k: usize, p: usize, q: usize, c: f64, s: f64) {
+    for i in 0..k {
+        let a = m[p * k + i];
+        let b = m[q * k + i];
+        m[p * k + i] = c * a - s * b;
+        m[q * k + i] = s * a + c * b;
+    }
+}
+
+/// Dot product.
+pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b.iter()).map(|(x, y)| x * y).sum()
+}
+
+/// Euclidean norm, scaled to avoid overflow and underflow.
+pub(crate) fn norm2(x: &[f64]) -> f64 {
+    let amax = x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    if amax == 0.0 || !amax.is_finite() {
+        return amax;
+    }
+    let s: f64 = x.iter().map(|v| (v / amax) * (v / amax)).sum();
+    amax * s.sqrt()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn qr_then_svd_reproduces_singular_values() {
+        // A = [[3, 0], [4, 5], [0, 0]] (column-major); A^T A = [[25, 20], [20, 25]]
+        // has eigenvalues 45 and 5 (mathematical identity), so s = sqrt(45), sqrt(5).
+        let n = 3;
+        let k = 2;
+        let mut a = vec![3.0, 4.0, 0.0, 0.0, 5.0, 0.0];
+        let mut rdiag = vec![0.0; k];
+        let mut beta = vec![0.0; k];
+        householder_qr(&mut a, n, k, &mut rdiag, &mut beta);
+        let mut w = vec![0.0; k * k];
+        extract_r(&a, n, k, &rdiag, &mut w);
+        let mut v = vec![0.0; k * k];
+        let mut s = vec![0.0; k];
+        jacobi_svd(&mut w, k, &mut v, &mut s);
+        s.sort_by(|x, y| y.partial_cmp(x).unwrap());
+        assert!((s[0] - 45f64.sqrt()).abs() < 1e-14);
+        assert!((s[1] - 5f64.sqrt()).abs() < 1e-14);
+        // Q^T b keeps the norm (orthogonality).
+        let mut b = vec![1.0, 2.0, 2.0];
+        apply_qt(&a, n, k, &beta, &mut b);
+        assert!((norm2(&b) - 3.0).abs() < 1e-14);
+    }
+}
