@@ -57,6 +57,13 @@
 //! the cycles (for a swap, the two names) of each permutation found, without
 //! repeats.
 //!
+//! **Same fit.** Two minima with the same chi-squared whose weighted model
+//! values agree (`sum_i ((f_a,i - f_b,i) / sigma_i)^2` within the chi-squared
+//! tolerance) are one minimum too: their parameters differ only along
+//! directions the data do not see (for instance the frequency and phase of a
+//! sinusoid whose amplitude sits on a bound at 0). They are merged like
+//! equivalent minima but list no permutation.
+//!
 //! **Distinguishable.** A minimum is distinguishable from the best when its
 //! delta chi-squared exceeds `u * q`, `q` the chi-squared quantile with one
 //! degree of freedom at `settings.level` (for 0.6827, q = 1). One degree of
@@ -445,13 +452,19 @@ fn find(parent: &mut [usize], mut i: usize) -> usize {
     i
 }
 
+/// Weighted model values `f(x_i; a) / sigma_i` at a parameter vector, None
+/// when the model is not finite there.
+pub type Predict<'a> = dyn Fn(&[f64]) -> Option<Vec<f64>> + 'a;
+
 /// Clusters the endpoints of `runs` into minima, merges equivalent ones and
 /// fills in every summary field (rules in the module documentation). Sets
-/// `runs[k].minimum`.
+/// `runs[k].minimum`. `predict` gives the weighted model values of an
+/// endpoint, for the same-fit rule.
 pub fn summarise(
     reference: &Reference,
     mut runs: Vec<StartRun>,
     box_bounds: Vec<[f64; 2]>,
+    predict: &Predict,
 ) -> MultistartResult {
     let usable = |r: &StartRun| r.converged && r.chi2.is_finite() && r.end.iter().all(|v| v.is_finite());
     let mut ok: Vec<usize> = (0..runs.len()).filter(|&k| usable(&runs[k])).collect();
@@ -504,6 +517,26 @@ pub fn summarise(
             if rules.permutation(&a.end, &b.end).is_some() {
                 let (ri, rj) = (find(&mut parent, i), find(&mut parent, j));
                 parent[rj.max(ri)] = ri.min(rj);
+            }
+        }
+    }
+    // Merge clusters that are the same fit: equal chi2 and equal weighted
+    // model values, parameters apart along a direction the data do not see.
+    let mut fitted: Vec<Option<Option<Vec<f64>>>> = vec![None; nc];
+    for i in 0..nc {
+        for j in i + 1..nc {
+            let (a, b) = (&runs[clusters[i][0]], &runs[clusters[j][0]]);
+            if find(&mut parent, i) == find(&mut parent, j) || !rules.chi2_close(a.chi2, b.chi2) {
+                continue;
+            }
+            let fa = fitted[i].get_or_insert_with(|| predict(&a.end)).clone();
+            let fb = fitted[j].get_or_insert_with(|| predict(&b.end)).clone();
+            if let (Some(fa), Some(fb)) = (fa, fb) {
+                let d2: f64 = fa.iter().zip(&fb).map(|(x, y)| (x - y) * (x - y)).sum();
+                if fa.len() == fb.len() && d2 <= rules.chi2_tol(a.chi2, b.chi2) {
+                    let (ri, rj) = (find(&mut parent, i), find(&mut parent, j));
+                    parent[rj.max(ri)] = ri.min(rj);
+                }
             }
         }
     }
@@ -635,5 +668,14 @@ pub fn run(ctx: &Fitted, progress: &dyn Progress) -> MultistartResult {
     progress.finish();
 
     let box_bounds = boxes.iter().map(|b| [b.low, b.high]).collect();
-    summarise(&Reference::from_fitted(ctx), runs, box_bounds)
+    let predict = |a: &[f64]| -> Option<Vec<f64>> {
+        let mut values = vec![0.0; n_points];
+        let mut scratch = Vec::new();
+        ctx.problem
+            .model
+            .eval(a, &x, &mut values, None, &mut scratch)
+            .ok()?;
+        Some(values.iter().zip(&sigma).map(|(f, s)| f / s).collect())
+    };
+    summarise(&Reference::from_fitted(ctx), runs, box_bounds, &predict)
 }
