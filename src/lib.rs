@@ -9,11 +9,14 @@
 #![warn(missing_docs)]
 
 pub mod audit;
+pub mod cli_support;
 pub mod data;
 pub mod demo;
 pub mod diagnostics;
 pub mod fit;
 pub mod model;
 pub mod output;
+pub mod report;
 pub mod rng;
 pub mod settings;
+pub mod study;

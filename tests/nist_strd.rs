@@ -12,7 +12,7 @@ mod nist;
 
 use fitaudit::data::Dataset;
 use fitaudit::fit::{fit_from, FitOptions, FitResult, Method, ParamSpec, Problem};
-use fitaudit::model::NativeModel;
+use fitaudit::model::{compile, ModelFn, NativeModel, Symbols};
 use nist::{lre, NistModel, NistProblem};
 use std::fmt::Write as _;
 
@@ -29,8 +29,11 @@ All 27 problems of the NIST Statistical Reference Datasets for nonlinear
 regression (NIST ITL), each from both certified starting points, unweighted
 (sigma = 1, covariance scaled by chi2/dof, as NIST's certified standard
 deviations are defined), with the default `FitOptions` (Levenberg-Marquardt,
-tolerances 1e-15, 1000 iterations) through `fit_from`. The models are native
-closures with analytic derivatives (tests/common/nist.rs).
+tolerances 1e-15, 1000 iterations) through `fit_from`. Each model is the
+formula string compiled by `model::compile` (exact derivatives from the
+tape); the last columns repeat the run with hand-written closures with
+analytic derivatives (tests/common/nist.rs) as a cross-check, and a run
+passes only when both do.
 
 Score: log relative error LRE = -log10(|estimate - certified| / |certified|),
 capped at 11. Acceptance: every parameter LRE >= 6, every standard-error
@@ -54,6 +57,8 @@ struct Run {
     problem: String,
     start: usize,
     lre_param: f64,
+    lre_param_native: f64,
+    iterations_native: usize,
     lre_sd: f64,
     lre_rss: f64,
     iterations: usize,
@@ -65,6 +70,7 @@ struct Run {
 impl Run {
     fn passes(&self) -> bool {
         self.lre_param >= MIN_LRE_PARAM
+            && self.lre_param_native >= MIN_LRE_PARAM
             && (!self.sd_checked || self.lre_sd >= MIN_LRE_SD)
             && (!self.rss_checked || self.lre_rss >= MIN_LRE_RSS)
     }
@@ -90,10 +96,33 @@ fn dataset(p: &NistProblem, m: &NistModel) -> Dataset {
     }
 }
 
-fn run_fit(p: &NistProblem, m: &NistModel, start: &[f64], options: FitOptions) -> FitResult {
-    let model = NativeModel::new(m.n_params, m.f);
+/// Which implementation of the model a run uses.
+#[derive(Clone, Copy, PartialEq)]
+enum Impl {
+    /// The formula compiled by `model::compile`.
+    Compiled,
+    /// The hand-written closure of tests/common/nist.rs.
+    Native,
+}
+
+fn run_fit(p: &NistProblem, m: &NistModel, start: &[f64], options: FitOptions, which: Impl) -> FitResult {
+    let data = dataset(p, m);
+    let native = NativeModel::new(m.n_params, m.f);
+    let tape;
+    let model: &dyn ModelFn = match which {
+        Impl::Native => &native,
+        Impl::Compiled => {
+            let syms = Symbols {
+                parameters: &p.params,
+                constants: &[],
+                variables: &data.x_names,
+            };
+            tape = compile(m.formula, &syms).unwrap_or_else(|e| panic!("{}: {e}", m.name));
+            &tape
+        }
+    };
     let problem = Problem {
-        model: &model,
+        model,
         params: p
             .params
             .iter()
@@ -102,7 +131,6 @@ fn run_fit(p: &NistProblem, m: &NistModel, start: &[f64], options: FitOptions) -
             .collect(),
         options,
     };
-    let data = dataset(p, m);
     match fit_from(&problem, &data, start) {
         Ok(r) => r,
         Err(e) => panic!("{} from {:?}: {e}", p.name, start),
@@ -156,12 +184,16 @@ fn nist_strd_all_problems_both_starts() {
     for m in nist::models() {
         let p = load(&m);
         for s in 0..2 {
-            let r = run_fit(&p, &m, &p.starts[s], FitOptions::default());
+            let r = run_fit(&p, &m, &p.starts[s], FitOptions::default(), Impl::Compiled);
             let (lp, ls, lr) = score(&p, &r);
+            let rn = run_fit(&p, &m, &p.starts[s], FitOptions::default(), Impl::Native);
+            let (lpn, _, _) = score(&p, &rn);
             runs.push(Run {
                 problem: p.name.clone(),
                 start: s + 1,
                 lre_param: lp,
+                lre_param_native: lpn,
+                iterations_native: rn.iterations,
                 lre_sd: ls,
                 lre_rss: lr,
                 iterations: r.iterations,
@@ -182,13 +214,13 @@ fn nist_strd_all_problems_both_starts() {
     for (name, s) in sd_cases {
         let m = nist::models().into_iter().find(|m| m.name == name).unwrap();
         let p = load(&m);
-        let lm = run_fit(&p, &m, &p.starts[s], FitOptions::default());
+        let lm = run_fit(&p, &m, &p.starts[s], FitOptions::default(), Impl::Compiled);
         let opts = FitOptions {
             method: Method::Steepest,
             max_iterations: 100_000,
             ..FitOptions::default()
         };
-        let sd = run_fit(&p, &m, &p.starts[s], opts);
+        let sd = run_fit(&p, &m, &p.starts[s], opts, Impl::Compiled);
         sd_rows.push((
             name,
             s + 1,
@@ -203,14 +235,14 @@ fn nist_strd_all_problems_both_starts() {
     let mut table = String::new();
     writeln!(
         table,
-        "| problem | start | min LRE params | min LRE std errors | LRE RSS | iterations | pass |"
+        "| problem | start | min LRE params | min LRE std errors | LRE RSS | iterations | min LRE params (native) | iterations (native) | pass |"
     )
     .unwrap();
-    writeln!(table, "|---|---|---|---|---|---|---|").unwrap();
+    writeln!(table, "|---|---|---|---|---|---|---|---|---|").unwrap();
     for r in &runs {
         writeln!(
             table,
-            "| {} | {} | {:.1} | {} | {} | {} | {} |",
+            "| {} | {} | {:.1} | {} | {} | {} | {:.1} | {} | {} |",
             r.problem,
             r.start,
             r.lre_param,
@@ -225,6 +257,8 @@ fn nist_strd_all_problems_both_starts() {
                 format!("({:.1})", r.lre_rss)
             },
             r.iterations,
+            r.lre_param_native,
+            r.iterations_native,
             if r.passes() { "yes" } else { "NO" },
         )
         .unwrap();
