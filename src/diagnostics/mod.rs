@@ -16,6 +16,7 @@ pub mod profile;
 mod profile_scan;
 pub mod resample;
 pub mod roots;
+pub mod sampling;
 pub mod verdict;
 
 /// A problem together with its base fit: the input of every diagnostic.
