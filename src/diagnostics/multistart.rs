@@ -529,10 +529,13 @@ pub fn summarise(
             if find(&mut parent, i) == find(&mut parent, j) || !rules.chi2_close(a.chi2, b.chi2) {
                 continue;
             }
-            let fa = fitted[i].get_or_insert_with(|| predict(&a.end)).clone();
-            let fb = fitted[j].get_or_insert_with(|| predict(&b.end)).clone();
-            if let (Some(fa), Some(fb)) = (fa, fb) {
-                let d2: f64 = fa.iter().zip(&fb).map(|(x, y)| (x - y) * (x - y)).sum();
+            for (c, r) in [(i, a), (j, b)] {
+                if fitted[c].is_none() {
+                    fitted[c] = Some(predict(&r.end));
+                }
+            }
+            if let (Some(Some(fa)), Some(Some(fb))) = (&fitted[i], &fitted[j]) {
+                let d2: f64 = fa.iter().zip(fb).map(|(x, y)| (x - y) * (x - y)).sum();
                 if fa.len() == fb.len() && d2 <= rules.chi2_tol(a.chi2, b.chi2) {
                     let (ri, rj) = (find(&mut parent, i), find(&mut parent, j));
                     parent[rj.max(ri)] = ri.min(rj);
