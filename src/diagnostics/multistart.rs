@@ -173,7 +173,7 @@ pub const BOX_MIN_HALF_WIDTH: f64 = 1.0;
 /// Decades sampled at the top of a positive box that starts at zero.
 pub const LOG_ZERO_DECADES: i32 = 3;
 /// Backtracking steps allowed when matching two minima by a permutation.
-const PERMUTATION_BUDGET: usize = 200_000;
+const PERMUTATION_BUDGET: usize = 20_000;
 
 /// The sampling range of one parameter (rules in the module documentation).
 ///
