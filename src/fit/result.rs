@@ -191,6 +191,7 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     let mut rf = Refitter::new(problem, data.len());
     let mut total = rf.refit(problem, &view, start, &free);
     let mut current = rf.params().to_vec();
+    let mut holds_current = true;
     for _ in 0..MAX_RESTARTS {
         if total.stop == StopReason::Gradient || total.stop == StopReason::NonFinite {
             break;
@@ -199,13 +200,14 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
         let again = rf.refit(problem, &view, &current, &free);
         total.iterations += again.iterations;
         total.evaluations += again.evaluations;
-        if again.chi2 <= before {
+        holds_current = again.chi2 <= before;
+        if holds_current {
             current.copy_from_slice(rf.params());
             total.chi2 = again.chi2;
             total.stop = again.stop;
             total.converged = again.converged;
         }
-        let improved = again.chi2 < before * (1.0 - 4.0 * f64::EPSILON);
+        let improved = again.chi2 < before - rf.chi2_noise(&data.y);
         if !improved {
             // No progress from a fresh start: the endpoint is the answer; it
             // counts as converged unless the last run hit the cap without
@@ -214,6 +216,25 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
                 total.converged = true;
             }
             break;
+        }
+    }
+    if total.converged && problem.options.method == super::Method::Lm {
+        // Refine the best endpoint (back into the workspace first when the
+        // last restart ended elsewhere).
+        let mut ok = true;
+        if !holds_current {
+            let again = rf.refit(problem, &view, &current, &free);
+            total.iterations += again.iterations;
+            total.evaluations += again.evaluations;
+            ok = again.chi2 <= total.chi2 + rf.chi2_noise(&data.y);
+        }
+        if ok {
+            let before = rf.evaluations;
+            let (steps, chi2) = super::lm::polish(&mut rf, problem, &view);
+            total.iterations += steps;
+            total.evaluations += rf.evaluations - before;
+            current.copy_from_slice(rf.params());
+            total.chi2 = chi2;
         }
     }
     analyse(problem, data, &current, &total)
