@@ -359,3 +359,97 @@ fn bad_input_is_an_error() {
         Err(FitError::InvalidSigma { point: 1, .. })
     ));
 }
+
+#[test]
+fn iteration_cap_is_reported_as_not_converged() {
+    // Exponential decay y = 5 exp(-0.3 x) sampled exactly; one iteration
+    // from far away cannot reach it.
+    let x: Vec<f64> = (0..12).map(|i| i as f64).collect();
+    let y: Vec<f64> = x.iter().map(|x| 5.0 * (-0.3 * x).exp()).collect();
+    let data = Dataset::single("x", x, "y", y, None);
+    let model = NativeModel::new(2, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        let e = (-p[1] * x[0]).exp();
+        g[0] = e;
+        g[1] = -p[0] * x[0] * e;
+        p[0] * e
+    });
+    let capped = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 1.0), ParamSpec::free("k", 1.0)],
+        options: FitOptions {
+            max_iterations: 1,
+            ..FitOptions::default()
+        },
+    };
+    let r = fit(&capped, &data).unwrap();
+    assert!(!r.converged);
+    assert_eq!(r.stop_reason, StopReason::IterationLimit);
+    // With the default cap it converges onto the generating values
+    // (identity for exact data).
+    let free = Problem {
+        model: &model,
+        params: capped.params.clone(),
+        options: FitOptions::default(),
+    };
+    let r = fit(&free, &data).unwrap();
+    assert!(r.converged);
+    assert!(rel(r.parameters[0].value, 5.0) < 1e-10);
+    assert!(rel(r.parameters[1].value, 0.3) < 1e-10);
+    // Zero residuals with no sigma: scaled covariance is zero, never NaN.
+    assert!(r.covariance_scaled);
+    assert!(r
+        .parameters
+        .iter()
+        .all(|p| p.std_error.map(|s| s.is_finite()).unwrap_or(false)));
+    assert!(r.correlation.iter().flatten().all(|v| v.is_finite()));
+}
+
+#[test]
+fn a_model_finite_only_at_the_start_stops_as_non_finite() {
+    // Not finite for any a other than 1: no step can avoid it.
+    let data = line_data();
+    let model = NativeModel::new(1, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        g[0] = x[0];
+        if p[0] == 1.0 {
+            x[0]
+        } else {
+            f64::NAN
+        }
+    });
+    let problem = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 1.0)],
+        options: FitOptions::default(),
+    };
+    let r = fit(&problem, &data).unwrap();
+    assert!(!r.converged);
+    assert_eq!(r.stop_reason, StopReason::NonFinite);
+    assert_eq!(r.parameters[0].value, 1.0);
+}
+
+#[test]
+fn geodesic_acceleration_reaches_the_same_line() {
+    let data = line_data();
+    let model = line_model();
+    let mk = |geodesic| Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 0.0), ParamSpec::free("b", 1.0)],
+        options: FitOptions {
+            geodesic,
+            ..FitOptions::default()
+        },
+    };
+    let plain = fit(&mk(false), &data).unwrap();
+    let geo = fit(&mk(true), &data).unwrap();
+    assert!(geo.converged);
+    for (a, b) in plain.parameters.iter().zip(geo.parameters.iter()) {
+        assert!(rel(a.value, b.value) < 1e-12);
+    }
+}
+
+#[test]
+fn refitter_is_send() {
+    fn assert_send<T: Send + Sync>() {}
+    assert_send::<Refitter>();
+    assert_send::<fitaudit::fit::FitResult>();
+}

@@ -24,6 +24,10 @@ const EPS: f64 = f64::EPSILON;
 /// a parameter onto a plateau where the model no longer depends on it).
 const INITIAL_RADIUS: f64 = 1.0;
 
+/// Steps taken below the rounding noise of chi2 before the run stops (the
+/// full fit refines further with [`polish`]).
+const NOISE_STEPS: usize = 1;
+
 /// Relative singular-value cut for the Gauss-Newton step (lambda = 0).
 const GN_RANK_CUT: f64 = 1e-14;
 
@@ -198,7 +202,7 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
                 // Stop once steps below the noise of chi2 no longer contract
                 // (or after a few of them): chi2 cannot resolve more.
                 noise_steps += 1;
-                if noise_steps >= 4 || (noise_steps >= 2 && dnorm > 0.5 * last_noise_dnorm) {
+                if noise_steps >= NOISE_STEPS || (noise_steps >= 2 && dnorm > 0.5 * last_noise_dnorm) {
                     return finish(rf, chi2, true, StopReason::ChiSquaredChange, iterations);
                 }
                 last_noise_dnorm = dnorm;

@@ -111,8 +111,6 @@ impl Refitter {
             evaluations: 0,
         };
         r.resize(n_points, m);
-        // Let the model size its scratch once, here, with a throw-away
-        // evaluation at the starts when the sizes are known to be consistent.
         r
     }
 

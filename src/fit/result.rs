@@ -353,6 +353,11 @@ pub fn analyse(
         &mut scratch,
     )
     .map_err(|e| FitError::NotFinite { point: e.point })?;
+    if let Some(idx) = jac.iter().position(|v| !v.is_finite()) {
+        return Err(FitError::NotFinite {
+            point: idx % n.max(1),
+        });
+    }
 
     let at_bound: Vec<bool> = problem
         .params
