@@ -35,6 +35,13 @@ tape). A second table repeats every run with the hand-written closures with
 analytic derivatives of tests/common/nist.rs (cross-check of the compiler),
 and with geodesic acceleration switched on (`FitOptions.geodesic`).
 
+`fit_from` applies one generic strategy to every problem (no per-problem
+settings): Levenberg-Marquardt with More's scaling and an initial trust
+radius of |D a0|; when a run stops for any reason but a small gradient it is
+restarted from its endpoint (fresh scaling and radius) while that still
+lowers chi2 beyond its rounding noise (at most 8 restarts); a converged fit
+ends with undamped Gauss-Newton refinement steps while they contract.
+
 Score: log relative error LRE = -log10(|estimate - certified| / |certified|),
 capped at 11. Acceptance: every parameter LRE >= 6, every standard-error
 LRE >= 4, RSS LRE >= 6 (Lanczos1: parameters and standard errors only, its
