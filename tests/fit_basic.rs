@@ -453,3 +453,106 @@ fn refitter_is_send() {
     assert_send::<Refitter>();
     assert_send::<fitaudit::fit::FitResult>();
 }
+
+#[test]
+fn partial_rank_deficiency_keeps_the_determined_parameter() {
+    // f = a*b*x + c: a and b only determined through a*b, while c is the
+    // intercept of the weighted straight line, with variance Sxx/D
+    // (Bevington & Robinson ch. 6, as above); the variance of an estimable
+    // parameter does not depend on the other parameters' parametrisation.
+    let data = line_data();
+    let model = NativeModel::new(3, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        g[0] = p[1] * x[0];
+        g[1] = p[0] * x[0];
+        g[2] = 1.0;
+        p[0] * p[1] * x[0] + p[2]
+    });
+    let problem = Problem {
+        model: &model,
+        params: vec![
+            ParamSpec::free("a", 1.0),
+            ParamSpec::free("b", 1.0),
+            ParamSpec::free("c", 0.0),
+        ],
+        options: FitOptions::default(),
+    };
+    let r = fit(&problem, &data).unwrap();
+    let s = data.sigma.as_ref().unwrap();
+    let (mut sw, mut sx, mut sy, mut sxx, mut sxy) = (0.0, 0.0, 0.0, 0.0, 0.0);
+    for i in 0..data.len() {
+        let w = 1.0 / (s[i] * s[i]);
+        let (x, y) = (data.x[0][i], data.y[i]);
+        sw += w;
+        sx += w * x;
+        sy += w * y;
+        sxx += w * x * x;
+        sxy += w * x * y;
+    }
+    let d = sw * sxx - sx * sx;
+    assert_eq!(r.rank, 2);
+    assert_eq!(r.undetermined.len(), 1);
+    let names: Vec<&str> = r.undetermined[0].iter().map(|(n, _)| n.as_str()).collect();
+    assert_eq!(names, vec!["a", "b"]);
+    assert_eq!(r.parameters[0].std_error, None);
+    assert_eq!(r.parameters[1].std_error, None);
+    assert!(rel(r.parameters[2].value, (sxx * sy - sx * sxy) / d) < 1e-10);
+    assert!(rel(r.parameters[2].std_error.unwrap(), (sxx / d).sqrt()) < 1e-8);
+    assert!(
+        rel(
+            r.parameters[0].value * r.parameters[1].value,
+            (sw * sxy - sx * sy) / d
+        ) < 1e-10
+    );
+    assert_eq!(r.correlation[2][2], 1.0);
+    assert_eq!(r.correlation[0][0], 0.0);
+}
+
+#[test]
+fn refitter_handles_a_different_number_of_points_and_clamps_starts() {
+    let data = line_data();
+    let model = line_model();
+    let mut b = ParamSpec::free("b", 1.0);
+    b.max = 1.5;
+    let problem = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 0.0), b],
+        options: FitOptions::default(),
+    };
+    let mut rf = Refitter::new(&problem, 3);
+    let sigma = data.sigma_or_ones();
+    let xs = data.x_slices();
+    let view = DataView {
+        x: &xs,
+        y: &data.y,
+        sigma: &sigma,
+    };
+    // The data rise with slope about 2, so b ends on its upper bound; a start
+    // above the bound is moved onto it.
+    let r = rf.refit(&problem, &view, &[0.0, 3.0], &[true, true]);
+    assert!(r.converged);
+    assert_eq!(rf.params()[1], 1.5);
+    // a is then the weighted mean of y - 1.5 x (identity).
+    let (mut sw, mut swr) = (0.0, 0.0);
+    for i in 0..data.len() {
+        let w = 1.0 / (sigma[i] * sigma[i]);
+        sw += w;
+        swr += w * (data.y[i] - 1.5 * data.x[0][i]);
+    }
+    assert!(rel(rf.params()[0], swr / sw) < 1e-12);
+    // fit() refuses a start outside the bounds, naming the parameter.
+    let outside = Problem {
+        model: &model,
+        params: vec![
+            ParamSpec::free("a", 0.0),
+            ParamSpec {
+                start: 3.0,
+                ..problem.params[1].clone()
+            },
+        ],
+        options: FitOptions::default(),
+    };
+    match fit(&outside, &data) {
+        Err(FitError::InvalidStart { name, .. }) => assert_eq!(name, "b"),
+        other => panic!("{other:?}"),
+    }
+}
