@@ -153,14 +153,19 @@ pub fn fit(problem: &Problem, data: &Dataset) -> Result<FitResult, FitError> {
 }
 
 /// Most restarts of the optimiser from its own endpoint in a full fit.
-const MAX_RESTARTS: usize = 8;
+pub const MAX_RESTARTS: usize = 8;
 
 /// Full fit from a given start (same as [`fit`] otherwise).
 ///
 /// Strategy (generic, the same for every problem): run the optimiser; while
 /// it stopped for any reason other than a small gradient and the last run
-/// still lowered chi2, restart it from its endpoint (fresh scaling and
-/// trust region), at most [`MAX_RESTARTS`] times.
+/// still lowered chi2 by more than its rounding noise, restart it from its
+/// endpoint (fresh scaling and trust region), at most [`MAX_RESTARTS`]
+/// times. A converged Levenberg-Marquardt fit then takes undamped
+/// Gauss-Newton steps while they contract, which resolves the minimiser
+/// more finely than chi2 itself can. Errors: bad lengths, non-finite data,
+/// sigma not positive, bounds not an interval, a start outside its bounds,
+/// fewer points than free parameters, a model not finite at the start.
 pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitResult, FitError> {
     check(problem, data, start)?;
     let sigma = data.sigma_or_ones();
