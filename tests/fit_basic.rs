@@ -556,3 +556,45 @@ fn refitter_handles_a_different_number_of_points_and_clamps_starts() {
         other => panic!("{other:?}"),
     }
 }
+
+#[test]
+fn nonlinear_parameter_converges_onto_its_bound() {
+    // y = 5 exp(-0.3 x) exactly, fitted with k >= 0.4: the constrained
+    // minimum has k = 0.4 on the bound and the linear a = sum(y e)/sum(e^2)
+    // with e = exp(-0.4 x) (least-squares identity for a linear parameter).
+    let x: Vec<f64> = (0..15).map(|i| i as f64 * 0.5).collect();
+    let y: Vec<f64> = x.iter().map(|x| 5.0 * (-0.3 * x).exp()).collect();
+    let data = Dataset::single("x", x.clone(), "y", y.clone(), None);
+    let model = NativeModel::new(2, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        let e = (-p[1] * x[0]).exp();
+        g[0] = e;
+        g[1] = -p[0] * x[0] * e;
+        p[0] * e
+    });
+    let mut k = ParamSpec::free("k", 1.0);
+    k.min = 0.4;
+    for method in [Method::Lm, Method::Steepest] {
+        let problem = Problem {
+            model: &model,
+            params: vec![ParamSpec::free("a", 1.0), k.clone()],
+            options: FitOptions {
+                method,
+                max_iterations: 100_000,
+                ..FitOptions::default()
+            },
+        };
+        let r = fit(&problem, &data).unwrap();
+        let (mut sye, mut see) = (0.0, 0.0);
+        for (xi, yi) in x.iter().zip(y.iter()) {
+            let e = (-0.4 * xi).exp();
+            sye += yi * e;
+            see += e * e;
+        }
+        assert!(r.converged, "{method:?} {:?}", r.stop_reason);
+        assert_eq!(r.parameters[1].value, 0.4, "{method:?}");
+        assert!(r.parameters[1].at_bound);
+        assert!(rel(r.parameters[0].value, sye / see) < 1e-8, "{method:?}");
+        assert!(r.parameters[0].std_error.is_some());
+        assert_eq!(r.parameters[1].std_error, None);
+    }
+}
