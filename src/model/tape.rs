@@ -531,6 +531,7 @@ macro_rules! bin_kernel {
             Bin::Atan2 => $kern($d, $a, $b, f64::atan2),
             Bin::Min => $kern($d, $a, $b, ops::min),
             Bin::Max => $kern($d, $a, $b, ops::max),
+            Bin::MulZ => $kern($d, $a, $b, ops::mul_z),
         }
     };
 }
