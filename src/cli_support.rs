@@ -16,6 +16,7 @@ pub fn classify(err: &anyhow::Error) -> u8 {
             || cause.is::<crate::model::ModelError>()
             || cause.is::<crate::fit::FitError>()
             || cause.is::<crate::audit::AuditError>()
+            || cause.is::<crate::demo::DemoError>()
         {
             return 2;
         }

@@ -157,6 +157,9 @@ pub enum DemoError {
         /// Why.
         source: Box<crate::study::StudyError>,
     },
+    /// An output folder cannot be written.
+    #[error(transparent)]
+    Output(#[from] crate::output::OutputError),
     /// The audit failed.
     #[error(transparent)]
     Audit(#[from] crate::audit::AuditError),
@@ -192,6 +195,9 @@ pub fn run_all(
     let work = std::env::temp_dir().join(format!("fitaudit-demo-{}", std::process::id()));
     let mut scenarios = Vec::new();
     let result = (|| {
+        for sc in &SCENARIOS {
+            crate::output::preflight(&scenario_folder(out, sc.name))?;
+        }
         for sc in &SCENARIOS {
             let study = load_scenario(sc, &work)?;
             let options = crate::audit::AuditOptions {

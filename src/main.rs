@@ -36,7 +36,8 @@ enum Command {
         /// Print the fit result as JSON on stdout.
         #[arg(long)]
         json: bool,
-        /// Minimisation method (overrides the study's [fit] method).
+        /// Minimisation method (overrides the study's [fit] method). With
+        /// `steepest` the iteration cap is at least 100000.
         #[arg(long, value_enum)]
         method: Option<MethodArg>,
     },
@@ -106,6 +107,9 @@ enum MethodArg {
     Steepest,
 }
 
+/// Iteration cap of steepest descent chosen on the command line.
+const STEEPEST_MIN_ITERATIONS: usize = 100_000;
+
 fn parse_diagnostic(s: &str) -> Result<Diagnostic, String> {
     Diagnostic::ALL
         .into_iter()
@@ -149,6 +153,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     MethodArg::Lm => Method::Lm,
                     MethodArg::Steepest => Method::Steepest,
                 };
+                if study.fit_options.method == Method::Steepest {
+                    // The simple method needs far more, far cheaper iterations.
+                    study.fit_options.max_iterations =
+                        study.fit_options.max_iterations.max(STEEPEST_MIN_ITERATIONS);
+                }
             }
             let fit = fitaudit::fit::fit(&study.problem(), &study.dataset)?;
             if json {
@@ -205,7 +214,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         .out
         .clone()
         .unwrap_or_else(|| Path::new("out").join(&study.name));
-    fitaudit::output::check_destination(&out)?;
+    fitaudit::output::preflight(&out)?;
     let options = AuditOptions {
         only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
         command_line: command_line(),

@@ -215,7 +215,7 @@ fn cases() -> Vec<Case> {
             csv: None,
             args: AUDIT,
             code: 2,
-            expect: &["time", "t, y, u"],
+            expect: &["time", "`t`, `y`, `u`"],
         },
         Case {
             name: "sigma not positive",

@@ -277,4 +277,75 @@ fn nist_misra1a_as_a_study_loads_the_reference_data() {
     let e = (-1e-4f64 * 77.6).exp();
     assert!((v[0] - 500.0 * (1.0 - e)).abs() < 1e-12);
     assert!((j[14] - 500.0 * 77.6 * e).abs() < 1e-9);
+
+    // End to end: the study's problem fitted from NIST Start 1 reaches the
+    // NIST StRD Misra1a certified values (no sigma: scaled covariance).
+    let r = fitaudit::fit::fit(&s.problem(), &s.dataset).unwrap();
+    assert!(r.converged);
+    let close = |got: f64, want: f64| (got - want).abs() <= 1e-6 * want.abs();
+    // NIST StRD Misra1a certified values.
+    assert!(
+        close(r.parameters[0].value, 2.3894212918e2),
+        "{}",
+        r.parameters[0].value
+    );
+    assert!(
+        close(r.parameters[1].value, 5.5015643181e-4),
+        "{}",
+        r.parameters[1].value
+    );
+    assert!(close(r.parameters[0].std_error.unwrap(), 2.7070075241e0));
+    assert!(close(r.parameters[1].std_error.unwrap(), 7.2668688436e-6));
+    assert!(close(r.chi2, 1.2455138894e-1), "{}", r.chi2);
+}
+
+#[test]
+fn a_model_without_x_columns_is_a_weighted_mean() {
+    // y = mu with sigma: the weighted mean (common practice); x = [] names no column.
+    let text = "[data]\nfile = \"cooling.csv\"\nx = []\ny = \"temp\"\nsigma = \"u\"\n[model]\nformula = \"mu\"\n[parameters]\nmu = { start = 50 }\n";
+    let (_c, r) = load(text, CSV);
+    let s = r.unwrap();
+    assert!(s.dataset.x.is_empty());
+    let f = fitaudit::fit::fit(&s.problem(), &s.dataset).unwrap();
+    // Weighted mean sum(y/s^2)/sum(1/s^2), computed here from the same numbers.
+    let (y, u) = (&s.dataset.y, s.dataset.sigma.as_ref().unwrap());
+    let w: f64 = u.iter().map(|s| 1.0 / (s * s)).sum();
+    let m: f64 = y.iter().zip(u).map(|(y, s)| y / (s * s)).sum::<f64>() / w;
+    assert!((f.parameters[0].value - m).abs() < 1e-9 * m.abs());
+}
+
+#[test]
+fn read_csv_reads_every_column_as_numbers() {
+    let c = case_bytes("", CSV.as_bytes());
+    let t = study::read_csv(&c.data).unwrap();
+    assert_eq!(t.headers, ["t", "temp", "u"]);
+    assert_eq!(t.column("u"), Some(&[0.2, 0.2, 0.3, 0.2, 0.25][..]));
+    assert_eq!(t.lines, vec![3, 4, 5, 6, 7]);
+    // Unlike a study, which reads only the columns it uses, read_csv wants all numeric.
+    std::fs::write(&c.data, "t,note\n1,a\n").unwrap();
+    let e = study::read_csv(&c.data).unwrap_err().to_string();
+    has(
+        &e,
+        &[
+            "cooling.csv, line 2, column 2",
+            "`a` in column 2 (`note`) is not a number",
+        ],
+    );
+}
+
+#[test]
+fn a_spec_written_back_as_toml_reads_the_same() {
+    let text = format!(
+        "{STUDY}bootstrap = {{ replicates = 300 }}\n[fit]\nmethod = \"steepest\"\n[constants]\nk = 2.5\n"
+    );
+    let a = StudySpec::from_toml_str(&text, std::path::Path::new("a.toml")).unwrap();
+    let written = toml::to_string(&a).unwrap();
+    let b = StudySpec::from_toml_str(&written, std::path::Path::new("a.toml")).unwrap();
+    assert_eq!(a.title, b.title);
+    assert_eq!(a.data, b.data);
+    assert_eq!(a.model, b.model);
+    assert_eq!(a.parameters, b.parameters);
+    assert_eq!(a.constants, b.constants);
+    assert_eq!(a.audit, b.audit);
+    assert_eq!(a.fit, b.fit);
 }

@@ -28,9 +28,7 @@ pub(crate) fn householder_qr(a: &mut [f64], n: usize, k: usize, rdiag: &mut [f64
         for c in 0..(k - j - 1) {
             let other = &mut right[c * n + j..c * n + n];
             let s = b * dot(x, other);
-            for (o, v) in other.iter_mut().zip(x.iter()) {
-                *o -= s * v;
-            }
+            axpy(-s, x, other);
         }
     }
 }
@@ -44,9 +42,7 @@ pub(crate) fn apply_qt(a: &[f64], n: usize, k: usize, beta: &[f64], r: &mut [f64
         let v = &a[j * n + j..j * n + n];
         let rr = &mut r[j..n];
         let s = beta[j] * dot(v, rr);
-        for (o, x) in rr.iter_mut().zip(v.iter()) {
-            *o -= s * x;
-        }
+        axpy(-s, v, rr);
     }
 }
 
@@ -76,15 +72,18 @@ pub(crate) fn jacobi_svd(w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64]) 
             v[j * k + i] = if i == j { 1.0 } else { 0.0 };
         }
     }
+    for (i, si) in s.iter_mut().enumerate().take(k) {
+        let c = &w[i * k..i * k + k];
+        *si = dot(c, c);
+    }
+    // s holds the squared column norms during the sweeps, updated by the
+    // exact formulas of the rotation and refreshed after every sweep.
     for _sweep in 0..80 {
         let mut rotated = false;
         for p in 0..k {
             for q in (p + 1)..k {
-                let (alpha, beta, gamma) = {
-                    let wp = &w[p * k..p * k + k];
-                    let wq = &w[q * k..q * k + k];
-                    (dot(wp, wp), dot(wq, wq), dot(wp, wq))
-                };
+                let (alpha, beta) = (s[p], s[q]);
+                let gamma = dot(&w[p * k..p * k + k], &w[q * k..q * k + k]);
                 if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
                     continue;
                 }
@@ -95,14 +94,20 @@ pub(crate) fn jacobi_svd(w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64]) 
                 let sn = c * t;
                 rotate(w, k, p, q, c, sn);
                 rotate(v, k, p, q, c, sn);
+                s[p] = alpha - t * gamma;
+                s[q] = beta + t * gamma;
             }
+        }
+        for (i, si) in s.iter_mut().enumerate().take(k) {
+            let c = &w[i * k..i * k + k];
+            *si = dot(c, c);
         }
         if !rotated {
             break;
         }
     }
-    for (i, si) in s.iter_mut().enumerate().take(k) {
-        *si = norm2(&w[i * k..i * k + k]);
+    for si in s.iter_mut().take(k) {
+        *si = si.sqrt();
     }
 }
 
@@ -115,18 +120,48 @@ fn rotate(m: &mut [f64], k: usize, p: usize, q: usize, c: f64, s: f64) {
     }
 }
 
-/// Dot product.
+/// Dot product (four partial sums, so that the loop is not bound by the
+/// latency of one chain of additions).
 pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b.iter()).map(|(x, y)| x * y).sum()
+    let n = a.len().min(b.len());
+    let (a, b) = (&a[..n], &b[..n]);
+    let mut acc = [0.0f64; 4];
+    let ca = a.chunks_exact(4);
+    let cb = b.chunks_exact(4);
+    let (ra, rb) = (ca.remainder(), cb.remainder());
+    for (x, y) in ca.zip(cb) {
+        acc[0] += x[0] * y[0];
+        acc[1] += x[1] * y[1];
+        acc[2] += x[2] * y[2];
+        acc[3] += x[3] * y[3];
+    }
+    let mut tail = 0.0;
+    for (x, y) in ra.iter().zip(rb.iter()) {
+        tail += x * y;
+    }
+    (acc[0] + acc[1]) + (acc[2] + acc[3]) + tail
 }
 
-/// Euclidean norm, scaled to avoid overflow and underflow.
+/// `y += alpha * x`.
+pub(crate) fn axpy(alpha: f64, x: &[f64], y: &mut [f64]) {
+    for (o, v) in y.iter_mut().zip(x.iter()) {
+        *o += alpha * v;
+    }
+}
+
+/// Euclidean norm: the plain sum of squares when it is safely inside the
+/// floating-point range, else a rescaled sum (no overflow or underflow).
 pub(crate) fn norm2(x: &[f64]) -> f64 {
+    let s = dot(x, x);
+    if s > 1e-280 && s < 1e280 {
+        return s.sqrt();
+    }
     let amax = x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     if amax == 0.0 || !amax.is_finite() {
         return amax;
     }
-    let s: f64 = x.iter().map(|v| (v / amax) * (v / amax)).sum();
+    let inv = 1.0 / amax;
+    let s: f64 = x.iter().map(|v| (v * inv) * (v * inv)).sum();
     amax * s.sqrt()
 }
 

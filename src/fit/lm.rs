@@ -77,10 +77,10 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
         // QR of the scaled active columns, then SVD of R.
         let k = rf.active.len();
         for (c, &j) in rf.active.iter().enumerate() {
-            let dj = rf.diag[j];
+            let inv = 1.0 / rf.diag[j];
             let (src, dst) = (&rf.jac[j * n..(j + 1) * n], &mut rf.qr[c * n..(c + 1) * n]);
             for (o, v) in dst.iter_mut().zip(src.iter()) {
-                *o = v / dj;
+                *o = v * inv;
             }
         }
         householder_qr(&mut rf.qr, n, k, &mut rf.rdiag, &mut rf.beta);

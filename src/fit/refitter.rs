@@ -62,6 +62,8 @@ pub struct Refitter {
     pub(crate) colnorm: Vec<f64>,
     /// `J d` (n).
     pub(crate) jd: Vec<f64>,
+    /// `1 / sigma` of the current data (n).
+    pub(crate) inv_sigma: Vec<f64>,
     /// The model's scratch buffer.
     pub(crate) scratch: Vec<f64>,
     /// Evaluations in the current refit.
@@ -104,6 +106,7 @@ impl Refitter {
             grad: Vec::new(),
             colnorm: Vec::new(),
             jd: Vec::new(),
+            inv_sigma: Vec::new(),
             scratch: Vec::new(),
             evaluations: 0,
         };
@@ -133,6 +136,7 @@ impl Refitter {
             &mut self.qtr,
             &mut self.rpp,
             &mut self.jd,
+            &mut self.inv_sigma,
         ] {
             b.resize(n, 0.0);
         }
@@ -198,6 +202,9 @@ impl Refitter {
             };
         }
         self.resize(n, m);
+        for (o, s) in self.inv_sigma.iter_mut().zip(data.sigma.iter()) {
+            *o = 1.0 / s;
+        }
         for (j, spec) in problem.params.iter().enumerate() {
             let held = spec.fixed || !free[j];
             self.varies[j] = !held;
@@ -229,6 +236,7 @@ impl Refitter {
         eval_into(
             model,
             data,
+            &self.inv_sigma,
             &self.a,
             &mut self.values,
             &mut self.resid,
@@ -248,6 +256,7 @@ impl Refitter {
         eval_into(
             model,
             data,
+            &self.inv_sigma,
             &self.trial,
             &mut self.trial_values,
             &mut self.trial_resid,
@@ -347,10 +356,12 @@ impl Refitter {
 }
 
 /// Evaluates values, weighted residuals and (optionally) the weighted
-/// Jacobian at `params`; returns chi2.
+/// Jacobian at `params`; returns chi2. `inv_sigma` is `1 / data.sigma`.
+#[allow(clippy::too_many_arguments)] // buffers passed apart so the caller can split borrows
 pub(crate) fn eval_into(
     model: &dyn ModelFn,
     data: &DataView,
+    inv_sigma: &[f64],
     params: &[f64],
     values: &mut [f64],
     resid: &mut [f64],
@@ -362,9 +373,9 @@ pub(crate) fn eval_into(
         Some(j) => {
             model.eval(params, data.x, values, Some(j.as_mut_slice()), scratch)?;
             let m = j.len() / n.max(1);
-            for col in 0..m {
-                for i in 0..n {
-                    j[col * n + i] /= data.sigma[i];
+            for col in j.chunks_exact_mut(n.max(1)).take(m) {
+                for (v, w) in col.iter_mut().zip(inv_sigma.iter()) {
+                    *v *= w;
                 }
             }
         }
@@ -372,7 +383,7 @@ pub(crate) fn eval_into(
     }
     let mut chi2 = 0.0;
     for i in 0..n {
-        let r = (values[i] - data.y[i]) / data.sigma[i];
+        let r = (values[i] - data.y[i]) * inv_sigma[i];
         resid[i] = r;
         chi2 += r * r;
     }

@@ -164,6 +164,7 @@ const MAX_RESTARTS: usize = 8;
 pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitResult, FitError> {
     check(problem, data, start)?;
     let sigma = data.sigma_or_ones();
+    let inv_sigma: Vec<f64> = sigma.iter().map(|s| 1.0 / s).collect();
     let xs = data.x_slices();
     let view = DataView {
         x: &xs,
@@ -178,6 +179,7 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     eval_into(
         problem.model,
         &view,
+        &inv_sigma,
         start,
         &mut values,
         &mut resid,
@@ -308,6 +310,7 @@ pub fn analyse(
     let n = data.len();
     let m = problem.params.len();
     let sigma = data.sigma_or_ones();
+    let inv_sigma: Vec<f64> = sigma.iter().map(|s| 1.0 / s).collect();
     let xs = data.x_slices();
     let view = DataView {
         x: &xs,
@@ -321,6 +324,7 @@ pub fn analyse(
     let chi2 = eval_into(
         problem.model,
         &view,
+        &inv_sigma,
         params,
         &mut values,
         &mut resid,

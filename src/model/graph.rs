@@ -143,7 +143,7 @@ impl Graph {
                 // -(x - y) = y - x
                 Node::Bin(Bin::Sub, x, y) => return self.sub(y, x),
                 // -(s * c) = (-s) * c when s is one number per evaluation
-                Node::Bin(Bin::Mul, s, c) if !self.is_column(s) => {
+                Node::Bin(Bin::Mul, s, c) if !self.is_column(s) && self.is_column(c) => {
                     let ns = self.neg(s);
                     return self.mul(ns, c);
                 }
@@ -203,22 +203,29 @@ impl Graph {
                 // Scalars first so that scalar-times-column forms are canonical.
                 let (a, b) = self.order(a, b);
                 let (na, nb) = (self.node(a), self.node(b));
-                match (na, nb) {
-                    (Node::Un(Un::Neg, x), Node::Un(Un::Neg, y)) => return self.mul(x, y),
-                    // s * (-c) = (-s) * c ; (-s) * c stays.
-                    (_, Node::Un(Un::Neg, y)) if !self.is_column(a) => {
-                        let ns = self.neg(a);
-                        return self.mul(ns, y);
+                if let (Node::Un(Un::Neg, x), Node::Un(Un::Neg, y)) = (na, nb) {
+                    return self.mul(x, y);
+                }
+                // After ordering, `b` is a column whenever either operand is.
+                if self.is_column(b) {
+                    let ca = self.is_column(a);
+                    match (na, nb) {
+                        // s * (-c) = (-s) * c: the negation moves to the scalar.
+                        (_, Node::Un(Un::Neg, y)) if !ca => {
+                            let ns = self.neg(a);
+                            return self.mul(ns, y);
+                        }
+                        // (-c1) * c2 = -(c1 * c2) and c1 * (-c2) = -(c1 * c2)
+                        (Node::Un(Un::Neg, x), _) if ca => {
+                            let p = self.mul(x, b);
+                            return self.neg(p);
+                        }
+                        (_, Node::Un(Un::Neg, y)) => {
+                            let p = self.mul(a, y);
+                            return self.neg(p);
+                        }
+                        _ => {}
                     }
-                    (Node::Un(Un::Neg, x), _) if self.is_column(x) => {
-                        let p = self.mul(x, b);
-                        return self.neg(p);
-                    }
-                    (_, Node::Un(Un::Neg, y)) => {
-                        let p = self.mul(a, y);
-                        return self.neg(p);
-                    }
-                    _ => {}
                 }
                 // s1 * (s2 * c) = (s1 * s2) * c
                 if !self.is_column(a) {

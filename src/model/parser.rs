@@ -7,7 +7,8 @@ use super::graph::{Graph, Id};
 use super::ops::{Bin, Un};
 use super::{ModelErrorKind, Symbols};
 
-/// Deepest nesting of parentheses, function calls, unary signs and powers.
+/// Deepest nesting of parentheses, function calls, unary signs and powers
+/// (each counts one level); deeper formulas are a [`super::ModelErrorKind::TooDeep`] error.
 pub const MAX_DEPTH: usize = 200;
 
 /// An error with its 1-based character column.
@@ -282,7 +283,7 @@ impl Parser<'_, '_> {
     /// unary := ('-' | '+') unary | power ; every nesting level passes here.
     fn unary(&mut self) -> Result<Id, PErr> {
         let (t, col) = self.peek();
-        if self.depth >= MAX_DEPTH {
+        if self.depth > MAX_DEPTH {
             return Err((ModelErrorKind::TooDeep { limit: MAX_DEPTH }, col));
         }
         self.depth += 1;

@@ -419,7 +419,8 @@ pub enum StudyError {
     },
     /// Fewer points than free parameters + 1.
     #[error(
-        "{at}: {points} data points cannot fit {free} free parameters: at least {needed} points are needed"
+        "{at}: {points} data point{} cannot fit {free} free parameters: at least {needed} points are needed",
+        if *points == 1 { "" } else { "s" }
     )]
     TooFewPoints {
         /// The data file (or study name).

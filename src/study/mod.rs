@@ -174,6 +174,21 @@ pub fn is_identifier(s: &str) -> bool {
         && c.all(|ch| ch.is_ascii_alphanumeric() || ch == '_')
 }
 
+/// A name a formula can use, built from a header such as `time (s)`: its
+/// first run of identifier characters (`time`), else `x1`.
+fn suggest_identifier(header: &str) -> String {
+    let run: String = header
+        .chars()
+        .skip_while(|c| !(c.is_ascii_alphabetic() || *c == '_'))
+        .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+        .collect();
+    if run.is_empty() {
+        "x1".to_string()
+    } else {
+        run
+    }
+}
+
 /// Where the data came from.
 struct DataSource {
     file: PathBuf,
@@ -324,6 +339,39 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
             fixed: e.fixed,
         });
     }
+    if let Some(pairs) = &spec.audit.contours.pairs {
+        for (i, pair) in pairs.iter().enumerate() {
+            let key = format!("audit.contours.pairs[{i}]");
+            for name in pair {
+                match params.iter().find(|p| &p.name == name) {
+                    None => {
+                        let known: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+                        return Err(invalid(
+                            spec,
+                            &key,
+                            format!(
+                                "names `{name}`, which is not a declared parameter; parameters: {}",
+                                error::name_list(&known)
+                            ),
+                        ));
+                    }
+                    Some(p) if p.fixed => {
+                        return Err(invalid(
+                            spec,
+                            &key,
+                            format!(
+                                "names `{name}`, which is fixed: a contour map needs two free parameters"
+                            ),
+                        ));
+                    }
+                    Some(_) => {}
+                }
+            }
+            if pair[0] == pair[1] {
+                return Err(invalid(spec, &key, "names the same parameter twice"));
+            }
+        }
+    }
     for (i, (name, v)) in spec.constants.iter().enumerate() {
         let key = format!("constants.{name}");
         if !is_identifier(name) {
@@ -441,12 +489,13 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
     for (i, name) in d.x.iter().enumerate() {
         let key = x_key(i);
         if !is_identifier(name) {
+            let alias = suggest_identifier(name);
             return Err(invalid(
                 spec,
                 &key,
                 format!(
                     "names `{name}`, which is not a name a formula can use: give the column one with \
-                     `columns = {{ x1 = \"{name}\" }}` in [data] and write the alias in `data.x`"
+                     `columns = {{ {alias} = \"{name}\" }}` in [data] and write `{alias}` in `data.x`"
                 ),
             ));
         }

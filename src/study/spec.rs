@@ -14,7 +14,6 @@ use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::fmt;
 use std::path::{Path, PathBuf};
-use toml::Spanned;
 
 /// The study file as written (deserialised TOML), before anything is
 /// resolved.
@@ -348,7 +347,10 @@ fn toml_error(e: &toml::de::Error, text: &str, origin: &Path, locs: Option<&Loca
         }
         None => (At::file(origin), None),
     };
-    let message = e.message().trim_end().replace('\n', "; ");
+    let mut message = e.message().trim_end().replace('\n', "; ");
+    if message.contains("invalid floating-point number") {
+        message.push_str(" (write an ordinary decimal number within the range of a double, |x| < 1.8e308)");
+    }
     StudyError::Toml {
         at: Box::new(at),
         message,
@@ -357,66 +359,131 @@ fn toml_error(e: &toml::de::Error, text: &str, origin: &Path, locs: Option<&Loca
 }
 
 // ---------------------------------------------------------------------------
-// Position tree: the document with a span on every value.
+// Position tree: the document with a span on every value that has one.
+//
+// `toml::Spanned` fails on tables that exist only through a dotted header
+// (`[parameters.tau]` without `[parameters]`): they have no span. So the
+// tree speaks the span protocol of the TOML reader itself (the field names
+// below are those `toml::Spanned` uses) and accepts a plain table in its
+// place.
 
-struct Tree(Vec<(String, Spanned<Node>)>);
+const SPANNED: &str = "$__serde_spanned_private_Spanned";
+const START: &str = "$__serde_spanned_private_start";
+const END: &str = "$__serde_spanned_private_end";
+const VALUE: &str = "$__serde_spanned_private_value";
+const FIELDS: &[&str] = &[START, END, VALUE];
+
+struct Tree(Vec<(String, SpanNode)>);
+
+/// A value and, when the reader knows it, its byte range.
+struct SpanNode {
+    span: Option<std::ops::Range<usize>>,
+    node: Node,
+}
 
 enum Node {
-    Table(Vec<(String, Spanned<Node>)>),
-    Array(Vec<Spanned<Node>>),
+    Table(Vec<(String, SpanNode)>),
+    Array(Vec<SpanNode>),
     Scalar,
 }
 
-struct NodeVisitor;
+fn scalar<E>() -> Result<SpanNode, E> {
+    Ok(SpanNode {
+        span: None,
+        node: Node::Scalar,
+    })
+}
 
-impl<'de> Visitor<'de> for NodeVisitor {
-    type Value = Node;
+struct SpanVisitor;
+
+impl<'de> Visitor<'de> for SpanVisitor {
+    type Value = SpanNode;
     fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
         f.write_str("any TOML value")
     }
-    fn visit_bool<E>(self, _: bool) -> Result<Node, E> {
-        Ok(Node::Scalar)
+    fn visit_bool<E>(self, _: bool) -> Result<SpanNode, E> {
+        scalar()
     }
-    fn visit_i64<E>(self, _: i64) -> Result<Node, E> {
-        Ok(Node::Scalar)
+    fn visit_i64<E>(self, _: i64) -> Result<SpanNode, E> {
+        scalar()
     }
-    fn visit_u64<E>(self, _: u64) -> Result<Node, E> {
-        Ok(Node::Scalar)
+    fn visit_u64<E>(self, _: u64) -> Result<SpanNode, E> {
+        scalar()
     }
-    fn visit_f64<E>(self, _: f64) -> Result<Node, E> {
-        Ok(Node::Scalar)
+    fn visit_f64<E>(self, _: f64) -> Result<SpanNode, E> {
+        scalar()
     }
-    fn visit_str<E>(self, _: &str) -> Result<Node, E> {
-        Ok(Node::Scalar)
+    fn visit_str<E>(self, _: &str) -> Result<SpanNode, E> {
+        scalar()
     }
-    fn visit_string<E>(self, _: String) -> Result<Node, E> {
-        Ok(Node::Scalar)
+    fn visit_string<E>(self, _: String) -> Result<SpanNode, E> {
+        scalar()
     }
-    fn visit_seq<A: SeqAccess<'de>>(self, mut a: A) -> Result<Node, A::Error> {
+    fn visit_seq<A: SeqAccess<'de>>(self, mut a: A) -> Result<SpanNode, A::Error> {
         let mut v = Vec::new();
-        while let Some(x) = a.next_element::<Spanned<Node>>()? {
+        while let Some(x) = a.next_element::<SpanNode>()? {
             v.push(x);
         }
-        Ok(Node::Array(v))
+        Ok(SpanNode {
+            span: None,
+            node: Node::Array(v),
+        })
     }
-    fn visit_map<A: MapAccess<'de>>(self, mut a: A) -> Result<Node, A::Error> {
-        let mut v = Vec::new();
-        while let Some(k) = a.next_key::<String>()? {
-            v.push((k, a.next_value::<Spanned<Node>>()?));
+    fn visit_map<A: MapAccess<'de>>(self, mut a: A) -> Result<SpanNode, A::Error> {
+        let mut entries = Vec::new();
+        let Some(first) = a.next_key::<String>()? else {
+            return Ok(SpanNode {
+                span: None,
+                node: Node::Table(entries),
+            });
+        };
+        if first == START {
+            let start: usize = a.next_value()?;
+            let mut end = start;
+            let mut node = Node::Scalar;
+            while let Some(k) = a.next_key::<String>()? {
+                if k == END {
+                    end = a.next_value()?;
+                } else if k == VALUE {
+                    node = a.next_value::<Unspanned>()?.0.node;
+                } else {
+                    a.next_value::<de::IgnoredAny>()?;
+                }
+            }
+            return Ok(SpanNode {
+                span: Some(start..end),
+                node,
+            });
         }
-        Ok(Node::Table(v))
+        entries.push((first, a.next_value::<SpanNode>()?));
+        while let Some(k) = a.next_key::<String>()? {
+            entries.push((k, a.next_value::<SpanNode>()?));
+        }
+        Ok(SpanNode {
+            span: None,
+            node: Node::Table(entries),
+        })
     }
 }
 
-impl<'de> Deserialize<'de> for Node {
+/// The value inside a span record: read without asking for a span again.
+struct Unspanned(SpanNode);
+
+impl<'de> Deserialize<'de> for Unspanned {
     fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        d.deserialize_any(NodeVisitor)
+        d.deserialize_any(SpanVisitor).map(Unspanned)
+    }
+}
+
+impl<'de> Deserialize<'de> for SpanNode {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        d.deserialize_struct(SPANNED, FIELDS, SpanVisitor)
     }
 }
 
 impl<'de> Deserialize<'de> for Tree {
     fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        match Node::deserialize(d)? {
+        match d.deserialize_map(SpanVisitor)?.node {
             Node::Table(t) => Ok(Tree(t)),
             _ => Err(de::Error::custom("a study file must be a TOML table")),
         }
@@ -424,7 +491,7 @@ impl<'de> Deserialize<'de> for Tree {
 }
 
 fn walk_table(
-    entries: &[(String, Spanned<Node>)],
+    entries: &[(String, SpanNode)],
     prefix: &str,
     text: &str,
     locs: &mut Locations,
@@ -440,32 +507,30 @@ fn walk_table(
     }
 }
 
-fn walk_value(
-    v: &Spanned<Node>,
-    key: String,
-    text: &str,
-    locs: &mut Locations,
-    raw: &mut Vec<(String, String)>,
-) {
-    let span = v.span();
-    let (line, column) = line_col(text, span.start);
-    let src = text.get(span.clone()).unwrap_or("");
-    let plain_string = src.len() >= 2
-        && (src.starts_with('"') && !src.contains('\\') || src.starts_with('\''))
-        && !src.starts_with("\"\"\"")
-        && !src.starts_with("'''")
-        && !src.contains('\n');
-    locs.map.insert(
-        key.clone(),
-        Loc {
-            line,
-            column,
-            plain_string,
-        },
-    );
-    match v.get_ref() {
+fn walk_value(v: &SpanNode, key: String, text: &str, locs: &mut Locations, raw: &mut Vec<(String, String)>) {
+    let mut src = "";
+    if let Some(span) = &v.span {
+        let (line, column) = line_col(text, span.start);
+        src = text.get(span.clone()).unwrap_or("");
+        let plain_string = src.len() >= 2
+            && (src.starts_with('"') && !src.contains('\\') || src.starts_with('\''))
+            && !src.starts_with("\"\"\"")
+            && !src.starts_with("'''")
+            && !src.contains('\n');
+        locs.map.insert(
+            key.clone(),
+            Loc {
+                line,
+                column,
+                plain_string,
+            },
+        );
+    }
+    match &v.node {
         Node::Table(t) => {
-            locs.spans.push((key.clone(), span));
+            if let Some(span) = &v.span {
+                locs.spans.push((key.clone(), span.clone()));
+            }
             walk_table(t, &key, text, locs, raw);
         }
         Node::Array(a) => {
