@@ -244,3 +244,35 @@ fn threads_share_one_tape() {
     });
     assert_eq!(results[0], results[1]);
 }
+
+#[test]
+fn shared_and_pass_through_columns() {
+    // d/da = d/db = x: one node feeding two Jacobian columns; the value
+    // `x` itself is a data column passed through.
+    let t = tape("a*x + b*x", &["a", "b"], &["x"]);
+    let x: Vec<f64> = (0..300).map(|i| i as f64 - 100.0).collect();
+    let mut v = vec![0.0; 300];
+    let mut j = vec![0.0; 600];
+    t.eval(&[2.0, 3.0], &[&x], &mut v, Some(&mut j), &mut Vec::new())
+        .unwrap();
+    for i in 0..300 {
+        assert_eq!((v[i], j[i], j[300 + i]), (5.0 * x[i], x[i], x[i]));
+    }
+    let t = tape("y", &["a"], &["x", "y"]);
+    let mut v = vec![0.0; 300];
+    let mut j = vec![1.0; 300];
+    t.eval(&[2.0], &[&x, &x[..]], &mut v, Some(&mut j), &mut Vec::new())
+        .unwrap();
+    assert_eq!(v, x);
+    assert!(j.iter().all(|&d| d == 0.0));
+    // The value is itself a derivative column: d/da of a*exp(x) is exp(x).
+    let t = tape("exp(x) + a*exp(x)", &["a"], &["x"]);
+    let mut v = vec![0.0; 300];
+    let mut j = vec![0.0; 300];
+    t.eval(&[0.5], &[&x], &mut v, Some(&mut j), &mut Vec::new())
+        .unwrap();
+    for i in 0..300 {
+        assert_eq!(j[i], x[i].exp());
+        assert!((v[i] - 1.5 * x[i].exp()).abs() <= 1e-15 * v[i].abs());
+    }
+}
