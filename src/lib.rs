@@ -15,5 +15,6 @@ pub mod diagnostics;
 pub mod fit;
 pub mod model;
 pub mod output;
+pub mod report;
 pub mod rng;
 pub mod settings;

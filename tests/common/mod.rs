@@ -1,0 +1,3 @@
+//! Shared test fixtures.
+#![allow(dead_code)]
+pub mod fixture;
