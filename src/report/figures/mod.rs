@@ -29,6 +29,7 @@ mod profile;
 mod residuals;
 pub mod svg;
 
+pub use multistart::spread_order as multistart_plane_order;
 pub use residuals::hazen_quantiles;
 
 /// One figure.

@@ -321,7 +321,18 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
 pub(crate) fn wrap(label: &str, width: usize) -> Vec<String> {
     let mut lines = Vec::new();
     let mut cur = String::new();
-    for word in label.split(' ') {
+    // A unit sign stays with its number.
+    let mut words: Vec<String> = Vec::new();
+    for w in label.split(' ') {
+        match words.last_mut() {
+            Some(last) if w.starts_with('%') => {
+                last.push(' ');
+                last.push_str(w);
+            }
+            _ => words.push(w.to_string()),
+        }
+    }
+    for word in &words {
         let len = cur.chars().count();
         if len > 0 && len + 1 + word.chars().count() > width {
             lines.push(std::mem::take(&mut cur));
@@ -343,7 +354,7 @@ pub(crate) fn legend(area: &Area, entries: &[(String, Key)]) -> DrawResult {
         return Ok(());
     }
     let (w, _) = area.dim_in_pixel();
-    let chars = ((w as i32 - 52) / 7).max(12) as usize;
+    let chars = ((w as f64 - 52.0) / 6.5).max(12.0) as usize;
     let style = TextStyle::from((FONT, 12).into_font())
         .color(&BLACK)
         .pos(Pos::new(HPos::Left, VPos::Center));
@@ -472,4 +483,33 @@ pub(crate) fn render(
 /// and the report must not contain a single URL).
 pub fn inline(svg: &str) -> String {
     svg.replacen(r#" xmlns="http://www.w3.org/2000/svg""#, "", 1)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn legend_labels_wrap_at_spaces_keeping_units() {
+        assert_eq!(wrap("profiled level (68.3 %)", 16), vec!["profiled level", "(68.3 %)"]);
+        assert_eq!(wrap("a b c", 3), vec!["a b", "c"]);
+        assert_eq!(wrap("averyveryverylongword x", 5), vec!["averyveryverylongword", "x"]);
+        assert_eq!(
+            finite_runs(&[(0.0, 1.0), (1.0, f64::NAN), (2.0, 2.0), (3.0, 3.0)]),
+            vec![vec![(0.0, 1.0)], vec![(2.0, 2.0), (3.0, 3.0)]]
+        );
+        assert_eq!(pad(1.0, 1.0, 0.05), (0.95, 1.05));
+        assert_eq!(pad(0.0, 0.0, 0.05), (-1.0, 1.0));
+        assert_eq!(extent([f64::NAN, 0.0, 10.0]), Some((-0.5, 10.5)));
+        assert_eq!(extent([f64::NAN]), None);
+    }
+
+    #[test]
+    fn inlined_svg_carries_no_url() {
+        let svg = render("t.svg", (40, 30), |_| Ok(())).unwrap();
+        assert!(svg.contains("http://www.w3.org/2000/svg"));
+        let inl = inline(&svg);
+        assert!(!inl.contains("http"));
+        assert!(inl.starts_with("<svg"));
+    }
 }
