@@ -18,7 +18,11 @@ fn check_svg(name: &str, svg: &str) {
     let doc = roxmltree::Document::parse(svg).unwrap_or_else(|e| panic!("{name}: not well-formed: {e}"));
     let root = doc.root_element();
     assert_eq!(root.tag_name().name(), "svg", "{name}");
-    assert_eq!(root.tag_name().namespace(), Some("http://www.w3.org/2000/svg"), "{name}");
+    assert_eq!(
+        root.tag_name().namespace(),
+        Some("http://www.w3.org/2000/svg"),
+        "{name}"
+    );
     // Self-contained: the namespace is the only URL; no links, images, fonts or styles from outside.
     assert_eq!(svg.matches("http").count(), 1, "{name}");
     for bad in ["href", "<image", "url(", "@import", "<script", "@font-face"] {
@@ -84,11 +88,20 @@ fn every_figure_of_a_full_audit_with_its_stable_name() {
 fn axes_carry_the_column_and_parameter_names() {
     let f = build(&fixture::cooling());
     let fit = svg_texts(&f.get("fit.svg").unwrap().svg);
-    assert!(fit.iter().filter(|t| *t == "t_s").count() >= 2, "x axis of both panels: {fit:?}");
+    assert!(
+        fit.iter().filter(|t| *t == "t_s").count() >= 2,
+        "x axis of both panels: {fit:?}"
+    );
     assert!(fit.iter().any(|t| t == "temp_C"));
     assert!(fit.iter().any(|t| t.starts_with("normalised residual")));
     let hist = svg_texts(&f.get("hist_tau.svg").unwrap().svg);
-    for want in ["tau", "density", "bootstrap (400 replicates)", "Monte Carlo (300 trials)", "bootstrap BCa"] {
+    for want in [
+        "tau",
+        "density",
+        "bootstrap (400 replicates)",
+        "Monte Carlo (300 trials)",
+        "bootstrap BCa",
+    ] {
         assert!(hist.iter().any(|t| t == want), "{want} in {hist:?}");
     }
     let prof = svg_texts(&f.get("profile_dT.svg").unwrap().svg);
@@ -97,7 +110,10 @@ fn axes_carry_the_column_and_parameter_names() {
     let cont = svg_texts(&f.get("contour_dT_tau.svg").unwrap().svg);
     assert!(cont.iter().any(|t| t == "dT") && cont.iter().any(|t| t == "tau"));
     // Levels 2.30 and 6.18 at 68.3 % and 95.5 % (Numerical Recipes 15.6.5 for 2 parameters).
-    assert!(cont.iter().any(|t| t.contains("2.30") && t.contains("68.3 %")), "{cont:?}");
+    assert!(
+        cont.iter().any(|t| t.contains("2.30") && t.contains("68.3 %")),
+        "{cont:?}"
+    );
     let corr = svg_texts(&f.get("correlation.svg").unwrap().svg);
     assert!(corr.iter().any(|t| t == "1.00"));
 }
@@ -134,7 +150,10 @@ fn multistart_plane_is_the_two_most_spread_parameters() {
     let f = build(&r);
     let t = svg_texts(&f.get("multistart.svg").unwrap().svg);
     assert!(t.iter().any(|s| s == "tau") && t.iter().any(|s| s == "dT"));
-    assert!(t.iter().any(|s| s.starts_with("minimum 1: χ² = 34.9293")), "{t:?}");
+    assert!(
+        t.iter().any(|s| s.starts_with("minimum 1: χ² = 34.9293")),
+        "{t:?}"
+    );
 }
 
 #[test]
@@ -142,7 +161,12 @@ fn missing_diagnostics_omit_their_figures() {
     let f = build(&fixture::fit_only());
     assert_eq!(
         f.files(),
-        vec!["fit.svg", "residuals_qq.svg", "residuals_x.svg", "correlation.svg"]
+        vec![
+            "fit.svg",
+            "residuals_qq.svg",
+            "residuals_x.svg",
+            "correlation.svg"
+        ]
     );
 }
 
@@ -161,14 +185,26 @@ fn hostile_names_are_escaped_in_svg_and_sanitised_in_file_names() {
     let r = fixture::hostile();
     let f = build(&r);
     let files = f.files();
-    for want in ["hist_T_env.svg", "hist_d_T.svg", "hist_tau_1.svg", "contour_d_T_tau_1.svg"] {
+    for want in [
+        "hist_T_env.svg",
+        "hist_d_T.svg",
+        "hist_tau_1.svg",
+        "contour_d_T_tau_1.svg",
+    ] {
         assert!(files.contains(&want), "{want} in {files:?}");
     }
     for file in &files {
-        assert!(file.chars().all(|c| c.is_ascii_alphanumeric() || "_-.".contains(c)), "{file}");
+        assert!(
+            file.chars()
+                .all(|c| c.is_ascii_alphanumeric() || "_-.".contains(c)),
+            "{file}"
+        );
     }
     let t = svg_texts(&f.get("hist_tau_1.svg").unwrap().svg);
-    assert!(t.iter().any(|s| s == "tau<1"), "decoded text keeps the name: {t:?}");
+    assert!(
+        t.iter().any(|s| s == "tau<1"),
+        "decoded text keeps the name: {t:?}"
+    );
     let raw = &f.get("fit.svg").unwrap().svg;
     assert!(raw.contains("t &lt;s&gt;") && raw.contains("temp|&amp;C"));
 }
@@ -180,6 +216,12 @@ fn non_finite_values_are_skipped_not_drawn() {
     let p = f.get("profile_tau.svg").unwrap();
     assert!(!p.svg.contains("NaN") && !p.svg.contains("inf"));
     assert!(p.caption.contains("upper side"), "{}", p.caption);
-    assert!(f.get("contour_T_env_dT.svg").unwrap().caption.contains("1 grid nodes failed"));
-    assert!(svg_texts(&f.get("correlation.svg").unwrap().svg).iter().any(|t| t == "n/a"));
+    assert!(f
+        .get("contour_T_env_dT.svg")
+        .unwrap()
+        .caption
+        .contains("1 grid nodes failed"));
+    assert!(svg_texts(&f.get("correlation.svg").unwrap().svg)
+        .iter()
+        .any(|t| t == "n/a"));
 }

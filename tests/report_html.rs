@@ -21,7 +21,10 @@ fn parse(s: &str) -> Result<roxmltree::Document<'_>, roxmltree::Error> {
 }
 
 fn text_of(node: roxmltree::Node) -> String {
-    node.descendants().filter(|n| n.is_text()).map(|n| n.text().unwrap()).collect()
+    node.descendants()
+        .filter(|n| n.is_text())
+        .map(|n| n.text().unwrap())
+        .collect()
 }
 
 fn headings(doc: &roxmltree::Document, tag: &str) -> Vec<String> {
@@ -70,7 +73,12 @@ fn tables_hold_the_numbers_of_the_results() {
     let rows: Vec<Vec<String>> = doc
         .descendants()
         .filter(|n| n.has_tag_name("tr"))
-        .map(|tr| tr.children().filter(|c| c.is_element()).map(|c| text_of(c).trim().to_string()).collect())
+        .map(|tr| {
+            tr.children()
+                .filter(|c| c.is_element())
+                .map(|c| text_of(c).trim().to_string())
+                .collect()
+        })
         .collect();
     let row = |first: &str, second: Option<&str>| {
         rows.iter()
@@ -84,11 +92,20 @@ fn tables_hold_the_numbers_of_the_results() {
     // Goodness of fit.
     assert_eq!(row("Degrees of freedom", None)[1], "33");
     assert_eq!(row("Chi-squared", None)[1], format::chi2(r.fit.chi2));
-    assert_eq!(row("Covariance", None)[1], "absolute (from the stated uncertainties)");
+    assert_eq!(
+        row("Covariance", None)[1],
+        "absolute (from the stated uncertainties)"
+    );
     // Interval comparison: 14 columns, bootstrap interval at the precision of u.
     let b = &r.bootstrap.as_ref().unwrap().parameters[2];
-    let cmp = rows.iter().find(|r| r[0] == "tau" && r.len() == 14).expect("comparison row");
-    assert_eq!(cmp[5], format!("[{}, {}]", format::at(b.lower, -1), format::at(b.upper, -1)));
+    let cmp = rows
+        .iter()
+        .find(|r| r[0] == "tau" && r.len() == 14)
+        .expect("comparison row");
+    assert_eq!(
+        cmp[5],
+        format!("[{}, {}]", format::at(b.lower, -1), format::at(b.upper, -1))
+    );
     // Verdicts.
     let v = row("tau", Some("? doubtful"));
     assert!(v[2].contains("asymmetric"));
@@ -99,7 +116,10 @@ fn tables_hold_the_numbers_of_the_results() {
     // Provenance.
     assert_eq!(row("Seed", None)[1], "1");
     assert_eq!(row("Worker threads", None)[1], "2");
-    assert_eq!(row("Study file SHA-256", None)[1], r.study.study_sha256.clone().unwrap());
+    assert_eq!(
+        row("Study file SHA-256", None)[1],
+        r.study.study_sha256.clone().unwrap()
+    );
     assert_eq!(row("Confidence level", None)[1], "68.27 %");
 }
 
@@ -116,10 +136,20 @@ fn user_strings_are_escaped_everywhere() {
         vec!["<script>alert(1)</script> & \"quotes\" | pipes"]
     );
     let all = text_of(doc.root_element());
-    for raw in ["T&env", "d\"T", "tau<1", "a <b>bold</b> claim", "studies/a&b/<cooling>.toml", "'<script>x</script>'"] {
+    for raw in [
+        "T&env",
+        "d\"T",
+        "tau<1",
+        "a <b>bold</b> claim",
+        "studies/a&b/<cooling>.toml",
+        "'<script>x</script>'",
+    ] {
         assert!(all.contains(raw), "{raw}");
     }
-    assert!(doc.descendants().all(|n| !n.has_tag_name("b")), "no markup from a reason");
+    assert!(
+        doc.descendants().all(|n| !n.has_tag_name("b")),
+        "no markup from a reason"
+    );
 }
 
 #[test]
@@ -132,7 +162,10 @@ fn a_better_minimum_leads_the_report_with_both_chi_squared_values() {
     let first = body.children().find(|n| n.is_element()).unwrap();
     assert_eq!(first.attribute("class"), Some("notice"));
     let notice = text_of(first);
-    assert!(notice.contains(&format!("chi-squared = {}", format::chi2(ms.minima[0].chi2))), "{notice}");
+    assert!(
+        notice.contains(&format!("chi-squared = {}", format::chi2(ms.minima[0].chi2))),
+        "{notice}"
+    );
     assert!(notice.contains(&format!("chi-squared = {}", format::chi2(ms.base_chi2))));
     assert!(format::chi2(ms.minima[0].chi2) != format::chi2(ms.base_chi2));
 }

@@ -269,7 +269,7 @@ fn multistart(chi2: f64, se: &[f64]) -> MultistartResult {
         let z: f64 = StandardNormal.sample(&mut rng);
         let start = vec![20.0 + z, 50.0 + 10.0 * z, 300.0 + 100.0 * z];
         let (end, c, minimum, converged) = match i % 12 {
-            10 => (start.clone(), f64::NAN, None, false),
+            10 => (start.clone(), 30.0 * chi2, None, false),
             7 | 3 => (other.to_vec(), chi2 + 40.0, Some(1), true),
             _ => (
                 (0..3).map(|k| VALUES[k] + 1e-4 * z * se[k]).collect(),
@@ -552,6 +552,7 @@ pub fn with_non_finite() -> AuditResults {
     r.contours.as_mut().unwrap()[0].grid.chi2[0][0] = f64::NAN;
     r.contours.as_mut().unwrap()[0].failed = 1;
     r.fit.correlation[0][2] = f64::NAN;
+    r.multistart.as_mut().unwrap().runs[10].chi2 = f64::NAN;
     r
 }
 

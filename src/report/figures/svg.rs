@@ -491,9 +491,15 @@ mod tests {
 
     #[test]
     fn legend_labels_wrap_at_spaces_keeping_units() {
-        assert_eq!(wrap("profiled level (68.3 %)", 16), vec!["profiled level", "(68.3 %)"]);
+        assert_eq!(
+            wrap("profiled level (68.3 %)", 16),
+            vec!["profiled level", "(68.3 %)"]
+        );
         assert_eq!(wrap("a b c", 3), vec!["a b", "c"]);
-        assert_eq!(wrap("averyveryverylongword x", 5), vec!["averyveryverylongword", "x"]);
+        assert_eq!(
+            wrap("averyveryverylongword x", 5),
+            vec!["averyveryverylongword", "x"]
+        );
         assert_eq!(
             finite_runs(&[(0.0, 1.0), (1.0, f64::NAN), (2.0, 2.0), (3.0, 3.0)]),
             vec![vec![(0.0, 1.0)], vec![(2.0, 2.0), (3.0, 3.0)]]
