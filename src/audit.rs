@@ -241,3 +241,25 @@ fn model_curve(model: &dyn ModelFn, data: &Dataset, fit: &FitResult) -> Option<C
     let _ = model.eval(&params, &[xs.as_slice()], &mut ys, None, &mut scratch);
     Some(Curve { x: xs, y: ys })
 }
+
+/// The audit input of a loaded study.
+pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
+    AuditInput {
+        info: StudyInfo {
+            name: study.name.clone(),
+            title: study.title.clone(),
+            path: study.path.display().to_string(),
+            data_file: study.data_file.as_ref().map(|p| p.display().to_string()),
+            formula: study.formula.clone(),
+            points: study.dataset.len(),
+            sigma_given: study.dataset.has_sigma(),
+            study_sha256: study.study_sha256.clone(),
+            data_sha256: study.data_sha256.clone(),
+        },
+        model: &study.model,
+        params: study.parameters.clone(),
+        fit_options: study.fit_options.clone(),
+        data: &study.dataset,
+        settings: study.audit.clone(),
+    }
+}

@@ -16,6 +16,7 @@ pub fn classify(err: &anyhow::Error) -> u8 {
             || cause.is::<crate::model::ModelError>()
             || cause.is::<crate::fit::FitError>()
             || cause.is::<crate::audit::AuditError>()
+            || cause.is::<crate::demo::DemoError>()
         {
             return 2;
         }
@@ -27,7 +28,10 @@ pub fn classify(err: &anyhow::Error) -> u8 {
 }
 
 /// Runs `f` inside a rayon pool of `threads` workers (all cores when None).
-pub fn with_threads<T>(threads: Option<usize>, f: impl FnOnce() -> anyhow::Result<T> + Send) -> anyhow::Result<T>
+pub fn with_threads<T>(
+    threads: Option<usize>,
+    f: impl FnOnce() -> anyhow::Result<T> + Send,
+) -> anyhow::Result<T>
 where
     T: Send,
 {
@@ -48,7 +52,10 @@ pub struct TerminalProgress {
 impl TerminalProgress {
     /// A progress reporter; silent when `quiet` or when stderr is not a terminal.
     pub fn new(quiet: bool) -> Self {
-        TerminalProgress { bar: Mutex::new(None), enabled: !quiet && std::io::stderr().is_terminal() }
+        TerminalProgress {
+            bar: Mutex::new(None),
+            enabled: !quiet && std::io::stderr().is_terminal(),
+        }
     }
 }
 
@@ -83,4 +90,89 @@ impl Progress for TerminalProgress {
             }
         }
     }
+}
+
+/// What `fitaudit check` prints: what was read, and any warnings.
+pub fn check_summary(study: &crate::study::Study) -> String {
+    use std::fmt::Write as _;
+    let mut s = String::new();
+    let d = &study.dataset;
+    let _ = writeln!(s, "study      {}", study.path.display());
+    if let Some(t) = &study.title {
+        let _ = writeln!(s, "title      {t}");
+    }
+    if let Some(f) = &study.data_file {
+        let _ = writeln!(s, "data       {} ({} points)", f.display(), d.len());
+    } else {
+        let _ = writeln!(s, "data       {} points", d.len());
+    }
+    let _ = writeln!(s, "x          {}", d.x_names.join(", "));
+    let _ = writeln!(s, "y          {}", d.y_name);
+    let _ = writeln!(
+        s,
+        "sigma      {}",
+        if d.has_sigma() {
+            "given (absolute covariance)"
+        } else {
+            "none (covariance scaled by chi2/dof)"
+        }
+    );
+    let _ = writeln!(s, "formula    {}", study.formula);
+    for p in &study.parameters {
+        let mut line = format!("parameter  {} start {}", p.name, p.start);
+        if p.min.is_finite() {
+            line.push_str(&format!(", min {}", p.min));
+        }
+        if p.max.is_finite() {
+            line.push_str(&format!(", max {}", p.max));
+        }
+        if p.fixed {
+            line.push_str(", fixed");
+        }
+        let _ = writeln!(s, "{line}");
+    }
+    for (name, value) in &study.constants {
+        let _ = writeln!(s, "constant   {name} = {value}");
+    }
+    let a = &study.audit;
+    let _ = writeln!(
+        s,
+        "audit      seed {}, level {}, bootstrap {} ({:?}), Monte Carlo {}, profile {} points, contour grid {}, {} starts",
+        a.seed,
+        a.level,
+        a.bootstrap.replicates,
+        a.bootstrap.scheme,
+        a.monte_carlo.replicates,
+        a.profile.points,
+        a.contours.grid,
+        a.multistart.starts
+    );
+    for w in &study.warnings {
+        let _ = writeln!(s, "warning    {w}");
+    }
+    let _ = writeln!(s, "ok: the study is valid");
+    s
+}
+
+/// The closing lines of `fitaudit demo`.
+pub fn demo_summary(summary: &crate::demo::DemoSummary) -> String {
+    use std::fmt::Write as _;
+    let mut s = format!("demo reports written under {}\n", summary.out.display());
+    for sc in &summary.scenarios {
+        let best = match sc.base_is_best {
+            Some(false) => "; base fit is NOT the best minimum",
+            _ => "",
+        };
+        let _ = writeln!(
+            s,
+            "  {:<10} {} holds, {} doubtful, {} fails{}  -> {}",
+            sc.name,
+            sc.holds,
+            sc.doubtful,
+            sc.fails,
+            best,
+            sc.folder.join("report.html").display()
+        );
+    }
+    s
 }

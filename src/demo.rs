@@ -136,3 +136,92 @@ pub struct DemoSummary {
 pub fn scenario_folder(out: &Path, name: &str) -> PathBuf {
     out.join(name)
 }
+
+/// Errors of the demo: an embedded scenario that does not load (a defect of
+/// the build), or an output folder that cannot be written.
+#[derive(Debug, thiserror::Error)]
+pub enum DemoError {
+    /// Writing the scenario inputs into a working folder failed.
+    #[error("cannot prepare the demo inputs in {path}: {source}")]
+    Io {
+        /// The folder.
+        path: PathBuf,
+        /// Why.
+        source: std::io::Error,
+    },
+    /// An embedded study did not load.
+    #[error("embedded scenario {name}: {source}")]
+    Study {
+        /// Scenario name.
+        name: String,
+        /// Why.
+        source: Box<crate::study::StudyError>,
+    },
+    /// An output folder cannot be written.
+    #[error(transparent)]
+    Output(#[from] crate::output::OutputError),
+    /// The audit failed.
+    #[error(transparent)]
+    Audit(#[from] crate::audit::AuditError),
+    /// The report could not be written.
+    #[error(transparent)]
+    Report(#[from] crate::report::ReportError),
+}
+
+/// Loads an embedded scenario as a study (its files are written to a
+/// private working folder first, so the record carries their SHA-256).
+pub fn load_scenario(scenario: &Scenario, work: &Path) -> Result<crate::study::Study, DemoError> {
+    let io = |source| DemoError::Io {
+        path: work.to_path_buf(),
+        source,
+    };
+    std::fs::create_dir_all(work).map_err(io)?;
+    let study_path = work.join(format!("{}.toml", scenario.name));
+    std::fs::write(&study_path, scenario.study).map_err(io)?;
+    std::fs::write(work.join(scenario.data_file), scenario.data).map_err(io)?;
+    crate::study::load(&study_path).map_err(|source| DemoError::Study {
+        name: scenario.name.to_string(),
+        source: Box::new(source),
+    })
+}
+
+/// Runs every scenario and writes its report under `out/<name>/`.
+pub fn run_all(
+    out: &Path,
+    command_line: &str,
+    progress: &dyn crate::diagnostics::Progress,
+) -> Result<DemoSummary, DemoError> {
+    use crate::diagnostics::verdict::Status;
+    let work = std::env::temp_dir().join(format!("fitaudit-demo-{}", std::process::id()));
+    let mut scenarios = Vec::new();
+    let result = (|| {
+        for sc in &SCENARIOS {
+            crate::output::preflight(&scenario_folder(out, sc.name))?;
+        }
+        for sc in &SCENARIOS {
+            let study = load_scenario(sc, &work)?;
+            let options = crate::audit::AuditOptions {
+                command_line: command_line.to_string(),
+                ..Default::default()
+            };
+            let results = crate::audit::run(&crate::audit::input_from_study(&study), &options, progress)?;
+            let folder = crate::report::write_report(&results, &scenario_folder(out, sc.name), &options)?;
+            let count = |s: Status| results.verdicts.iter().filter(|v| v.status == s).count();
+            scenarios.push(ScenarioOutcome {
+                name: sc.name.to_string(),
+                purpose: sc.purpose.to_string(),
+                folder,
+                holds: count(Status::Holds),
+                doubtful: count(Status::Doubtful),
+                fails: count(Status::Fails),
+                base_is_best: results.multistart.as_ref().map(|m| m.base_is_best),
+            });
+        }
+        Ok(())
+    })();
+    let _ = std::fs::remove_dir_all(&work);
+    result.map(|()| DemoSummary {
+        out: out.to_path_buf(),
+        scenarios,
+    })
+}

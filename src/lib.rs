@@ -9,6 +9,7 @@
 #![warn(missing_docs)]
 
 pub mod audit;
+pub mod cli_support;
 pub mod data;
 pub mod demo;
 pub mod diagnostics;
@@ -18,3 +19,4 @@ pub mod output;
 pub mod report;
 pub mod rng;
 pub mod settings;
+pub mod study;

@@ -1,6 +1,256 @@
-//! The `fitaudit` command line (being assembled).
+//! The `fitaudit` command line: clap parsing, then library calls.
 
-fn main() {
-    eprintln!("fitaudit: command line not assembled yet");
-    std::process::exit(1);
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use anyhow::Context;
+use clap::{Parser, Subcommand};
+use fitaudit::audit::{self, AuditOptions};
+use fitaudit::cli_support::{self, classify, TerminalProgress};
+use fitaudit::fit::Method;
+use fitaudit::report::text;
+use fitaudit::settings::Diagnostic;
+use fitaudit::study;
+
+/// Audit the uncertainties of a weighted nonlinear least-squares fit.
+///
+/// A study file (TOML) names a CSV file, a model formula and its parameters.
+/// `fit` fits it; `audit` runs the diagnostics battery (bootstrap, Monte
+/// Carlo, chi-squared profiles, contour maps, multi-start search), decides a
+/// verdict per parameter and writes a report. Exit status: 0 success, 1
+/// internal error, 2 bad input or usage, 3 with --strict when a verdict fails.
+#[derive(Parser, Debug)]
+#[command(name = "fitaudit", version, about, long_about)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Fit the study's model and print the parameters (value, standard error,
+    /// relative error, bound flag) and goodness of fit.
+    Fit {
+        /// Study file (TOML).
+        study: PathBuf,
+        /// Print the fit result as JSON on stdout.
+        #[arg(long)]
+        json: bool,
+        /// Minimisation method (overrides the study's [fit] method). With
+        /// `steepest` the iteration cap is at least 100000.
+        #[arg(long, value_enum)]
+        method: Option<MethodArg>,
+    },
+    /// Validate the study file and its data, fit nothing, and say what was read.
+    Check {
+        /// Study file (TOML).
+        study: PathBuf,
+    },
+    /// Run the diagnostics battery and write report.html, results.json,
+    /// summary.md and figures/ into the output folder.
+    Audit(AuditArgs),
+    /// Run the built-in demonstration scenarios on embedded data.
+    Demo {
+        /// Output folder of the demo reports.
+        #[arg(long, default_value = "out/demo")]
+        out: PathBuf,
+        /// Worker threads (default: all cores).
+        #[arg(long, value_parser = parse_threads)]
+        threads: Option<usize>,
+        /// No progress output.
+        #[arg(long)]
+        quiet: bool,
+    },
+    /// List the functions and constants of the formula language.
+    Models,
+}
+
+#[derive(clap::Args, Debug)]
+struct AuditArgs {
+    /// Study file (TOML).
+    study: PathBuf,
+    /// Output folder [default: out/<study name>/].
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Comma-separated diagnostics to run: bootstrap, monte-carlo, profile,
+    /// contours, multistart [default: all].
+    #[arg(long, value_delimiter = ',', value_parser = parse_diagnostic)]
+    only: Option<Vec<Diagnostic>>,
+    /// Replicates of both bootstrap and Monte Carlo (overrides the study).
+    #[arg(long, value_parser = parse_positive)]
+    replicates: Option<usize>,
+    /// Number of multi-start starts (overrides the study).
+    #[arg(long, value_parser = parse_positive)]
+    starts: Option<usize>,
+    /// Seed of every random stream (overrides the study).
+    #[arg(long)]
+    seed: Option<u64>,
+    /// Worker threads (default: all cores); results do not depend on it.
+    #[arg(long, value_parser = parse_threads)]
+    threads: Option<usize>,
+    /// No progress output on stderr.
+    #[arg(long)]
+    quiet: bool,
+    /// Exit with status 3 when any verdict is `fails`.
+    #[arg(long)]
+    strict: bool,
+    /// Also write replicates.csv with every bootstrap and Monte Carlo estimate.
+    #[arg(long)]
+    replicates_csv: bool,
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum MethodArg {
+    /// Levenberg-Marquardt (default).
+    Lm,
+    /// Steepest descent (simple, slower).
+    Steepest,
+}
+
+/// Iteration cap of steepest descent chosen on the command line.
+const STEEPEST_MIN_ITERATIONS: usize = 100_000;
+
+fn parse_diagnostic(s: &str) -> Result<Diagnostic, String> {
+    Diagnostic::ALL
+        .into_iter()
+        .find(|d| d.cli_name() == s.trim())
+        .ok_or_else(|| {
+            let names: Vec<_> = Diagnostic::ALL.iter().map(|d| d.cli_name()).collect();
+            format!("unknown diagnostic '{s}'; choose from {}", names.join(", "))
+        })
+}
+
+fn parse_positive(s: &str) -> Result<usize, String> {
+    match s.parse::<usize>() {
+        Ok(0) => Err("must be at least 1".into()),
+        Ok(n) => Ok(n),
+        Err(_) => Err(format!("'{s}' is not a positive whole number")),
+    }
+}
+
+fn parse_threads(s: &str) -> Result<usize, String> {
+    parse_positive(s).map_err(|e| format!("thread count {e}"))
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(code) => code,
+        Err(err) => {
+            let code = classify(&err);
+            eprintln!("error: {err:#}");
+            ExitCode::from(code)
+        }
+    }
+}
+
+fn run(cli: Cli) -> anyhow::Result<ExitCode> {
+    match cli.command {
+        Command::Fit { study, json, method } => {
+            let mut study = study::load(&study)?;
+            if let Some(m) = method {
+                study.fit_options.method = match m {
+                    MethodArg::Lm => Method::Lm,
+                    MethodArg::Steepest => Method::Steepest,
+                };
+                if study.fit_options.method == Method::Steepest {
+                    // The simple method needs far more, far cheaper iterations.
+                    study.fit_options.max_iterations =
+                        study.fit_options.max_iterations.max(STEEPEST_MIN_ITERATIONS);
+                }
+            }
+            let fit = fitaudit::fit::fit(&study.problem(), &study.dataset)?;
+            if json {
+                #[derive(serde::Serialize)]
+                struct Wrapped<'a> {
+                    fit: &'a fitaudit::fit::FitResult,
+                }
+                emit(&(serde_json::to_string_pretty(&Wrapped { fit: &fit })? + "\n"))?;
+            } else {
+                emit(&text::fit_table(study.title.as_deref(), &study.parameters, &fit))?;
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Check { study } => {
+            let study = study::load(&study)?;
+            emit(&cli_support::check_summary(&study))?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Audit(args) => audit_command(args),
+        Command::Demo { out, threads, quiet } => cli_support::with_threads(threads, || {
+            let progress = TerminalProgress::new(quiet);
+            let summary = fitaudit::demo::run_all(&out, &command_line(), &progress)?;
+            emit(&cli_support::demo_summary(&summary))?;
+            Ok(ExitCode::SUCCESS)
+        }),
+        Command::Models => {
+            emit(&text::models_table())?;
+            Ok(ExitCode::SUCCESS)
+        }
+    }
+}
+
+fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
+    let mut study = study::load(&args.study)?;
+    if let Some(n) = args.replicates {
+        study.audit.bootstrap.replicates = n;
+        study.audit.monte_carlo.replicates = n;
+    }
+    if let Some(n) = args.starts {
+        study.audit.multistart.starts = n;
+    }
+    if let Some(s) = args.seed {
+        study.audit.seed = s;
+    }
+    study
+        .audit
+        .validate()
+        .map_err(|(key, why)| study::StudyError::Invalid {
+            at: Box::new(study::At::file(&study.path)),
+            key: format!("{key} (as set in the study or on the command line)"),
+            why,
+        })?;
+    let out = args
+        .out
+        .clone()
+        .unwrap_or_else(|| Path::new("out").join(&study.name));
+    fitaudit::output::preflight(&out)?;
+    let options = AuditOptions {
+        only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
+        command_line: command_line(),
+        write_replicates: args.replicates_csv,
+    };
+    cli_support::with_threads(args.threads, || {
+        let progress = TerminalProgress::new(args.quiet);
+        let results = audit::run(&audit::input_from_study(&study), &options, &progress)?;
+        let dir = fitaudit::report::write_report(&results, &out, &options)
+            .with_context(|| format!("writing the report into {}", out.display()))?;
+        if !args.quiet {
+            eprintln!("report written to {}", dir.display());
+        }
+        emit(&text::verdict_lines(&results))?;
+        let fails = results
+            .verdicts
+            .iter()
+            .any(|v| v.status == fitaudit::diagnostics::verdict::Status::Fails);
+        Ok(if args.strict && fails {
+            ExitCode::from(3)
+        } else {
+            ExitCode::SUCCESS
+        })
+    })
+}
+
+/// Writes to stdout; a closed pipe (e.g. `| head`) ends the program quietly.
+fn emit(text: &str) -> anyhow::Result<()> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => std::process::exit(0),
+        other => Ok(other?),
+    }
+}
+
+fn command_line() -> String {
+    std::env::args().collect::<Vec<_>>().join(" ")
 }

@@ -121,6 +121,32 @@ impl Drop for Staging {
     }
 }
 
+/// Checks, before any work is done, that `dest` can be written: it is new,
+/// empty or an earlier fitaudit output, and its nearest existing ancestor is
+/// a folder in which a staging folder can be created. Leaves nothing behind.
+pub fn preflight(dest: &Path) -> Result<(), OutputError> {
+    check_destination(dest)?;
+    let mut ancestor = dest.parent();
+    while let Some(a) = ancestor {
+        let a = if a.as_os_str().is_empty() {
+            Path::new(".")
+        } else {
+            a
+        };
+        if a.exists() {
+            if !a.is_dir() {
+                return Err(OutputError::NotAFolder(a.to_path_buf()));
+            }
+            let probe = a.join(format!(".fitaudit-probe-{}", std::process::id()));
+            fs::create_dir(&probe).map_err(io_err(a))?;
+            let _ = fs::remove_dir(&probe);
+            return Ok(());
+        }
+        ancestor = a.parent();
+    }
+    Ok(())
+}
+
 /// Refuses destinations that exist and are not fitaudit output folders.
 pub fn check_destination(dest: &Path) -> Result<(), OutputError> {
     if !dest.exists() {
@@ -172,6 +198,19 @@ mod tests {
         assert!(!other.exists());
         let leftovers: Vec<_> = fs::read_dir(root.path()).unwrap().collect();
         assert_eq!(leftovers.len(), 1, "only the committed folder remains");
+    }
+
+    #[test]
+    fn preflight_rejects_a_file_in_the_way_and_leaves_nothing() {
+        let root = tempfile::tempdir().unwrap();
+        let blocker = root.path().join("blocker");
+        fs::write(&blocker, "x").unwrap();
+        assert!(matches!(
+            preflight(&blocker.join("sub/deeper")),
+            Err(OutputError::NotAFolder(_))
+        ));
+        assert!(preflight(&root.path().join("new/deeper")).is_ok());
+        assert_eq!(fs::read_dir(root.path()).unwrap().count(), 1);
     }
 
     #[test]

@@ -112,7 +112,7 @@ fn tables_hold_the_numbers_of_the_results() {
     // Failures: one bootstrap replicate failed, its reason counted.
     let f = row("Bootstrap", None);
     assert_eq!(f[2], "1");
-    assert_eq!(f[3], "not-converged: 1");
+    assert_eq!(f[3], "not-converged: 1; BCa jackknife: 0 of 36 refits failed");
     // Provenance.
     assert_eq!(row("Seed", None)[1], "1");
     assert_eq!(row("Worker threads", None)[1], "2");
@@ -177,4 +177,30 @@ fn a_fit_without_diagnostics_still_has_every_section() {
     let doc = parse(&s).unwrap();
     assert_eq!(headings(&doc, "h2"), html::SECTIONS.to_vec());
     assert_eq!(s.matches("<td>not run</td>").count(), 5);
+}
+
+#[test]
+fn a_profile_below_the_base_fit_also_leads_and_skipped_pairs_are_listed() {
+    let r = fixture::profile_below();
+    let s = page(&r);
+    let doc = parse(&s).unwrap();
+    let body = doc.descendants().find(|n| n.has_tag_name("body")).unwrap();
+    let first = body.children().find(|n| n.is_element()).unwrap();
+    assert_eq!(first.attribute("class"), Some("notice"));
+    let notice = text_of(first);
+    // chi2 - 0.75 at tau = 343.5 (the fixture's below-minimum point).
+    assert!(
+        notice.contains(&format!(
+            "chi-squared = {} at tau = 343.5",
+            format::chi2(r.fit.chi2 - 0.75)
+        )),
+        "{notice}"
+    );
+    let all = text_of(doc.root_element());
+    assert!(
+        all.contains("dT / tau skipped: parameter `tau`: no range to map around the estimate"),
+        "skipped pair"
+    );
+    assert!(all.contains("the base fit is not the minimum"));
+    assert!(!s.contains("fig-contour_dT_tau"));
 }

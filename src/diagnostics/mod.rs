@@ -9,10 +9,14 @@ use crate::settings::AuditSettings;
 
 pub mod bootstrap;
 pub mod contour;
+pub mod marching;
 pub mod monte_carlo;
 pub mod multistart;
 pub mod profile;
+mod profile_scan;
 pub mod resample;
+pub mod roots;
+pub mod sampling;
 pub mod verdict;
 
 /// A problem together with its base fit: the input of every diagnostic.

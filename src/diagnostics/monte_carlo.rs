@@ -1,10 +1,233 @@
 //! Monte Carlo refits from synthetic noise around the base fit.
+//!
+//! Trial `k` simulates `y*_i = f(x_i; a_hat) + s * sigma_i * e_i` from
+//! `rng::stream(seed, Stream::MonteCarlo, k)` and refits it through
+//! [`crate::fit::Refitter`] from `a_hat`. The noise `e_i` is standard
+//! normal, or Student-t with `nu = student_t_dof` degrees of freedom scaled
+//! to unit variance (`t * sqrt((nu - 2) / nu)`).
+//!
+//! **Noise scale `s`** (the scaled-covariance convention): the simulation
+//! uses the noise the analytic covariance assumes. When the data have no
+//! sigma (every sigma is 1), or the fit scaled its covariance by chi2/dof,
+//! `s = sqrt(chi2 / dof)` of the base fit, so each point's standard
+//! uncertainty is estimated from the scatter about the fit; otherwise the
+//! sigma are taken as given and `s = 1`. When chi2/dof is not a positive
+//! finite number (no degrees of freedom) `s = 1`. The factor is recorded
+//! in [`ResampleResult::noise_scale`].
+//!
+//! **Adaptive trials** (JCGM 101:2008, clause 7.9): trials run in batches
+//! of `h = ceil(100 / (1 - level))` (at least 100; the minimum clause 7.2.2
+//! asks of a coverage interval). After each batch (from the second on),
+//! for every free parameter the standard deviation `u_r` of each batch's
+//! trials and of all trials `u` are formed; the computation is stable when
+//! `2 * s_u <= adaptive_tolerance * u` for every free parameter, where
+//! `s_u = sd(u_1..u_B) / sqrt(B)` is the standard deviation of the mean of
+//! the `B` batch values. It stops there or at `replicates` trials, whichever
+//! comes first, and records [`ResampleResult::adaptive_stable`]. Only the
+//! standard uncertainties are checked (not the means or interval ends).
+//!
+//! **BCa** uses the same formula as the bootstrap, with the acceleration
+//! from the jackknife on the base data.
 
-use super::resample::ResampleResult;
+use rand::Rng;
+use rand_distr::{Distribution, StandardNormal, StudentT};
+
+use super::resample::{self, Assembly, Outcome, ResampleResult};
 use super::{Fitted, Progress};
+use crate::rng::{self, Stream};
+use crate::settings::MonteCarloSettings;
 
-/// Runs the Monte Carlo refits (STUB).
+/// Smallest adaptive batch (JCGM 101:2008, 7.2.2: at least 100/(1-p) trials).
+pub const MIN_BATCH: usize = 100;
+
+/// Runs the Monte Carlo refits with the study's settings, BCa included.
 pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ResampleResult {
-    let _ = (ctx, progress);
-    unimplemented!("Monte Carlo not built yet")
+    run_with(ctx, &ctx.settings.monte_carlo, true, progress)
+}
+
+/// The noise factor `s` (see the module documentation).
+pub fn noise_scale(ctx: &Fitted) -> f64 {
+    if ctx.data.has_sigma() && !ctx.fit.covariance_scaled {
+        return 1.0;
+    }
+    let r = ctx.fit.reduced_chi2;
+    if r.is_finite() && r > 0.0 {
+        r.sqrt()
+    } else {
+        1.0
+    }
+}
+
+/// The adaptive batch size at confidence level `level`.
+pub fn batch_size(level: f64) -> usize {
+    let h = (100.0 / (1.0 - level)).ceil();
+    if h.is_finite() {
+        (h as usize).max(MIN_BATCH)
+    } else {
+        MIN_BATCH
+    }
+}
+
+/// Runs the Monte Carlo refits with the given settings; `bca = false`
+/// skips the jackknife refits (no BCa interval).
+pub fn run_with(
+    ctx: &Fitted,
+    settings: &MonteCarloSettings,
+    bca: bool,
+    progress: &dyn Progress,
+) -> ResampleResult {
+    let max = settings.replicates;
+    let n = ctx.data.len();
+    let scheme = if settings.student_t_dof.is_some() {
+        "student-t"
+    } else {
+        "normal"
+    };
+    progress.start(
+        &format!("Monte Carlo ({scheme})"),
+        (max + if bca { n } else { 0 }) as u64,
+    );
+    let (outcomes, adaptive_stable) = if settings.adaptive {
+        let (o, stable) = adaptive(ctx, settings, progress);
+        (o, Some(stable))
+    } else {
+        (trials(ctx, settings, 0..max, progress), None)
+    };
+    let jackknife = bca.then(|| resample::jackknife(ctx, progress));
+    progress.finish();
+    resample::assemble(
+        ctx,
+        Assembly {
+            scheme: scheme.to_string(),
+            replicates: max,
+            outcomes,
+            jackknife,
+            adaptive_stable,
+            noise_scale: Some(noise_scale(ctx)),
+        },
+    )
+}
+
+/// Batches until stable or at the cap; returns the outcomes and stability.
+fn adaptive(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Progress) -> (Vec<Outcome>, bool) {
+    let max = settings.replicates;
+    let h = batch_size(ctx.settings.level);
+    let free = ctx.free_mask();
+    let mut outcomes: Vec<Outcome> = Vec::with_capacity(max);
+    // Per full batch, per parameter: the batch's standard deviation.
+    let mut batch_u: Vec<Vec<f64>> = Vec::new();
+    let mut stable = false;
+    while outcomes.len() < max {
+        let start = outcomes.len();
+        let end = (start + h).min(max);
+        let batch = trials(ctx, settings, start..end, progress);
+        let full = end - start == h;
+        if full {
+            let rows: Vec<&Vec<f64>> = batch
+                .iter()
+                .filter_map(|o| match o {
+                    Outcome::Ok(p) => Some(p),
+                    Outcome::Failed(_) => None,
+                })
+                .collect();
+            batch_u.push(
+                (0..free.len())
+                    .map(|j| resample::mean_std(&rows.iter().map(|r| r[j]).collect::<Vec<_>>()).1)
+                    .collect(),
+            );
+        }
+        outcomes.extend(batch);
+        if full && batch_u.len() >= 2 {
+            stable = is_stable(&outcomes, &batch_u, &free, settings.adaptive_tolerance);
+            if stable {
+                break;
+            }
+        }
+    }
+    if outcomes.len() < max {
+        // Stopped early: the bar still owes the trials not run.
+        progress.advance((max - outcomes.len()) as u64);
+    }
+    (outcomes, stable)
+}
+
+/// JCGM 101:2008, 7.9.4 applied to the standard uncertainties only.
+pub fn is_stable(outcomes: &[Outcome], batch_u: &[Vec<f64>], free: &[bool], tolerance: f64) -> bool {
+    let b = batch_u.len() as f64;
+    (0..free.len()).filter(|&j| free[j]).all(|j| {
+        let all: Vec<f64> = outcomes
+            .iter()
+            .filter_map(|o| match o {
+                Outcome::Ok(p) => Some(p[j]),
+                Outcome::Failed(_) => None,
+            })
+            .collect();
+        let u = resample::mean_std(&all).1;
+        let (_, sd_batches) = resample::mean_std(&batch_u.iter().map(|r| r[j]).collect::<Vec<_>>());
+        if u == 0.0 {
+            return true;
+        }
+        let s_u = sd_batches / b.sqrt();
+        s_u.is_finite() && u.is_finite() && 2.0 * s_u <= tolerance * u
+    })
+}
+
+/// Refits Monte Carlo trials `indices` (outcomes in trial order). The
+/// building block of [`run_with`], public for benchmarks.
+pub fn trials(
+    ctx: &Fitted,
+    settings: &MonteCarloSettings,
+    indices: std::ops::Range<usize>,
+    progress: &dyn Progress,
+) -> Vec<Outcome> {
+    let data = ctx.data;
+    let n = data.len();
+    let seed = ctx.settings.seed;
+    let s = noise_scale(ctx);
+    let sigma: Vec<f64> = data.sigma_or_ones().iter().map(|v| v * s).collect();
+    let given_sigma = data.sigma_or_ones();
+    let fitted = &ctx.fit.fitted;
+    let t = settings
+        .student_t_dof
+        .and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt())));
+    resample::refit_replicates(ctx, indices, n, false, progress, |k, smp| {
+        let mut rng = rng::stream(seed, Stream::MonteCarlo, k as u64);
+        for i in 0..n {
+            let e: f64 = match &t {
+                Some((d, scale)) => d.sample(&mut rng) * scale,
+                None => rng.sample(StandardNormal),
+            };
+            smp.y[i] = fitted.get(i).copied().unwrap_or(f64::NAN) + sigma[i] * e;
+            smp.sigma[i] = given_sigma[i];
+        }
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn batch_size_follows_jcgm_minimum() {
+        // JCGM 101:2008, 7.2.2: M >= 100 / (1 - p); p = 0.95 -> 2000 (clause text).
+        assert_eq!(batch_size(0.95), 2000);
+        assert_eq!(batch_size(0.6827), 316);
+        assert_eq!(batch_size(0.1), 112);
+    }
+
+    #[test]
+    fn stability_rule() {
+        // Batch SDs 1.0, 1.02, 0.98 -> s_u = 0.02/sqrt(3) = 0.01155; with u = 1,
+        // 2 s_u = 0.0231: stable at tolerance 0.03, not at 0.02.
+        let outcomes: Vec<Outcome> = [-1.0, 1.0, -1.0, 1.0]
+            .iter()
+            .map(|v| Outcome::Ok(vec![*v * (3.0f64 / 4.0).sqrt(), 0.0]))
+            .collect();
+        let u_all = resample::mean_std(&[-1.0, 1.0, -1.0, 1.0].map(|v: f64| v * 0.75f64.sqrt())).1;
+        assert!((u_all - 1.0).abs() < 1e-12);
+        let batch_u = vec![vec![1.0, 0.0], vec![1.02, 0.0], vec![0.98, 0.0]];
+        let free = [true, false];
+        assert!(is_stable(&outcomes, &batch_u, &free, 0.03));
+        assert!(!is_stable(&outcomes, &batch_u, &free, 0.02));
+    }
 }

@@ -1,12 +1,31 @@
 //! The refit primitive: weighted least squares by Levenberg-Marquardt or
 //! steepest descent, with bounds, fixed parameters and covariance.
 //!
-//! OWNER NOTE (scaffold): the types and signatures below are the pinned API
-//! that every diagnostic calls. Implementation goes in submodules.
+//! The types and signatures in this module are the pinned API that every
+//! diagnostic calls. The work is done in submodules:
+//!
+//! - `refitter`: the reusable workspace [`Refitter`] (no allocation in the
+//!   loop) and the evaluation helpers;
+//! - `lm`: Levenberg-Marquardt with a trust region, More's scaling and
+//!   optional geodesic acceleration;
+//! - `steepest`: steepest descent with a backtracking Armijo rule;
+//! - `linalg`: Householder QR and Jacobi SVD over caller buffers;
+//! - `covariance`: covariance, rank and null space from the SVD;
+//! - `result`: [`fit`], [`fit_from`], [`analyse`] and their result types.
 
-use crate::data::Dataset;
 use crate::model::ModelFn;
 use serde::{Deserialize, Serialize};
+
+mod covariance;
+mod linalg;
+mod lm;
+mod refitter;
+mod result;
+mod steepest;
+
+pub use covariance::{RANK_TOLERANCE, UNDETERMINED_WEIGHT};
+pub use refitter::Refitter;
+pub use result::{analyse, fit, fit_from, FitError, FitResult, ParamResult};
 
 /// Minimisation method.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
@@ -146,121 +165,4 @@ pub struct Refit {
     pub iterations: usize,
     /// Model evaluations (values, with or without Jacobian).
     pub evaluations: usize,
-}
-
-// ---- STUB section: replaced by the fit engine branch (same signatures) ----
-
-/// Reusable workspace for refits (STUB).
-pub struct Refitter {
-    params: Vec<f64>,
-}
-
-impl Refitter {
-    /// Workspace for `n_points` points (STUB).
-    pub fn new(problem: &Problem, n_points: usize) -> Refitter {
-        let _ = n_points;
-        Refitter {
-            params: problem.params.iter().map(|p| p.start).collect(),
-        }
-    }
-    /// Minimise chi2 on `data` from `start`; `free[j] == false` holds a_j (STUB).
-    pub fn refit(&mut self, problem: &Problem, data: &DataView, start: &[f64], free: &[bool]) -> Refit {
-        let _ = (problem, data, free);
-        self.params.copy_from_slice(start);
-        unimplemented!("fit engine not merged yet")
-    }
-    /// Solution of the last refit.
-    pub fn params(&self) -> &[f64] {
-        &self.params
-    }
-}
-
-/// A fitted parameter.
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct ParamResult {
-    /// Name.
-    pub name: String,
-    /// Estimate.
-    pub value: f64,
-    /// Standard error (None when fixed, at a bound or undetermined).
-    pub std_error: Option<f64>,
-    /// Ended on a bound.
-    pub at_bound: bool,
-    /// Held fixed.
-    pub fixed: bool,
-}
-
-/// A full fit with covariance (STUB layout).
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct FitResult {
-    /// Converged.
-    pub converged: bool,
-    /// Stop reason.
-    pub stop_reason: StopReason,
-    /// Iterations.
-    pub iterations: usize,
-    /// Evaluations.
-    pub evaluations: usize,
-    /// Chi-squared.
-    pub chi2: f64,
-    /// Degrees of freedom.
-    pub dof: usize,
-    /// chi2/dof.
-    pub reduced_chi2: f64,
-    /// P(chi2_dof > chi2).
-    pub p_value: f64,
-    /// Parameters.
-    pub parameters: Vec<ParamResult>,
-    /// Covariance (m x m).
-    pub covariance: Vec<Vec<f64>>,
-    /// Correlation (m x m).
-    pub correlation: Vec<Vec<f64>>,
-    /// Scaled by chi2/dof.
-    pub covariance_scaled: bool,
-    /// Condition number of the weighted Jacobian.
-    pub condition_number: f64,
-    /// Rank.
-    pub rank: usize,
-    /// Undetermined directions.
-    pub undetermined: Vec<Vec<(String, f64)>>,
-    /// Model values at the solution.
-    pub fitted: Vec<f64>,
-    /// Normalised residuals (y - f)/sigma.
-    pub residuals: Vec<f64>,
-    /// Hat-matrix diagonal.
-    pub leverage: Vec<f64>,
-}
-
-/// Fit errors (STUB).
-#[derive(Debug, thiserror::Error)]
-pub enum FitError {
-    /// Not finite at start.
-    #[error("model is not finite at the start (point {point})")]
-    NotFiniteAtStart {
-        /// Point index.
-        point: usize,
-    },
-}
-
-/// Full fit from the specs' starts (STUB).
-pub fn fit(problem: &Problem, data: &Dataset) -> Result<FitResult, FitError> {
-    let start: Vec<f64> = problem.params.iter().map(|p| p.start).collect();
-    fit_from(problem, data, &start)
-}
-
-/// Full fit from a given start (STUB).
-pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitResult, FitError> {
-    let _ = (problem, data, start);
-    unimplemented!("fit engine not merged yet")
-}
-
-/// Covariance and derived quantities at `params` (STUB).
-pub fn analyse(
-    problem: &Problem,
-    data: &Dataset,
-    params: &[f64],
-    refit: &Refit,
-) -> Result<FitResult, FitError> {
-    let _ = (problem, data, params, refit);
-    unimplemented!("fit engine not merged yet")
 }

@@ -2,10 +2,35 @@
 //! exact first derivatives, and the [`ModelFn`] trait every fit evaluates
 //! through.
 //!
-//! OWNER NOTE (scaffold): the items below are the pinned public API. The
-//! parser/compiler replaces the `compile` stub; keep the signatures.
+//! # The formula language
+//!
+//! ```text
+//! a1*exp(-k1*t) + a2*exp(-k2*t)        b1*(1-exp[-b2*x])        b1/((1+exp(b2-b3*x))^(1/b4))
+//! ```
+//!
+//! * numbers: `2`, `-0.5`, `.5`, `1e-3`, `2.5E+00`;
+//! * operators `+ - * /`, power `^` (or `**`, right-associative, binding
+//!   tighter than unary minus: `-x^2` is `-(x^2)`, and `2^-1` is `0.5`);
+//! * parentheses, and square brackets used as parentheses;
+//! * the functions of [`catalogue`] and the constants of [`constants`];
+//! * names, resolved in this order: parameters, named constants of the
+//!   study, data columns (independent variables), built-in constants.
+//!
+//! [`compile`] turns a formula into a [`Tape`]: a flat instruction list that
+//! computes the value and the exact derivative with respect to every
+//! parameter (symbolic differentiation, never finite differences), with
+//! common subexpressions shared and constants folded. The tape evaluates
+//! column-wise over blocks of data points into caller-provided buffers.
 
 use std::fmt;
+
+mod catalogue;
+mod graph;
+mod ops;
+mod parser;
+mod tape;
+
+pub use parser::MAX_DEPTH;
 
 /// The first point at which a model value or derivative was not finite.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -138,6 +163,44 @@ pub enum ModelErrorKind {
         /// The limit.
         limit: usize,
     },
+    /// A function called with the wrong number of arguments.
+    Arity {
+        /// The function name.
+        function: String,
+        /// How many arguments it takes.
+        expected: usize,
+        /// How many were given.
+        found: usize,
+    },
+}
+
+impl fmt::Display for ModelErrorKind {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            ModelErrorKind::Syntax(msg) => write!(f, "{msg}"),
+            ModelErrorKind::UnknownName { name, suggestion } => {
+                write!(f, "unknown name '{name}'")?;
+                if let Some(s) = suggestion {
+                    write!(f, " (did you mean '{s}'?)")?;
+                }
+                Ok(())
+            }
+            ModelErrorKind::TooDeep { limit } => {
+                write!(f, "the formula is nested more than {limit} levels deep")
+            }
+            ModelErrorKind::Arity {
+                function,
+                expected,
+                found,
+            } => {
+                let plural = if *expected == 1 { "" } else { "s" };
+                write!(
+                    f,
+                    "function '{function}' takes {expected} argument{plural}, {found} given"
+                )
+            }
+        }
+    }
 }
 
 /// A formula error with the position the user must fix.
@@ -151,23 +214,52 @@ pub struct ModelError {
     pub formula: String,
 }
 
+/// Prints the message with the column, then the formula on one line and a
+/// caret under the offending character on the next:
+///
+/// ```text
+/// unknown name 'k3' (did you mean 'k2'?) at column 4
+///   a1*k3*t
+///      ^
+/// ```
 impl fmt::Display for ModelError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(
-            f,
-            "{:?} at column {:?} in {}",
-            self.kind, self.column, self.formula
-        )
+        write!(f, "{}", self.kind)?;
+        // Line breaks inside the formula are shown as spaces so that the
+        // formula stays on one line and columns still line up.
+        let line: String = self
+            .formula
+            .chars()
+            .map(|c| if c == '\n' || c == '\r' { ' ' } else { c })
+            .collect();
+        match self.column {
+            Some(col) => {
+                writeln!(f, " at column {col}")?;
+                writeln!(f, "  {line}")?;
+                let pad: String = line
+                    .chars()
+                    .take(col.saturating_sub(1))
+                    .map(|c| if c == '\t' { '\t' } else { ' ' })
+                    .collect();
+                write!(f, "  {pad}^")
+            }
+            None => write!(f, "\n  {line}"),
+        }
     }
 }
 
 impl std::error::Error for ModelError {}
 
-/// A compiled formula (STUB: replaced by the compiler).
+/// A compiled formula: value and exact Jacobian as flat instruction
+/// programs. Cheap to clone, `Send + Sync`, evaluated through [`ModelFn`].
 #[derive(Debug, Clone)]
 pub struct Tape {
     formula: String,
     n_params: usize,
+    n_vars: usize,
+    used: Vec<bool>,
+    value_prog: tape::Program,
+    full_prog: tape::Program,
 }
 
 impl Tape {
@@ -175,37 +267,114 @@ impl Tape {
     pub fn formula(&self) -> &str {
         &self.formula
     }
-    /// Whether the formula depends on parameter `j` at all.
+
+    /// Whether the formula depends on parameter `j` at all. A parameter that
+    /// does not appear (or cancels out on simplification, like `0*b`) has
+    /// a zero Jacobian column.
     pub fn uses_parameter(&self, j: usize) -> bool {
-        j < self.n_params
+        self.used.get(j).copied().unwrap_or(false)
+    }
+
+    /// Number of independent variables (`x` columns) the tape expects.
+    pub fn n_vars(&self) -> usize {
+        self.n_vars
+    }
+
+    /// Number of column instructions of the value-and-Jacobian program
+    /// (a measure of the optimiser's work; see the benchmarks).
+    pub fn n_instructions(&self) -> usize {
+        self.full_prog.n_instructions()
+    }
+
+    /// Convenience: value and gradient at a single point `x_row` (one
+    /// number per independent variable). Allocates; use [`ModelFn::eval`]
+    /// for many points.
+    ///
+    /// # Panics
+    /// When `params` or `x_row` have the wrong length.
+    pub fn eval_point(&self, params: &[f64], x_row: &[f64]) -> (f64, Vec<f64>) {
+        let cols: Vec<&[f64]> = x_row.iter().map(std::slice::from_ref).collect();
+        let mut v = [0.0];
+        let mut g = vec![0.0; self.n_params];
+        let mut scratch = Vec::new();
+        let _ = self.eval(params, &cols, &mut v, Some(&mut g), &mut scratch);
+        (v[0], g)
     }
 }
 
+/// # Panics
+/// On a violated size contract: `params.len() != n_params()`, fewer than
+/// `n_vars()` columns in `x`, a column shorter than `values`, or a `jac`
+/// buffer whose length is not `values.len() * n_params()`.
 impl ModelFn for Tape {
     fn n_params(&self) -> usize {
         self.n_params
     }
+
     fn eval(
         &self,
-        _params: &[f64],
-        _x: &[&[f64]],
-        _values: &mut [f64],
-        _jac: Option<&mut [f64]>,
-        _scratch: &mut Vec<f64>,
+        params: &[f64],
+        x: &[&[f64]],
+        values: &mut [f64],
+        jac: Option<&mut [f64]>,
+        scratch: &mut Vec<f64>,
     ) -> Result<(), NonFinite> {
-        unimplemented!("stub")
+        let n = values.len();
+        assert_eq!(
+            params.len(),
+            self.n_params,
+            "parameter vector has the wrong length"
+        );
+        assert!(
+            x.len() >= self.n_vars,
+            "formula needs {} data columns, {} given",
+            self.n_vars,
+            x.len()
+        );
+        for col in &x[..self.n_vars] {
+            assert!(col.len() >= n, "data column shorter than the value buffer");
+        }
+        match jac {
+            Some(j) => {
+                assert_eq!(
+                    j.len(),
+                    n * self.n_params,
+                    "Jacobian buffer must hold n * n_params values"
+                );
+                self.full_prog.run(params, x, values, Some(j), scratch)
+            }
+            None => self.value_prog.run(params, x, values, None, scratch),
+        }
     }
 }
 
-/// Compiles a formula against the given names (STUB).
+/// Compiles a formula against the given names.
+///
+/// Errors name the 1-based column: syntax errors, unknown names (with the
+/// closest known name as a suggestion), wrong argument counts, and nesting
+/// deeper than [`MAX_DEPTH`]. No input makes this function panic.
 pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
-    Err(ModelError {
-        kind: ModelErrorKind::Syntax(format!(
-            "compiler not built yet ({} parameters)",
-            symbols.parameters.len()
-        )),
-        column: None,
+    let mut g = graph::Graph::new();
+    let root = parser::parse(formula, symbols, &mut g).map_err(|(kind, col)| ModelError {
+        kind,
+        column: Some(col),
         formula: formula.to_string(),
+    })?;
+    let n_params = symbols.parameters.len();
+    let used = g.parameters_used(root, n_params);
+    let mut roots = vec![root];
+    for (j, &u) in used.iter().enumerate() {
+        roots.push(if u { g.derivative(root, j) } else { g.konst(0.0) });
+    }
+    let value_prog = tape::Program::lower(&g, &roots[..1]);
+    let full_prog = tape::Program::lower(&g, &roots);
+    Ok(Tape {
+        formula: formula.to_string(),
+        n_params,
+        n_vars: symbols.variables.len(),
+        used,
+        value_prog,
+        full_prog,
     })
 }
 
@@ -220,7 +389,13 @@ pub struct FunctionInfo {
     pub description: &'static str,
 }
 
-/// The functions and constants the formula language knows (STUB).
+/// The functions the formula language knows, with arity and description.
 pub fn catalogue() -> &'static [FunctionInfo] {
-    &[]
+    catalogue::FUNCTIONS
+}
+
+/// The built-in constants (`pi`, `e`) with their values. Parameters, study
+/// constants and data columns of the same name take precedence.
+pub fn constants() -> &'static [(&'static str, f64)] {
+    catalogue::CONSTANTS
 }

@@ -17,7 +17,7 @@ use crate::audit::AuditResults;
 use crate::diagnostics::verdict::Status;
 use crate::report::figures::svg::inline;
 use crate::report::tables::{self, Table};
-use crate::report::{better_minimum, format, Figures, Renderer, ReportError, CAUTION};
+use crate::report::{better_minimum, format, profile_below_base, Figures, Renderer, ReportError, CAUTION};
 
 /// Section headings of the page, in order (the lead notice is not a section).
 pub const SECTIONS: [&str; 8] = [
@@ -146,15 +146,31 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     let _ = writeln!(o, "<style>{CSS}</style>\n</head>\n<body>");
 
     // The lead notice comes before everything else.
+    let mut lead = Vec::new();
     if let Some((base, best)) = better_minimum(results) {
+        lead.push(format!(
+            "The multi-start search found a minimum with chi-squared = {} where the base fit has \
+             chi-squared = {}.",
+            format::chi2(best),
+            format::chi2(base)
+        ));
+    }
+    for (name, value, chi2) in profile_below_base(results) {
+        lead.push(format!(
+            "The profile of {name} reaches chi-squared = {} at {name} = {}, below the base fit's {}.",
+            format::chi2(chi2),
+            format::sig(value, 6),
+            format::chi2(results.fit.chi2)
+        ));
+    }
+    if !lead.is_empty() {
+        let paras: Vec<String> = lead.iter().map(|p| format!("<p>{}</p>", escape(p))).collect();
         let _ = writeln!(
             o,
             "<div class=\"notice\" role=\"alert\"><p><strong>The base fit is not the best minimum \
-             found.</strong></p><p>The multi-start search found a minimum with chi-squared = {} where the \
-             base fit has chi-squared = {}. The values and uncertainties below describe the base fit, \
-             which is a local minimum: refit from the better minimum before quoting any of them.</p></div>",
-            escape(&format::chi2(best)),
-            escape(&format::chi2(base))
+             found.</strong></p>{}<p>The values and uncertainties below describe the base fit, which is a \
+             local minimum: refit from the better minimum before quoting any of them.</p></div>",
+            paras.join("")
         );
     }
 

@@ -9,7 +9,7 @@ use std::fmt::Write as _;
 
 use crate::audit::AuditResults;
 use crate::report::tables::{self, Table};
-use crate::report::{better_minimum, format, Figures, Renderer, ReportError, CAUTION};
+use crate::report::{better_minimum, format, profile_below_base, Figures, Renderer, ReportError, CAUTION};
 
 /// Escapes text for a Markdown table cell or paragraph.
 pub fn escape(s: &str) -> String {
@@ -62,6 +62,18 @@ pub fn summary(results: &AuditResults) -> String {
              local minimum.\n",
             format::chi2(best),
             format::chi2(base)
+        );
+    }
+    for (name, value, chi2) in profile_below_base(results) {
+        let _ = writeln!(
+            o,
+            "> **The base fit is not the minimum.** The profile of {} reaches chi-squared = {} at {} = {}, \
+             below the base fit's {}.\n",
+            escape(&name),
+            format::chi2(chi2),
+            escape(&name),
+            format::sig(value, 6),
+            format::chi2(results.fit.chi2)
         );
     }
     let _ = writeln!(

@@ -130,6 +130,23 @@ pub fn better_minimum(results: &AuditResults) -> Option<(f64, f64)> {
     Some((ms.base_chi2, best))
 }
 
+/// The profile points that lie below the base fit's chi-squared:
+/// `(parameter, held value, chi2 there)`. Such a point means the base fit is
+/// not the minimum; the report leads with it like a better multi-start minimum.
+pub fn profile_below_base(results: &AuditResults) -> Vec<(String, f64, f64)> {
+    let Some(p) = &results.profile else {
+        return Vec::new();
+    };
+    p.parameters
+        .iter()
+        .filter_map(|q| {
+            q.below_minimum
+                .as_ref()
+                .map(|b| (q.name.clone(), b.value, b.chi2))
+        })
+        .collect()
+}
+
 /// The caution that closes every report.
 pub const CAUTION: &str = "Statistics support, and do not replace, a laboratory's own validation \
 procedure and the applicable standards. The diagnostics in this report show how far the quoted \

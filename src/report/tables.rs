@@ -5,6 +5,7 @@
 use std::collections::BTreeMap;
 
 use crate::audit::AuditResults;
+use crate::diagnostics::profile::EndStatus;
 use crate::diagnostics::resample::{ResampleResult, ResampledParameter};
 use crate::diagnostics::verdict::Status;
 use crate::fit::{FitResult, ParamResult, StopReason};
@@ -127,7 +128,11 @@ pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
         ),
         (
             s("Condition number of the weighted Jacobian"),
-            format::sig(fit.condition_number, 3),
+            if fit.condition_number == f64::MAX {
+                s("infinite (the weighted Jacobian is singular)")
+            } else {
+                format::sig(fit.condition_number, 3)
+            },
         ),
         (s("Rank"), format!("{} of {}", fit.rank, fit.parameters.len())),
         (
@@ -181,12 +186,25 @@ fn resampled<'a>(rs: Option<&'a ResampleResult>, name: &str) -> Option<&'a Resam
     rs.and_then(|rs| rs.parameters.iter().find(|p| p.name == name))
 }
 
-/// One profile end: the value, or "open beyond x" when not reached.
-fn profile_end(x: f64, found: bool, se: Option<f64>) -> String {
-    if found {
-        format::at_precision_of(x, se)
-    } else {
-        format!("open beyond {}", format::at_precision_of(x, se))
+/// How one side of a profile scan ended, in words.
+pub fn end_status_words(st: EndStatus) -> &'static str {
+    match st {
+        EndStatus::Found => "crossed the threshold",
+        EndStatus::Bound => "stayed below the threshold up to the parameter's bound",
+        EndStatus::ScanLimit => "stayed below the threshold up to the scan limit",
+        EndStatus::Unresolved => "refits failed before the crossing",
+    }
+}
+
+/// One profile end: the value, or why it is open.
+fn profile_end(x: f64, found: bool, status: EndStatus, se: Option<f64>) -> String {
+    let v = format::at_precision_of(x, se);
+    match (found, status) {
+        (true, _) | (false, EndStatus::Found) if x.is_finite() => v,
+        (_, EndStatus::Bound) => format!("open to the bound {v}"),
+        (_, EndStatus::Unresolved) => format!("unresolved near {v}"),
+        _ if x.is_finite() => format!("open beyond {v}"),
+        _ => "open".to_string(),
     }
 }
 
@@ -249,8 +267,8 @@ pub fn comparison(results: &AuditResults) -> Table {
             Some(q) => {
                 row.push(format!(
                     "[{}, {}]",
-                    profile_end(q.lower, q.lower_found, se),
-                    profile_end(q.upper, q.upper_found, se)
+                    profile_end(q.lower, q.lower_found, q.lower_status, se),
+                    profile_end(q.upper, q.upper_found, q.upper_status, se)
                 ));
                 row.push(match se {
                     Some(u) if q.lower_found && q.upper_found => {
@@ -284,17 +302,31 @@ pub fn failures(results: &AuditResults) -> Table {
     let mut rows = Vec::new();
     let not_run = |name: &str| vec![s(name), s("not run"), s(format::ABSENT), String::new()];
     let resample_row = |name: &str, unit: &str, rs: &ResampleResult| {
-        let mut details = reasons_counted(rs);
+        let mut details = vec![reasons_counted(rs)];
         if let Some(stable) = rs.adaptive_stable {
-            if !details.is_empty() {
-                details.push_str("; ");
-            }
-            details.push_str(if stable {
+            details.push(s(if stable {
                 "adaptive rule reached stability"
             } else {
                 "adaptive rule did not reach stability"
-            });
+            }));
         }
+        if rs.jackknife_refits > 0 {
+            details.push(format!(
+                "BCa jackknife: {} of {} refits failed{}",
+                rs.jackknife_failures.len(),
+                rs.jackknife_refits,
+                if rs.jackknife_failures.is_empty() {
+                    ""
+                } else {
+                    " (BCa interval not computed)"
+                }
+            ));
+        }
+        if let Some(ns) = rs.noise_scale {
+            details.push(format!("noise scale {}", format::sig(ns, 4)));
+        }
+        details.retain(|d| !d.is_empty());
+        let details = details.join("; ");
         vec![
             s(name),
             format!(
@@ -327,13 +359,26 @@ pub fn failures(results: &AuditResults) -> Table {
                 .filter(|q| !(q.lower_found && q.upper_found))
                 .map(|q| q.name.clone())
                 .collect();
-            let mut details = per.join(", ");
+            let mut details = vec![per.join(", ")];
             if !open.is_empty() {
-                if !details.is_empty() {
-                    details.push_str("; ");
-                }
-                details.push_str(&format!("interval open for {}", open.join(", ")));
+                details.push(format!("interval open for {}", open.join(", ")));
             }
+            let flat: Vec<String> = p
+                .parameters
+                .iter()
+                .filter(|q| q.non_identifiable)
+                .map(|q| q.name.clone())
+                .collect();
+            if !flat.is_empty() {
+                details.push(format!("practically non-identifiable: {}", flat.join(", ")));
+            }
+            if p.base_not_minimum {
+                details.push(s(
+                    "a profile point lies below the base fit: the base fit is not the minimum",
+                ));
+            }
+            details.retain(|d| !d.is_empty());
+            let details = details.join("; ");
             rows.push(vec![
                 s("Profile"),
                 format!(
@@ -351,11 +396,16 @@ pub fn failures(results: &AuditResults) -> Table {
         Some(cs) => {
             let nodes: usize = cs.iter().map(|c| c.grid.x.len() * c.grid.y.len()).sum();
             let failed: usize = cs.iter().map(|c| c.failed).sum();
-            let per: Vec<String> = cs
+            let mut per: Vec<String> = cs
                 .iter()
                 .filter(|c| c.failed > 0)
                 .map(|c| format!("{} / {}: {}", c.pair[0], c.pair[1], c.failed))
                 .collect();
+            per.extend(cs.iter().filter_map(|c| {
+                c.skipped
+                    .as_ref()
+                    .map(|e| format!("{} / {} skipped: {e}", c.pair[0], c.pair[1]))
+            }));
             rows.push(vec![
                 s("Contours"),
                 format!("{} pairs, {nodes} grid nodes", cs.len()),

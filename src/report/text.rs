@@ -9,7 +9,7 @@ use crate::audit::AuditResults;
 use crate::fit::{FitResult, ParamSpec};
 use crate::model::FunctionInfo;
 use crate::report::tables::{relative_error, status_word, stop_words};
-use crate::report::{better_minimum, format};
+use crate::report::{better_minimum, format, profile_below_base};
 
 /// Lays out rows in columns separated by two spaces; columns listed in
 /// `right` are right-aligned. Trailing spaces are trimmed.
@@ -120,6 +120,16 @@ pub fn verdict_lines(results: &AuditResults) -> String {
             "WARNING: the base fit is not the best minimum found: multi-start chi2 = {} < base fit chi2 = {}",
             format::chi2(best),
             format::chi2(base)
+        );
+    }
+    for (name, value, chi2) in profile_below_base(results) {
+        let _ = writeln!(
+            out,
+            "WARNING: the base fit is not the minimum: the profile of {name} reaches chi2 = {} at {name} = {} \
+             (base fit chi2 = {})",
+            format::chi2(chi2),
+            format::sig(value, 6),
+            format::chi2(results.fit.chi2)
         );
     }
     let rows: Vec<Vec<String>> = results

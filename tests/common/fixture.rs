@@ -14,7 +14,7 @@ use fitaudit::audit::{AuditResults, Curve, Provenance, StudyInfo, SCHEMA_VERSION
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::contour::{ContourGrid, ContourLine, ContourResult};
 use fitaudit::diagnostics::multistart::{Minimum, MultistartResult, NamedValue, StartRun};
-use fitaudit::diagnostics::profile::{ParameterProfile, ProfileResult};
+use fitaudit::diagnostics::profile::{EndStatus, ParameterProfile, ProfileResult};
 use fitaudit::diagnostics::resample::{FailedReplicate, ResampleResult, ResampledParameter};
 use fitaudit::diagnostics::verdict::{Status, Verdict};
 use fitaudit::fit::{FitResult, ParamResult, ParamSpec, StopReason};
@@ -110,6 +110,9 @@ fn resample(
             sd_ratio: Some(ratio),
             sd_ratio_uncertainty: Some(ratio / (2.0 * (n as f64 - 1.0)).sqrt()),
             asymmetry: Some((upper - VALUES[j]) / (VALUES[j] - lower)),
+            fixed: false,
+            acceleration: Some(0.004 * (j as f64 + 1.0)),
+            bias_correction: Some(-0.02 * j as f64),
         });
     }
     let mut corr = vec![vec![0.0; 3]; 3];
@@ -131,6 +134,9 @@ fn resample(
         correlation: corr,
         estimates: est,
         adaptive_stable: if scheme == "normal" { Some(true) } else { None },
+        jackknife_refits: 36,
+        jackknife_failures: vec![],
+        noise_scale: if scheme == "normal" { Some(1.0) } else { None },
     }
 }
 
@@ -183,6 +189,12 @@ fn profile(cov: &DMatrix<f64>, se: &[f64], chi2: f64) -> ProfileResult {
             parabola,
             asymmetry: Some((upper - VALUES[j]) / (VALUES[j] - lower)),
             failed: 0,
+            lower_status: EndStatus::Found,
+            upper_status: EndStatus::Found,
+            non_identifiable: false,
+            scale: se[j],
+            below_minimum: None,
+            refits: 30,
         });
     }
     ProfileResult {
@@ -191,6 +203,8 @@ fn profile(cov: &DMatrix<f64>, se: &[f64], chi2: f64) -> ProfileResult {
         chi2_min: chi2,
         parameters,
         failed: 0,
+        chi2_scale: 1.0,
+        base_not_minimum: false,
     }
 }
 
@@ -256,6 +270,9 @@ fn contours(cov: &DMatrix<f64>, se: &[f64], chi2: f64) -> Vec<ContourResult> {
                 })
                 .collect(),
             failed: 0,
+            chi2_min: chi2,
+            chi2_scale: 1.0,
+            skipped: None,
         });
     }
     out
@@ -549,6 +566,8 @@ pub fn with_non_finite() -> AuditResults {
     r.profile.as_mut().unwrap().parameters[2].points[20][1] = f64::NAN;
     r.profile.as_mut().unwrap().parameters[2].upper_found = false;
     r.profile.as_mut().unwrap().parameters[2].upper = f64::INFINITY;
+    r.profile.as_mut().unwrap().parameters[2].upper_status = EndStatus::ScanLimit;
+    r.profile.as_mut().unwrap().parameters[2].non_identifiable = true;
     r.contours.as_mut().unwrap()[0].grid.chi2[0][0] = f64::NAN;
     r.contours.as_mut().unwrap()[0].failed = 1;
     r.fit.correlation[0][2] = f64::NAN;
@@ -563,5 +582,31 @@ pub fn two_variables() -> AuditResults {
     r.data.x.push(t.iter().map(|v| 0.5 * v + 3.0).collect());
     r.data.x_names.push("u".into());
     r.curve = None;
+    r
+}
+
+/// The profile of tau dips below the base fit, and one contour pair was skipped.
+pub fn profile_below() -> AuditResults {
+    use fitaudit::diagnostics::contour::ContourError;
+    use fitaudit::diagnostics::profile::LowerPoint;
+    let mut r = cooling();
+    let chi2 = r.fit.chi2;
+    let p = r.profile.as_mut().unwrap();
+    p.base_not_minimum = true;
+    p.parameters[2].below_minimum = Some(LowerPoint {
+        value: 343.5,
+        chi2: chi2 - 0.75,
+        below_by: 0.75,
+        parameters: vec![21.45, 58.1, 343.5],
+    });
+    let c = &mut r.contours.as_mut().unwrap()[2];
+    c.skipped = Some(ContourError::EmptyRange { name: "tau".into() });
+    c.grid = ContourGrid {
+        x: vec![],
+        y: vec![],
+        chi2: vec![],
+    };
+    c.lines.clear();
+    c.ellipse.clear();
     r
 }

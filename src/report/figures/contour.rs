@@ -36,6 +36,9 @@ pub(crate) fn figure(
     c: &ContourResult,
     file: String,
 ) -> Result<Option<Figure>, ReportError> {
+    if c.skipped.is_some() {
+        return Ok(None);
+    }
     let [a, b] = [&c.pair[0], &c.pair[1]];
     let frame_pts = c
         .lines

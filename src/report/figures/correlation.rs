@@ -36,10 +36,26 @@ fn shorten(name: &str, max: usize) -> String {
 
 /// The heat map, or None with fewer than two parameters.
 pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportError> {
-    let r = &results.fit.correlation;
-    let names: Vec<&str> = results.fit.parameters.iter().map(|p| p.name.as_str()).collect();
+    let full = &results.fit.correlation;
+    let all = results.fit.parameters.len();
+    if full.len() != all || full.iter().any(|row| row.len() != all) {
+        return Ok(None);
+    }
+    // Only the estimated parameters: fixed, at-bound and undetermined ones
+    // have rows of zeros.
+    let keep: Vec<usize> = (0..all)
+        .filter(|&j| results.fit.parameters[j].std_error.is_some())
+        .collect();
+    let names: Vec<&str> = keep
+        .iter()
+        .map(|&j| results.fit.parameters[j].name.as_str())
+        .collect();
+    let r: Vec<Vec<f64>> = keep
+        .iter()
+        .map(|&i| keep.iter().map(|&j| full[i][j]).collect())
+        .collect();
     let m = names.len();
-    if m < 2 || r.len() != m || r.iter().any(|row| row.len() != m) {
+    if m < 2 {
         return Ok(None);
     }
     let cell = (480 / m as i32).clamp(34, 90);
@@ -105,7 +121,12 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         caption: format!(
             "Correlation coefficients of the {m} parameters from the covariance matrix of the base fit; the \
              darker the cell, the larger |r|. Values near \u{b1}1 mean the data hardly separate the two \
-             parameters."
+             parameters.{}",
+            if m < all {
+                " Parameters without a standard error (fixed, at a bound or undetermined) are left out."
+            } else {
+                ""
+            }
         ),
         svg: text,
     }))

@@ -1,0 +1,804 @@
+//! Study files: a TOML file naming a data file, a formula, its parameters
+//! and the audit settings, read, resolved and checked into a [`Study`] that
+//! is ready to fit.
+//!
+//! ```toml
+//! title = "Cooling of a sealed vial"     # optional
+//!
+//! [data]
+//! file = "cooling.csv"      # relative to the study file; absolute allowed
+//! x = "t"                   # one column, or a list: x = ["x1", "x2"]
+//! y = "temp"
+//! sigma = "u_temp"          # optional: a column, or one number for all points
+//! columns = { temp = "Temp (°C)", u_temp = "u(T) / K" }   # optional aliases
+//!
+//! [model]
+//! formula = "T_env + dT*exp(-t/tau)"
+//!
+//! [parameters]              # every parameter of the formula, in vector order
+//! T_env = { start = 20.0 }
+//! dT    = { start = 50.0, min = 0 }
+//! tau   = { start = 300, min = 1, max = 1e5, fixed = false }
+//!
+//! [constants]               # optional: name = number
+//! T0 = 273.15
+//!
+//! [fit]                     # optional
+//! method = "lm"             # "lm" | "steepest"
+//! scale_covariance = false  # absent: scale by chi2/dof only without sigma
+//! max_iterations = 1000
+//! geodesic = false
+//!
+//! [audit]                   # optional, see crate::settings::AuditSettings
+//! seed = 1
+//! ```
+//!
+//! Rules the loader enforces (each failure is a [`StudyError`] naming the
+//! file and line/column or key):
+//!
+//! * every table rejects unknown keys;
+//! * parameters are ordered as they appear in the file; each needs a finite
+//!   `start` inside `[min, max]`, and `min < max`; every declared parameter
+//!   must appear in the formula;
+//! * names resolve parameters first, then constants, then x columns; a
+//!   parameter or constant with the name of another parameter, constant or
+//!   x column is an error (the other could never be read);
+//! * **aliases**: `data.columns` maps an identifier to a CSV header, so a
+//!   header such as `Temp (°C)` can be used. `x`, `y` and `sigma` may name a
+//!   column by alias or by its exact header; x columns must be named by an
+//!   identifier (they appear in the formula). An alias may not equal a
+//!   different header of the file;
+//! * the data file is read as described in [`csv`](self::read_csv); only the
+//!   columns used must be numeric; a header used twice is an error only when
+//!   that header is used;
+//! * sigma values must be positive; at least (free parameters + 1) points;
+//! * an x column that holds a single value is a [`StudyWarning`] when other
+//!   x columns vary, and an error when every x column is constant;
+//! * the model must be finite (value and derivatives) at the starting values
+//!   for every point; the error names the first bad point's data line.
+
+mod csv;
+mod error;
+mod spec;
+
+pub use self::csv::{parse_raw, read_csv, RawTable, Table};
+pub use self::error::{At, Shadow, StudyError};
+pub use self::spec::{DataSpec, FitSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec};
+
+use crate::data::Dataset;
+use crate::fit::{FitOptions, ParamSpec, Problem};
+use crate::model::{self, ModelErrorKind, ModelFn, Symbols, Tape};
+use crate::settings::AuditSettings;
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+/// A study resolved, checked and compiled, ready to fit.
+#[derive(Debug, Clone)]
+pub struct Study {
+    /// The study file (or a virtual name).
+    pub path: PathBuf,
+    /// File stem, used for `out/<name>/`.
+    pub name: String,
+    /// Title from the file.
+    pub title: Option<String>,
+    /// The data file as resolved (None for a programmatic data set).
+    pub data_file: Option<PathBuf>,
+    /// The formula.
+    pub formula: String,
+    /// Parameters in vector order.
+    pub parameters: Vec<ParamSpec>,
+    /// Named constants.
+    pub constants: Vec<(String, f64)>,
+    /// The data.
+    pub dataset: Dataset,
+    /// `[audit]`, validated.
+    pub audit: AuditSettings,
+    /// `[fit]`, resolved.
+    pub fit_options: FitOptions,
+    /// The compiled formula.
+    pub model: Tape,
+    /// SHA-256 (hex) of the study file's bytes, when read from a file.
+    pub study_sha256: Option<String>,
+    /// SHA-256 (hex) of the data file's bytes, when read from a file.
+    pub data_sha256: Option<String>,
+    /// Source line of each point in the data file.
+    pub data_lines: Option<Vec<usize>>,
+    /// Things worth telling the user that do not stop the study.
+    pub warnings: Vec<StudyWarning>,
+}
+
+/// A condition that does not stop the study.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum StudyWarning {
+    /// One x column holds a single value (others vary).
+    ConstantXColumn {
+        /// The column.
+        column: String,
+    },
+}
+
+impl fmt::Display for StudyWarning {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            StudyWarning::ConstantXColumn { column } => {
+                write!(
+                    f,
+                    "x column `{column}` holds one value only: the data carry no information on it"
+                )
+            }
+        }
+    }
+}
+
+/// Reads a study file and its data file, resolves and checks everything.
+pub fn load(path: &Path) -> Result<Study, StudyError> {
+    let bytes = std::fs::read(path).map_err(|source| StudyError::ReadStudy {
+        at: Box::new(At::file(path)),
+        source,
+    })?;
+    let text = match std::str::from_utf8(&bytes) {
+        Ok(t) => t,
+        Err(e) => {
+            let good = std::str::from_utf8(&bytes[..e.valid_up_to()]).unwrap_or("");
+            let (l, c) = spec::line_col(good, good.len());
+            return Err(StudyError::StudyNotUtf8 {
+                at: Box::new(At::cell(path, l, c)),
+            });
+        }
+    };
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let spec = StudySpec::from_toml_str(text, path)?;
+    let name = path
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "study".to_string());
+    let base = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    let mut study = Study::from_spec(spec, &base, &name)?;
+    study.study_sha256 = Some(sha256_hex(&bytes));
+    Ok(study)
+}
+
+fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::{Digest, Sha256};
+    Sha256::digest(bytes).iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// True for names a formula can use: an ASCII letter or `_`, then letters,
+/// digits or `_`.
+pub fn is_identifier(s: &str) -> bool {
+    let mut c = s.chars();
+    matches!(c.next(), Some(ch) if ch.is_ascii_alphabetic() || ch == '_')
+        && c.all(|ch| ch.is_ascii_alphanumeric() || ch == '_')
+}
+
+/// A name a formula can use, built from a header such as `time (s)`: its
+/// first run of identifier characters (`time`), else `x1`.
+fn suggest_identifier(header: &str) -> String {
+    let run: String = header
+        .chars()
+        .skip_while(|c| !(c.is_ascii_alphabetic() || *c == '_'))
+        .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+        .collect();
+    if run.is_empty() {
+        "x1".to_string()
+    } else {
+        run
+    }
+}
+
+/// Where the data came from.
+struct DataSource {
+    file: PathBuf,
+    lines: Vec<usize>,
+    sha256: String,
+}
+
+impl Study {
+    /// Resolves a spec whose `data.file` is relative to `base_dir`; reads
+    /// the data file. `name` is the study name (`out/<name>/`).
+    pub fn from_spec(mut spec: StudySpec, base_dir: &Path, name: &str) -> Result<Study, StudyError> {
+        if spec.origin.as_os_str().is_empty() {
+            spec.origin = PathBuf::from(name);
+        }
+        let (params, options) = check_spec(&spec)?;
+        if spec.data.file.as_os_str().is_empty() {
+            return Err(StudyError::Invalid {
+                at: Box::new(spec.at("data.file")),
+                key: "data.file".into(),
+                why: "is missing or empty: name the data file (CSV), relative to the study file".into(),
+            });
+        }
+        let file = base_dir.join(&spec.data.file);
+        let bytes = std::fs::read(&file).map_err(|source| StudyError::ReadData {
+            at: Box::new(At::file(&file)),
+            key_at: Box::new(spec.at("data.file")),
+            source,
+        })?;
+        let raw = parse_raw(&bytes, &file)?;
+        let dataset = dataset_from_table(&spec, &raw)?;
+        let source = DataSource {
+            file,
+            lines: raw.lines.clone(),
+            sha256: sha256_hex(&bytes),
+        };
+        finish(spec, params, options, dataset, Some(source), name)
+    }
+
+    /// Resolves a spec against a data set built in code; `spec.data` is
+    /// ignored (the data set carries names, values and sigma).
+    pub fn from_dataset(mut spec: StudySpec, dataset: Dataset, name: &str) -> Result<Study, StudyError> {
+        if spec.origin.as_os_str().is_empty() {
+            spec.origin = PathBuf::from(name);
+        }
+        let (params, options) = check_spec(&spec)?;
+        check_dataset(&spec, &dataset)?;
+        finish(spec, params, options, dataset, None, name)
+    }
+
+    /// The fitting problem: model, parameters and optimiser settings.
+    pub fn problem(&self) -> Problem<'_> {
+        Problem {
+            model: &self.model,
+            params: self.parameters.clone(),
+            options: self.fit_options.clone(),
+        }
+    }
+
+    /// Number of parameters that are not fixed.
+    pub fn free_parameters(&self) -> usize {
+        self.parameters.iter().filter(|p| !p.fixed).count()
+    }
+}
+
+fn invalid(spec: &StudySpec, key: &str, why: impl Into<String>) -> StudyError {
+    StudyError::Invalid {
+        at: Box::new(spec.at(key)),
+        key: key.to_string(),
+        why: why.into(),
+    }
+}
+
+/// Checks everything that does not need the data: settings, parameters,
+/// constants. Returns the parameters and the optimiser settings.
+fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyError> {
+    spec.audit
+        .validate()
+        .map_err(|(key, why)| invalid(spec, &key, why))?;
+    let options = spec
+        .fit
+        .to_options()
+        .map_err(|(key, why)| invalid(spec, &key, why))?;
+    if spec.parameters.is_empty() {
+        return Err(StudyError::NoParameters {
+            at: Box::new(spec.at("parameters")),
+        });
+    }
+    let mut params = Vec::with_capacity(spec.parameters.len());
+    for (i, (name, e)) in spec.parameters.iter().enumerate() {
+        let key = format!("parameters.{name}");
+        if !is_identifier(name) {
+            return Err(invalid(
+                spec,
+                &key,
+                "is not a name a formula can use (letters, digits and `_`, not starting with a digit)",
+            ));
+        }
+        if spec.parameters[..i].iter().any(|(n, _)| n == name) {
+            return Err(invalid(spec, &key, "is declared twice"));
+        }
+        let Some(start) = e.start else {
+            return Err(StudyError::MissingStart {
+                at: Box::new(spec.at(&key)),
+                name: name.clone(),
+            });
+        };
+        if !start.is_finite() {
+            return Err(invalid(spec, &format!("{key}.start"), "must be a finite number"));
+        }
+        let min = e.min.unwrap_or(f64::NEG_INFINITY);
+        let max = e.max.unwrap_or(f64::INFINITY);
+        if min.is_nan() || min == f64::INFINITY {
+            return Err(invalid(
+                spec,
+                &format!("{key}.min"),
+                "must be a number below +inf",
+            ));
+        }
+        if max.is_nan() || max == f64::NEG_INFINITY {
+            return Err(invalid(
+                spec,
+                &format!("{key}.max"),
+                "must be a number above -inf",
+            ));
+        }
+        if min >= max {
+            return Err(StudyError::EmptyBounds {
+                at: Box::new(spec.at(&format!("{key}.min"))),
+                name: name.clone(),
+                min,
+                max,
+            });
+        }
+        if start < min || start > max {
+            return Err(StudyError::StartOutsideBounds {
+                at: Box::new(spec.at(&format!("{key}.start"))),
+                name: name.clone(),
+                start,
+                min,
+                max,
+            });
+        }
+        params.push(ParamSpec {
+            name: name.clone(),
+            start,
+            min,
+            max,
+            fixed: e.fixed,
+        });
+    }
+    if let Some(pairs) = &spec.audit.contours.pairs {
+        for (i, pair) in pairs.iter().enumerate() {
+            let key = format!("audit.contours.pairs[{i}]");
+            for name in pair {
+                match params.iter().find(|p| &p.name == name) {
+                    None => {
+                        let known: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+                        return Err(invalid(
+                            spec,
+                            &key,
+                            format!(
+                                "names `{name}`, which is not a declared parameter; parameters: {}",
+                                error::name_list(&known)
+                            ),
+                        ));
+                    }
+                    Some(p) if p.fixed => {
+                        return Err(invalid(
+                            spec,
+                            &key,
+                            format!(
+                                "names `{name}`, which is fixed: a contour map needs two free parameters"
+                            ),
+                        ));
+                    }
+                    Some(_) => {}
+                }
+            }
+            if pair[0] == pair[1] {
+                return Err(invalid(spec, &key, "names the same parameter twice"));
+            }
+        }
+    }
+    for (i, (name, v)) in spec.constants.iter().enumerate() {
+        let key = format!("constants.{name}");
+        if !is_identifier(name) {
+            return Err(invalid(
+                spec,
+                &key,
+                "is not a name a formula can use (letters, digits and `_`, not starting with a digit)",
+            ));
+        }
+        if spec.constants[..i].iter().any(|(n, _)| n == name) {
+            return Err(invalid(spec, &key, "is declared twice"));
+        }
+        if !v.is_finite() {
+            return Err(invalid(spec, &key, "must be a finite number"));
+        }
+        if spec.parameters.iter().any(|(n, _)| n == name) {
+            return Err(StudyError::Shadowing {
+                at: Box::new(spec.at(&key)),
+                name: name.clone(),
+                kind: Shadow::ConstantIsParameter,
+            });
+        }
+    }
+    Ok((params, options))
+}
+
+/// Finds `header` among the table's headers: exactly once, or an error.
+fn find_header(
+    spec: &StudySpec,
+    raw: &RawTable,
+    key: &str,
+    header: &str,
+    alias: Option<&str>,
+) -> Result<usize, StudyError> {
+    let idx: Vec<usize> = raw
+        .headers
+        .iter()
+        .enumerate()
+        .filter(|(_, h)| *h == header)
+        .map(|(i, _)| i)
+        .collect();
+    match idx.as_slice() {
+        [] => {
+            let hint_text = if let Some(a) = alias {
+                Some(format!("`{a}` is an alias defined in `data.columns.{a}`"))
+            } else if header.trim().parse::<f64>().is_ok() && key == "data.sigma" {
+                Some("to give one sigma for every point, write the number without quotes".to_string())
+            } else {
+                raw.headers
+                    .iter()
+                    .find(|h| h.eq_ignore_ascii_case(header) || h.trim() == header.trim())
+                    .map(|h| format!("did you mean `{h}`?"))
+            };
+            Err(StudyError::MissingColumn {
+                at: Box::new(spec.at(key)),
+                key: key.to_string(),
+                name: header.to_string(),
+                data_file: raw.file.clone(),
+                available: raw.headers.clone(),
+                hint_text: hint_text.map(String::into_boxed_str),
+            })
+        }
+        [i] => Ok(*i),
+        [a, b, ..] => Err(StudyError::DuplicateHeader {
+            at: Box::new(At::line(&raw.file, raw.header_line)),
+            header: header.to_string(),
+            first: a + 1,
+            second: b + 1,
+        }),
+    }
+}
+
+/// Resolves a name used in `[data]` (alias or header) to a column index.
+fn resolve(spec: &StudySpec, raw: &RawTable, key: &str, name: &str) -> Result<usize, StudyError> {
+    match spec.data.columns.iter().find(|(a, _)| a == name) {
+        Some((a, h)) => find_header(spec, raw, key, h, Some(a)),
+        None => find_header(spec, raw, key, name, None),
+    }
+}
+
+fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, StudyError> {
+    let d = &spec.data;
+    for (i, (alias, header)) in d.columns.iter().enumerate() {
+        let key = format!("data.columns.{alias}");
+        if !is_identifier(alias) {
+            return Err(invalid(
+                spec,
+                &key,
+                "is not a name a formula can use: an alias is letters, digits and `_`, not starting with a digit",
+            ));
+        }
+        if d.columns[..i].iter().any(|(a, _)| a == alias) {
+            return Err(invalid(spec, &key, "is declared twice"));
+        }
+        if alias != header && raw.headers.iter().any(|h| h == alias) {
+            return Err(invalid(
+                spec,
+                &key,
+                format!(
+                    "is also a column header of {}: an alias must not hide another column, choose another name",
+                    raw.file.display()
+                ),
+            ));
+        }
+        find_header(spec, raw, &key, header, None)?;
+    }
+    let x_key = |i: usize| {
+        if d.x.len() == 1 {
+            "data.x".to_string()
+        } else {
+            format!("data.x[{i}]")
+        }
+    };
+    let mut x_idx = Vec::with_capacity(d.x.len());
+    for (i, name) in d.x.iter().enumerate() {
+        let key = x_key(i);
+        if !is_identifier(name) {
+            let alias = suggest_identifier(name);
+            return Err(invalid(
+                spec,
+                &key,
+                format!(
+                    "names `{name}`, which is not a name a formula can use: give the column one with \
+                     `columns = {{ {alias} = \"{name}\" }}` in [data] and write `{alias}` in `data.x`"
+                ),
+            ));
+        }
+        if d.x[..i].contains(name) {
+            return Err(invalid(spec, &key, format!("names `{name}` twice")));
+        }
+        x_idx.push(resolve(spec, raw, &key, name)?);
+    }
+    if d.y.is_empty() {
+        return Err(invalid(spec, "data.y", "is empty: name the response column"));
+    }
+    let y_idx = resolve(spec, raw, "data.y", &d.y)?;
+    if x_idx.contains(&y_idx) {
+        return Err(invalid(spec, "data.y", "names a column that is also an x column"));
+    }
+    let sigma_idx = match &d.sigma {
+        Some(SigmaSpec::Column(c)) => {
+            let j = resolve(spec, raw, "data.sigma", c)?;
+            if j == y_idx || x_idx.contains(&j) {
+                return Err(invalid(
+                    spec,
+                    "data.sigma",
+                    "names a column that is also the y or an x column",
+                ));
+            }
+            Some(j)
+        }
+        Some(SigmaSpec::Value(v)) => {
+            if !(v.is_finite() && *v > 0.0) {
+                return Err(invalid(
+                    spec,
+                    "data.sigma",
+                    "must be a positive finite number or a column name",
+                ));
+            }
+            None
+        }
+        None => None,
+    };
+    raw.require_rows()?;
+    let x = x_idx
+        .iter()
+        .map(|&j| raw.numeric_column(j))
+        .collect::<Result<Vec<_>, _>>()?;
+    let y = raw.numeric_column(y_idx)?;
+    let sigma = match (&d.sigma, sigma_idx) {
+        (_, Some(j)) => {
+            let s = raw.numeric_column(j)?;
+            for (v, &line) in s.iter().zip(&raw.lines) {
+                if *v <= 0.0 {
+                    return Err(StudyError::BadSigma {
+                        at: Box::new(At::cell(&raw.file, line, j + 1)),
+                        column: j + 1,
+                        name: raw.headers[j].clone(),
+                        value: *v,
+                    });
+                }
+            }
+            Some(s)
+        }
+        (Some(SigmaSpec::Value(v)), None) => Some(vec![*v; y.len()]),
+        _ => None,
+    };
+    Ok(Dataset {
+        x_names: d.x.clone(),
+        x,
+        y_name: d.y.clone(),
+        y,
+        sigma,
+    })
+}
+
+fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
+    let bad = |why: String| StudyError::InvalidDataset {
+        at: Box::new(At::file(&spec.origin)),
+        why,
+    };
+    let n = ds.y.len();
+    if ds.x.len() != ds.x_names.len() {
+        return Err(bad(format!(
+            "has {} x names but {} x columns",
+            ds.x_names.len(),
+            ds.x.len()
+        )));
+    }
+    for (i, (name, col)) in ds.x_names.iter().zip(&ds.x).enumerate() {
+        if !is_identifier(name) {
+            return Err(bad(format!("x name `{name}` is not a name a formula can use")));
+        }
+        if ds.x_names[..i].contains(name) {
+            return Err(bad(format!("names x column `{name}` twice")));
+        }
+        if col.len() != n {
+            return Err(bad(format!(
+                "x column `{name}` has {} values but y has {n}",
+                col.len()
+            )));
+        }
+        if let Some(p) = col.iter().position(|v| !v.is_finite()) {
+            return Err(bad(format!("x column `{name}` is not finite at point {}", p + 1)));
+        }
+    }
+    if let Some(p) = ds.y.iter().position(|v| !v.is_finite()) {
+        return Err(bad(format!("y is not finite at point {}", p + 1)));
+    }
+    if let Some(s) = &ds.sigma {
+        if s.len() != n {
+            return Err(bad(format!("sigma has {} values but y has {n}", s.len())));
+        }
+        if let Some(p) = s.iter().position(|v| !(v.is_finite() && *v > 0.0)) {
+            return Err(bad(format!(
+                "sigma {} at point {} is not a positive finite number",
+                s[p],
+                p + 1
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// Where in the study file a formula column lies.
+fn formula_at(spec: &StudySpec, column: Option<usize>) -> At {
+    match (spec.locations.get("model.formula"), column) {
+        (Some(l), Some(c)) if l.plain_string => At::cell(&spec.origin, l.line, l.column + c),
+        _ => spec.at("model.formula"),
+    }
+}
+
+/// The checks that need both spec and data, compilation, and assembly.
+fn finish(
+    spec: StudySpec,
+    params: Vec<ParamSpec>,
+    options: FitOptions,
+    dataset: Dataset,
+    source: Option<DataSource>,
+    name: &str,
+) -> Result<Study, StudyError> {
+    // Parameters and constants must not hide an x column.
+    for xn in &dataset.x_names {
+        let kind = if spec.parameters.iter().any(|(n, _)| n == xn) {
+            Shadow::ParameterIsColumn
+        } else if spec.constants.iter().any(|(n, _)| n == xn) {
+            Shadow::ConstantIsColumn
+        } else {
+            continue;
+        };
+        return Err(StudyError::Shadowing {
+            at: Box::new(spec.at(&kind.key(xn))),
+            name: xn.clone(),
+            kind,
+        });
+    }
+    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+    let symbols = Symbols {
+        parameters: &names,
+        constants: &spec.constants,
+        variables: &dataset.x_names,
+    };
+    let tape = model::compile(&spec.model.formula, &symbols).map_err(|e| match e.kind {
+        ModelErrorKind::UnknownName { name, suggestion } => StudyError::UnknownName {
+            at: Box::new(formula_at(&spec, e.column)),
+            name,
+            column: e.column,
+            suggestion,
+            known: names
+                .iter()
+                .chain(spec.constants.iter().map(|(n, _)| n))
+                .chain(&dataset.x_names)
+                .cloned()
+                .collect(),
+        },
+        ModelErrorKind::Syntax(message) => StudyError::Formula {
+            at: Box::new(formula_at(&spec, e.column)),
+            message,
+            column: e.column,
+        },
+        other => StudyError::Formula {
+            at: Box::new(formula_at(&spec, e.column)),
+            message: other.to_string(),
+            column: e.column,
+        },
+    })?;
+    for (j, p) in params.iter().enumerate() {
+        if !tape.uses_parameter(j) {
+            return Err(StudyError::UnusedParameter {
+                at: Box::new(spec.at(&format!("parameters.{}", p.name))),
+                name: p.name.clone(),
+            });
+        }
+    }
+    let data_at = Box::new(match &source {
+        Some(s) => At::file(&s.file),
+        None => At::file(&spec.origin),
+    });
+    let n = dataset.len();
+    if n == 0 {
+        return Err(StudyError::NoDataRows { at: data_at });
+    }
+    let free = params.iter().filter(|p| !p.fixed).count();
+    if n < free + 1 {
+        return Err(StudyError::TooFewPoints {
+            at: data_at,
+            points: n,
+            free,
+            needed: free + 1,
+        });
+    }
+    let mut warnings = Vec::new();
+    if !dataset.x.is_empty() && n >= 2 {
+        let constant: Vec<bool> = dataset.x.iter().map(|c| c.iter().all(|v| *v == c[0])).collect();
+        if constant.iter().all(|&c| c) {
+            return Err(StudyError::ConstantX {
+                at: data_at,
+                columns: dataset.x_names.clone(),
+            });
+        }
+        for (k, c) in constant.iter().enumerate() {
+            if *c {
+                warnings.push(StudyWarning::ConstantXColumn {
+                    column: dataset.x_names[k].clone(),
+                });
+            }
+        }
+    }
+    // The model must be finite at the starts for every point.
+    let starts: Vec<f64> = params.iter().map(|p| p.start).collect();
+    let xs = dataset.x_slices();
+    let mut values = vec![0.0; n];
+    let mut jac = vec![0.0; n * params.len()];
+    let mut scratch = Vec::new();
+    if let Err(bad) = tape.eval(&starts, &xs, &mut values, Some(&mut jac), &mut scratch) {
+        let i = bad.point.min(n - 1);
+        let at = Box::new(match &source {
+            Some(s) => At::line(&s.file, s.lines[i]),
+            None => At::file(&spec.origin),
+        });
+        return Err(StudyError::NotFiniteAtStart {
+            at,
+            study: Box::new(At::file(&spec.origin)),
+            point: i + 1,
+            x: dataset
+                .x_names
+                .iter()
+                .zip(&dataset.x)
+                .map(|(n, c)| (n.clone(), c[i]))
+                .collect(),
+            derivative: values[i].is_finite(),
+        });
+    }
+    let (data_file, data_sha256, data_lines) = match source {
+        Some(s) => (Some(s.file), Some(s.sha256), Some(s.lines)),
+        None => (None, None, None),
+    };
+    Ok(Study {
+        path: spec.origin,
+        name: name.to_string(),
+        title: spec.title,
+        data_file,
+        formula: spec.model.formula,
+        parameters: params,
+        constants: spec.constants,
+        dataset,
+        audit: spec.audit,
+        fit_options: options,
+        model: tape,
+        study_sha256: None,
+        data_sha256,
+        data_lines,
+        warnings,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sha256_hex_matches_the_fips_180_2_vector() {
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+    }
+
+    #[test]
+    fn the_error_type_stays_small() {
+        // Keeps Result<_, StudyError> cheap to return (clippy's
+        // result_large_err threshold is 128 bytes).
+        assert!(
+            std::mem::size_of::<StudyError>() <= 128,
+            "{}",
+            std::mem::size_of::<StudyError>()
+        );
+    }
+
+    #[test]
+    fn identifiers() {
+        for ok in ["t", "T_env", "_x1", "k2"] {
+            assert!(is_identifier(ok), "{ok}");
+        }
+        for bad in ["", "1t", "Temp (C)", "a-b", "é"] {
+            assert!(!is_identifier(bad), "{bad}");
+        }
+    }
+}

@@ -1,0 +1,149 @@
+//! End-to-end tests of the command line on study files.
+
+#[path = "common/nist.rs"]
+mod nist;
+
+use assert_cmd::Command;
+
+fn fitaudit() -> Command {
+    Command::cargo_bin("fitaudit").unwrap()
+}
+
+/// Writes a NIST StRD problem as a study + CSV pair, the way a user would
+/// describe it, and returns the study path. None when the data are absent
+/// (outside CI: the caller skips).
+fn nist_study(
+    dir: &std::path::Path,
+    name: &str,
+    formula: &str,
+    start: usize,
+) -> Option<(std::path::PathBuf, nist::NistProblem)> {
+    let path = nist::data_dir().join(format!("{name}.dat"));
+    if !path.exists() {
+        if std::env::var("CI").map(|v| v == "true").unwrap_or(false) {
+            panic!(
+                "NIST StRD data missing at {} (set FITAUDIT_NIST_DIR)",
+                path.display()
+            );
+        }
+        eprintln!(
+            "skipped: NIST StRD data not found at {} (set FITAUDIT_NIST_DIR)",
+            path.display()
+        );
+        return None;
+    }
+    let p = nist::read(&path).unwrap();
+    let mut csv = String::from("x,y\n");
+    for (x, y) in p.x[0].iter().zip(&p.y) {
+        csv.push_str(&format!("{x:e},{y:e}\n"));
+    }
+    std::fs::write(dir.join("data.csv"), csv).unwrap();
+    let mut study = format!(
+        "title = \"NIST StRD {name}\"\n[data]\nfile = \"data.csv\"\nx = \"x\"\ny = \"y\"\n[model]\nformula = \"{formula}\"\n[parameters]\n"
+    );
+    for (k, b) in p.params.iter().enumerate() {
+        study.push_str(&format!("{b} = {{ start = {:e} }}\n", p.starts[start][k]));
+    }
+    let sp = dir.join(format!("{name}.toml"));
+    std::fs::write(&sp, study).unwrap();
+    Some((sp, p))
+}
+
+/// `fit --json` on NIST StRD Misra1a and Thurber (certified values, NIST
+/// ITL Statistical Reference Datasets): parameters agree to 6 significant
+/// digits and standard errors to 4, through the whole path a user walks
+/// (study file, CSV reader, formula compiler, fit, JSON).
+#[test]
+fn fit_json_reproduces_nist_certified_values() {
+    let cases = [
+        ("Misra1a", "b1*(1-exp[-b2*x])"),
+        (
+            "Thurber",
+            "(b1 + b2*x + b3*x**2 + b4*x^3) / (1 + b5*x + b6*x^2 + b7*x^3)",
+        ),
+    ];
+    for (name, formula) in cases {
+        for start in 0..2 {
+            let tmp = tempfile::tempdir().unwrap();
+            let Some((study, p)) = nist_study(tmp.path(), name, formula, start) else {
+                return;
+            };
+            let out = fitaudit().arg("fit").arg(&study).arg("--json").output().unwrap();
+            assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+            let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+            let fit = &v["fit"];
+            assert_eq!(fit["converged"], true);
+            for (k, par) in fit["parameters"].as_array().unwrap().iter().enumerate() {
+                let value = par["value"].as_f64().unwrap();
+                let se = par["std_error"].as_f64().unwrap();
+                assert!(
+                    nist::lre(value, p.certified[k]) >= 6.0,
+                    "{name} start {start} b{k}: {value}"
+                );
+                assert!(
+                    nist::lre(se, p.certified_sd[k]) >= 4.0,
+                    "{name} start {start} se b{k}: {se}"
+                );
+                assert_eq!(par["at_bound"], false);
+            }
+            let dof = p.y.len() - p.params.len();
+            assert_eq!(fit["dof"].as_u64().unwrap() as usize, dof);
+            assert!(nist::lre(fit["chi2"].as_f64().unwrap(), p.rss) >= 6.0);
+            for key in [
+                "stop_reason",
+                "iterations",
+                "reduced_chi2",
+                "p_value",
+                "covariance",
+                "correlation",
+            ] {
+                assert!(!fit[key].is_null(), "fit.{key} present");
+            }
+        }
+    }
+}
+
+/// The plain table shows each parameter with its standard error, and the
+/// goodness-of-fit line (values from the same NIST certified results).
+#[test]
+fn fit_table_and_check_describe_the_study() {
+    let tmp = tempfile::tempdir().unwrap();
+    let Some((study, _)) = nist_study(tmp.path(), "Misra1a", "b1*(1-exp(-b2*x))", 1) else {
+        return;
+    };
+    let out = fitaudit().arg("fit").arg(&study).output().unwrap();
+    assert!(out.status.success());
+    let text = String::from_utf8_lossy(&out.stdout);
+    // NIST certified b1 = 2.3894212918E+02, sd 2.7070075241E+00.
+    assert!(text.contains("b1") && text.contains("238.94"), "{text}");
+    assert!(text.contains("b2"), "{text}");
+    let out = fitaudit().arg("check").arg(&study).output().unwrap();
+    assert!(out.status.success());
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(text.contains("14 points"), "{text}");
+    assert!(text.contains("ok: the study is valid"));
+}
+
+/// Steepest descent is selectable and reaches the same minimum on an easy
+/// problem (NIST StRD DanWood from start 2; certified RSS 4.3173084083E-03).
+#[test]
+fn steepest_descent_is_selectable() {
+    let tmp = tempfile::tempdir().unwrap();
+    let Some((study, p)) = nist_study(tmp.path(), "DanWood", "b1*x**b2", 1) else {
+        return;
+    };
+    let out = fitaudit()
+        .arg("fit")
+        .arg(&study)
+        .args(["--json", "--method", "steepest"])
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let chi2 = v["fit"]["chi2"].as_f64().unwrap();
+    assert!(
+        nist::lre(chi2, p.rss) >= 4.0,
+        "steepest descent chi2 {chi2} vs certified {}",
+        p.rss
+    );
+}
