@@ -27,6 +27,27 @@ pub fn classify(err: &anyhow::Error) -> u8 {
     1
 }
 
+/// A safe folder name for a study name: letters, digits, `-`, `_` and `.`
+/// kept, anything else replaced by `_`, and never `.`, `..` or empty, so a
+/// hostile study file name cannot move the default output folder.
+pub fn folder_name(name: &str) -> String {
+    let clean: String = name
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || "-_.".contains(c) {
+                c
+            } else {
+                '_'
+            }
+        })
+        .collect();
+    if clean.chars().all(|c| c == '.') {
+        format!("study{}", "_".repeat(clean.len()))
+    } else {
+        clean
+    }
+}
+
 /// Runs `f` inside a rayon pool of `threads` workers (all cores when None).
 pub fn with_threads<T>(
     threads: Option<usize>,
@@ -41,6 +62,21 @@ where
     }
     let pool = builder.build()?;
     pool.install(f)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::folder_name;
+
+    #[test]
+    fn folder_names_cannot_escape() {
+        assert_eq!(folder_name("cooling"), "cooling");
+        assert_eq!(folder_name(".."), "study__");
+        assert_eq!(folder_name("."), "study_");
+        assert_eq!(folder_name(""), "study");
+        assert_eq!(folder_name("a/../b"), "a_.._b");
+        assert_eq!(folder_name("Temp (°C)"), "Temp___C_");
+    }
 }
 
 /// A progress bar on stderr when stderr is a terminal and not `--quiet`.

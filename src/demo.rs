@@ -64,8 +64,8 @@ fn gaussian_noise(scenario: u32, n: usize) -> Vec<f64> {
 /// Generates the CSV files of the scenarios: `(file name, contents)`.
 ///
 /// Cooling: T = 21.5 + 58 exp(-t / 340 s), 36 readings every 50 s, sigma
-/// 0.15 degC. Enzyme: v = 12 S / (6.5 + S), 7 substrate levels well below
-/// saturation, sigma 5 % of v. Vibration: y = 1.8 sin(2 pi 3.3 t + 0.7) +
+/// 0.15 degC. Enzyme: v = 12 S / (25 + S), 6 substrate levels well below
+/// saturation, sigma 6 % of v. Vibration: y = 1.8 sin(2 pi 3.3 t + 0.7) +
 /// 0.25, 80 samples over 2.4 s, sigma 0.2.
 pub fn scenarios_csv() -> Vec<(String, String)> {
     let mut out = Vec::new();
@@ -80,11 +80,11 @@ pub fn scenarios_csv() -> Vec<(String, String)> {
     }
     out.push(("cooling.csv".to_string(), csv));
 
-    let noise = gaussian_noise(2, 7);
+    let noise = gaussian_noise(2, 6);
     let mut csv = String::from("# invented demo data: initial rates of a slow enzyme\nS_mM,v,u_v\n");
-    for (s, e) in [0.4, 0.8, 1.2, 1.8, 2.6, 3.6, 5.0].iter().zip(&noise) {
-        let v = 12.0 * s / (6.5 + s);
-        let sigma = 0.05 * v;
+    for (s, e) in [0.5, 1.0, 1.6, 2.4, 3.5, 5.0].iter().zip(&noise) {
+        let v = 12.0 * s / (25.0 + s);
+        let sigma = 0.06 * v;
         let y = v + sigma * e;
         csv.push_str(&format!("{s:.2},{y:.4},{sigma:.4}\n"));
     }

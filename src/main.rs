@@ -213,7 +213,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
     let out = args
         .out
         .clone()
-        .unwrap_or_else(|| Path::new("out").join(&study.name));
+        .unwrap_or_else(|| Path::new("out").join(cli_support::folder_name(&study.name)));
     fitaudit::output::preflight(&out)?;
     let options = AuditOptions {
         only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),

@@ -359,3 +359,242 @@ fn bad_input_is_an_error() {
         Err(FitError::InvalidSigma { point: 1, .. })
     ));
 }
+
+#[test]
+fn iteration_cap_is_reported_as_not_converged() {
+    // Exponential decay y = 5 exp(-0.3 x) sampled exactly; one iteration
+    // from far away cannot reach it.
+    let x: Vec<f64> = (0..12).map(|i| i as f64).collect();
+    let y: Vec<f64> = x.iter().map(|x| 5.0 * (-0.3 * x).exp()).collect();
+    let data = Dataset::single("x", x, "y", y, None);
+    let model = NativeModel::new(2, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        let e = (-p[1] * x[0]).exp();
+        g[0] = e;
+        g[1] = -p[0] * x[0] * e;
+        p[0] * e
+    });
+    let capped = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 1.0), ParamSpec::free("k", 1.0)],
+        options: FitOptions {
+            max_iterations: 1,
+            ..FitOptions::default()
+        },
+    };
+    let r = fit(&capped, &data).unwrap();
+    assert!(!r.converged);
+    assert_eq!(r.stop_reason, StopReason::IterationLimit);
+    // With the default cap it converges onto the generating values
+    // (identity for exact data).
+    let free = Problem {
+        model: &model,
+        params: capped.params.clone(),
+        options: FitOptions::default(),
+    };
+    let r = fit(&free, &data).unwrap();
+    assert!(r.converged);
+    assert!(rel(r.parameters[0].value, 5.0) < 1e-10);
+    assert!(rel(r.parameters[1].value, 0.3) < 1e-10);
+    // Zero residuals with no sigma: scaled covariance is zero, never NaN.
+    assert!(r.covariance_scaled);
+    assert!(r
+        .parameters
+        .iter()
+        .all(|p| p.std_error.map(|s| s.is_finite()).unwrap_or(false)));
+    assert!(r.correlation.iter().flatten().all(|v| v.is_finite()));
+}
+
+#[test]
+fn a_model_finite_only_at_the_start_stops_as_non_finite() {
+    // Not finite for any a other than 1: no step can avoid it.
+    let data = line_data();
+    let model = NativeModel::new(1, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        g[0] = x[0];
+        if p[0] == 1.0 {
+            x[0]
+        } else {
+            f64::NAN
+        }
+    });
+    let problem = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 1.0)],
+        options: FitOptions::default(),
+    };
+    let r = fit(&problem, &data).unwrap();
+    assert!(!r.converged);
+    assert_eq!(r.stop_reason, StopReason::NonFinite);
+    assert_eq!(r.parameters[0].value, 1.0);
+}
+
+#[test]
+fn geodesic_acceleration_reaches_the_same_line() {
+    let data = line_data();
+    let model = line_model();
+    let mk = |geodesic| Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 0.0), ParamSpec::free("b", 1.0)],
+        options: FitOptions {
+            geodesic,
+            ..FitOptions::default()
+        },
+    };
+    let plain = fit(&mk(false), &data).unwrap();
+    let geo = fit(&mk(true), &data).unwrap();
+    assert!(geo.converged);
+    for (a, b) in plain.parameters.iter().zip(geo.parameters.iter()) {
+        assert!(rel(a.value, b.value) < 1e-12);
+    }
+}
+
+#[test]
+fn refitter_is_send() {
+    fn assert_send<T: Send + Sync>() {}
+    assert_send::<Refitter>();
+    assert_send::<fitaudit::fit::FitResult>();
+}
+
+#[test]
+fn partial_rank_deficiency_keeps_the_determined_parameter() {
+    // f = a*b*x + c: a and b only determined through a*b, while c is the
+    // intercept of the weighted straight line, with variance Sxx/D
+    // (Bevington & Robinson ch. 6, as above); the variance of an estimable
+    // parameter does not depend on the other parameters' parametrisation.
+    let data = line_data();
+    let model = NativeModel::new(3, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        g[0] = p[1] * x[0];
+        g[1] = p[0] * x[0];
+        g[2] = 1.0;
+        p[0] * p[1] * x[0] + p[2]
+    });
+    let problem = Problem {
+        model: &model,
+        params: vec![
+            ParamSpec::free("a", 1.0),
+            ParamSpec::free("b", 1.0),
+            ParamSpec::free("c", 0.0),
+        ],
+        options: FitOptions::default(),
+    };
+    let r = fit(&problem, &data).unwrap();
+    let s = data.sigma.as_ref().unwrap();
+    let (mut sw, mut sx, mut sy, mut sxx, mut sxy) = (0.0, 0.0, 0.0, 0.0, 0.0);
+    for i in 0..data.len() {
+        let w = 1.0 / (s[i] * s[i]);
+        let (x, y) = (data.x[0][i], data.y[i]);
+        sw += w;
+        sx += w * x;
+        sy += w * y;
+        sxx += w * x * x;
+        sxy += w * x * y;
+    }
+    let d = sw * sxx - sx * sx;
+    assert_eq!(r.rank, 2);
+    assert_eq!(r.undetermined.len(), 1);
+    let names: Vec<&str> = r.undetermined[0].iter().map(|(n, _)| n.as_str()).collect();
+    assert_eq!(names, vec!["a", "b"]);
+    assert_eq!(r.parameters[0].std_error, None);
+    assert_eq!(r.parameters[1].std_error, None);
+    assert!(rel(r.parameters[2].value, (sxx * sy - sx * sxy) / d) < 1e-10);
+    assert!(rel(r.parameters[2].std_error.unwrap(), (sxx / d).sqrt()) < 1e-8);
+    assert!(
+        rel(
+            r.parameters[0].value * r.parameters[1].value,
+            (sw * sxy - sx * sy) / d
+        ) < 1e-10
+    );
+    assert_eq!(r.correlation[2][2], 1.0);
+    assert_eq!(r.correlation[0][0], 0.0);
+}
+
+#[test]
+fn refitter_handles_a_different_number_of_points_and_clamps_starts() {
+    let data = line_data();
+    let model = line_model();
+    let mut b = ParamSpec::free("b", 1.0);
+    b.max = 1.5;
+    let problem = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 0.0), b],
+        options: FitOptions::default(),
+    };
+    let mut rf = Refitter::new(&problem, 3);
+    let sigma = data.sigma_or_ones();
+    let xs = data.x_slices();
+    let view = DataView {
+        x: &xs,
+        y: &data.y,
+        sigma: &sigma,
+    };
+    // The data rise with slope about 2, so b ends on its upper bound; a start
+    // above the bound is moved onto it.
+    let r = rf.refit(&problem, &view, &[0.0, 3.0], &[true, true]);
+    assert!(r.converged);
+    assert_eq!(rf.params()[1], 1.5);
+    // a is then the weighted mean of y - 1.5 x (identity).
+    let (mut sw, mut swr) = (0.0, 0.0);
+    for i in 0..data.len() {
+        let w = 1.0 / (sigma[i] * sigma[i]);
+        sw += w;
+        swr += w * (data.y[i] - 1.5 * data.x[0][i]);
+    }
+    assert!(rel(rf.params()[0], swr / sw) < 1e-12);
+    // fit() refuses a start outside the bounds, naming the parameter.
+    let outside = Problem {
+        model: &model,
+        params: vec![
+            ParamSpec::free("a", 0.0),
+            ParamSpec {
+                start: 3.0,
+                ..problem.params[1].clone()
+            },
+        ],
+        options: FitOptions::default(),
+    };
+    match fit(&outside, &data) {
+        Err(FitError::InvalidStart { name, .. }) => assert_eq!(name, "b"),
+        other => panic!("{other:?}"),
+    }
+}
+
+#[test]
+fn nonlinear_parameter_converges_onto_its_bound() {
+    // y = 5 exp(-0.3 x) exactly, fitted with k >= 0.4: the constrained
+    // minimum has k = 0.4 on the bound and the linear a = sum(y e)/sum(e^2)
+    // with e = exp(-0.4 x) (least-squares identity for a linear parameter).
+    let x: Vec<f64> = (0..15).map(|i| i as f64 * 0.5).collect();
+    let y: Vec<f64> = x.iter().map(|x| 5.0 * (-0.3 * x).exp()).collect();
+    let data = Dataset::single("x", x.clone(), "y", y.clone(), None);
+    let model = NativeModel::new(2, |p: &[f64], x: &[f64], g: &mut [f64]| {
+        let e = (-p[1] * x[0]).exp();
+        g[0] = e;
+        g[1] = -p[0] * x[0] * e;
+        p[0] * e
+    });
+    let mut k = ParamSpec::free("k", 1.0);
+    k.min = 0.4;
+    for method in [Method::Lm, Method::Steepest] {
+        let problem = Problem {
+            model: &model,
+            params: vec![ParamSpec::free("a", 1.0), k.clone()],
+            options: FitOptions {
+                method,
+                max_iterations: 100_000,
+                ..FitOptions::default()
+            },
+        };
+        let r = fit(&problem, &data).unwrap();
+        let (mut sye, mut see) = (0.0, 0.0);
+        for (xi, yi) in x.iter().zip(y.iter()) {
+            let e = (-0.4 * xi).exp();
+            sye += yi * e;
+            see += e * e;
+        }
+        assert!(r.converged, "{method:?} {:?}", r.stop_reason);
+        assert_eq!(r.parameters[1].value, 0.4, "{method:?}");
+        assert!(r.parameters[1].at_bound);
+        assert!(rel(r.parameters[0].value, sye / see) < 1e-8, "{method:?}");
+        assert!(r.parameters[0].std_error.is_some());
+        assert_eq!(r.parameters[1].std_error, None);
+    }
+}

@@ -10,7 +10,7 @@ mod nist;
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::profile::{self, threshold_1dof, EndStatus, ProfileResult};
 use fitaudit::diagnostics::{Fitted, NoProgress};
-use fitaudit::fit::{fit, DataView, FitOptions, FitResult, ParamSpec, Problem, Refitter};
+use fitaudit::fit::{analyse, fit, DataView, FitOptions, FitResult, ParamSpec, Problem, Refitter};
 use fitaudit::model::{ModelFn, NativeModel};
 use fitaudit::settings::AuditSettings;
 
@@ -32,8 +32,10 @@ fn line_data(with_sigma: bool) -> Dataset {
 }
 
 fn settings(level: f64, points: usize) -> AuditSettings {
-    let mut s = AuditSettings::default();
-    s.level = level;
+    let mut s = AuditSettings {
+        level,
+        ..AuditSettings::default()
+    };
     s.profile.points = points;
     s
 }
@@ -168,6 +170,73 @@ fn linear_model_without_sigma_uses_the_scaled_threshold() {
             p.name
         );
     }
+}
+
+#[test]
+fn bound_inside_the_interval_ends_the_scan_there() {
+    // Upper bound on a at estimate + sigma_a / 2, inside the 68 % interval
+    // (a linear profile rises only 0.25 there): the upper end is the bound,
+    // not found; the lower end is the linear identity.
+    let model = NativeModel::new(2, line as PointFn);
+    let data = line_data(true);
+    let free = vec![ParamSpec::free("a", 0.0), ParamSpec::free("b", 1.0)];
+    let (base, _) = run_profile(&model, free.clone(), &data, &settings(0.6827, 11));
+    let (a, se) = (base.parameters[0].value, base.parameters[0].std_error.unwrap());
+    let mut bounded = free;
+    bounded[0].max = a + 0.5 * se;
+    let (_, r) = run_profile(&model, bounded, &data, &settings(0.6827, 11));
+    let p = &r.parameters[0];
+    assert_eq!(p.upper_status, EndStatus::Bound);
+    assert!(!p.upper_found && !p.non_identifiable);
+    assert_eq!(p.upper, a + 0.5 * se);
+    assert!(p.points.iter().all(|pt| pt[0] <= a + 0.5 * se));
+    assert!(p.lower_found && rel(a - p.lower, se * r.threshold.sqrt()) < 1e-6);
+    assert!(p.asymmetry.is_none());
+}
+
+#[test]
+fn profile_below_the_base_fit_is_noted() {
+    // A "base fit" moved off the optimum along d = C e_b / sigma_b (one
+    // standard error in b, a following its regression on b): chi2 is then
+    // the minimum + d^T C^-1 d = + 1 (linear identity), and the profile of
+    // a finds points up to 1 lower.
+    let model = NativeModel::new(2, line as PointFn);
+    let data = line_data(true);
+    let problem = Problem {
+        model: &model,
+        params: vec![ParamSpec::free("a", 0.0), ParamSpec::free("b", 1.0)],
+        options: FitOptions::default(),
+    };
+    let best = fit(&problem, &data).unwrap();
+    let mut off: Vec<f64> = best.parameters.iter().map(|p| p.value).collect();
+    let se_b = best.parameters[1].std_error.unwrap();
+    off[0] += best.covariance[0][1] / se_b;
+    off[1] += se_b;
+    let refit = fitaudit::fit::Refit {
+        chi2: f64::NAN,
+        converged: true,
+        stop: fitaudit::fit::StopReason::Gradient,
+        iterations: 0,
+        evaluations: 0,
+    };
+    let moved = analyse(&problem, &data, &off, &refit).unwrap();
+    assert!((moved.chi2 - best.chi2 - 1.0).abs() < 1e-9);
+    let st = settings(0.6827, 11);
+    let ctx = Fitted {
+        problem,
+        data: &data,
+        fit: &moved,
+        settings: &st,
+    };
+    let r = profile::run(&ctx, &NoProgress);
+    assert!(r.base_not_minimum);
+    let low = r.parameters[0].below_minimum.as_ref().expect("noted");
+    assert!(
+        low.below_by > 0.5 && low.below_by <= 1.0 + 1e-9,
+        "{}",
+        low.below_by
+    );
+    assert!(low.chi2 >= best.chi2 - 1e-9);
 }
 
 fn product(p: &[f64], x: &[f64], g: &mut [f64]) -> f64 {

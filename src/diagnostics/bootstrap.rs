@@ -124,8 +124,11 @@ pub fn replicates(
     let n = data.len();
     let seed = ctx.settings.seed;
     let sigma = data.sigma_or_ones();
-    let fitted = &ctx.fit.fitted;
-    let f = |i: usize| fitted.get(i).copied().unwrap_or(f64::NAN);
+    // Fitted values, one per point (NaN if the fit gave too few: those
+    // replicates then fail visibly as non-finite).
+    let fitted: Vec<f64> = (0..n)
+        .map(|i| ctx.fit.fitted.get(i).copied().unwrap_or(f64::NAN))
+        .collect();
     match settings.scheme {
         BootstrapScheme::Case => resample::refit_replicates(ctx, indices, n, true, progress, |k, s| {
             let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
@@ -147,22 +150,25 @@ pub fn replicates(
             }
             resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
-                for i in 0..n {
+                for ((y, (f, sg)), out_sg) in s.y.iter_mut().zip(fitted.iter().zip(&sigma)).zip(&mut s.sigma)
+                {
                     let e = pool[rng.gen_range(0..pool.len())];
-                    s.y[i] = f(i) + sigma[i] * e;
-                    s.sigma[i] = sigma[i];
+                    *y = f + sg * e;
+                    *out_sg = *sg;
                 }
             })
         }
         BootstrapScheme::Wild => {
-            let adj: Vec<f64> = adjusted_residuals(ctx)
+            // sigma_i r_i / sqrt(1 - h_ii), zero for points of leverage 1.
+            let amp: Vec<f64> = adjusted_residuals(ctx)
                 .into_iter()
-                .map(|r| r.unwrap_or(0.0))
+                .zip(&sigma)
+                .map(|(r, sg)| sg * r.unwrap_or(0.0))
                 .collect();
             let weights = settings.weights;
             resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
-                for i in 0..n {
+                for (y, (f, a)) in s.y.iter_mut().zip(fitted.iter().zip(&amp)) {
                     let v = match weights {
                         WildWeights::Rademacher => {
                             if rng.gen::<bool>() {
@@ -173,9 +179,9 @@ pub fn replicates(
                         }
                         WildWeights::Mammen => mammen(&mut rng),
                     };
-                    s.y[i] = f(i) + sigma[i] * adj[i] * v;
-                    s.sigma[i] = sigma[i];
+                    *y = f + a * v;
                 }
+                s.sigma.copy_from_slice(&sigma);
             })
         }
     }

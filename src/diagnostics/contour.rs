@@ -178,10 +178,13 @@ fn resolve_pair(index: usize, pair: &[String; 2], params: &[ParamSpec]) -> Resul
     Ok(out)
 }
 
+/// A pair to map: its names and its parameter indices (or why it cannot be mapped).
+pub type PairChoice = ([String; 2], Result<[usize; 2], ContourError>);
+
 /// The pairs to map: the settings' list when given (each resolved or
 /// rejected), else every pair of free parameters when there are at most
 /// five, else the six pairs with the largest |correlation| in the base fit.
-pub fn choose_pairs(ctx: &Fitted) -> Vec<([String; 2], Result<[usize; 2], ContourError>)> {
+pub fn choose_pairs(ctx: &Fitted) -> Vec<PairChoice> {
     let params = &ctx.problem.params;
     if let Some(list) = &ctx.settings.contours.pairs {
         return list
@@ -436,7 +439,7 @@ pub fn covariance_ellipse(ctx: &Fitted, i: usize, k: usize, level: f64) -> Optio
     let l11 = cii.sqrt();
     let l21 = cik / l11;
     let d = ckk - l21 * l21;
-    if !(d > 0.0) {
+    if d.is_nan() || d <= 0.0 {
         return None;
     }
     let l22 = d.sqrt();

@@ -186,20 +186,22 @@ pub fn trials(
     let s = noise_scale(ctx);
     let sigma: Vec<f64> = data.sigma_or_ones().iter().map(|v| v * s).collect();
     let given_sigma = data.sigma_or_ones();
-    let fitted = &ctx.fit.fitted;
+    let fitted: Vec<f64> = (0..n)
+        .map(|i| ctx.fit.fitted.get(i).copied().unwrap_or(f64::NAN))
+        .collect();
     let t = settings
         .student_t_dof
         .and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt())));
     resample::refit_replicates(ctx, indices, n, false, progress, |k, smp| {
         let mut rng = rng::stream(seed, Stream::MonteCarlo, k as u64);
-        for i in 0..n {
+        for (y, (f, sg)) in smp.y.iter_mut().zip(fitted.iter().zip(&sigma)) {
             let e: f64 = match &t {
                 Some((d, scale)) => d.sample(&mut rng) * scale,
                 None => rng.sample(StandardNormal),
             };
-            smp.y[i] = fitted.get(i).copied().unwrap_or(f64::NAN) + sigma[i] * e;
-            smp.sigma[i] = given_sigma[i];
+            *y = f + sg * e;
         }
+        smp.sigma.copy_from_slice(&given_sigma);
     })
 }
 

@@ -173,7 +173,7 @@ pub const BOX_MIN_HALF_WIDTH: f64 = 1.0;
 /// Decades sampled at the top of a positive box that starts at zero.
 pub const LOG_ZERO_DECADES: i32 = 3;
 /// Backtracking steps allowed when matching two minima by a permutation.
-const PERMUTATION_BUDGET: usize = 200_000;
+const PERMUTATION_BUDGET: usize = 20_000;
 
 /// The sampling range of one parameter (rules in the module documentation).
 ///
@@ -529,10 +529,13 @@ pub fn summarise(
             if find(&mut parent, i) == find(&mut parent, j) || !rules.chi2_close(a.chi2, b.chi2) {
                 continue;
             }
-            let fa = fitted[i].get_or_insert_with(|| predict(&a.end)).clone();
-            let fb = fitted[j].get_or_insert_with(|| predict(&b.end)).clone();
-            if let (Some(fa), Some(fb)) = (fa, fb) {
-                let d2: f64 = fa.iter().zip(&fb).map(|(x, y)| (x - y) * (x - y)).sum();
+            for (c, r) in [(i, a), (j, b)] {
+                if fitted[c].is_none() {
+                    fitted[c] = Some(predict(&r.end));
+                }
+            }
+            if let (Some(Some(fa)), Some(Some(fb))) = (&fitted[i], &fitted[j]) {
+                let d2: f64 = fa.iter().zip(fb).map(|(x, y)| (x - y) * (x - y)).sum();
                 if fa.len() == fb.len() && d2 <= rules.chi2_tol(a.chi2, b.chi2) {
                     let (ri, rj) = (find(&mut parent, i), find(&mut parent, j));
                     parent[rj.max(ri)] = ri.min(rj);

@@ -30,7 +30,7 @@ use super::roots::brent;
 use super::{Fitted, Progress};
 
 /// How the scan of one side of a profile ended.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
 #[serde(rename_all = "kebab-case")]
 pub enum EndStatus {
     /// The profile crossed the threshold; the end is the crossing.
@@ -41,6 +41,7 @@ pub enum EndStatus {
     /// (practically non-identifiable in this direction).
     ScanLimit,
     /// Refits failed (or disagreed) before the profile crossed.
+    #[default]
     Unresolved,
 }
 
@@ -58,8 +59,9 @@ pub struct LowerPoint {
     pub parameters: Vec<f64>,
 }
 
-/// Profile of one parameter.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Profile of one parameter. `Default` gives an empty profile (for
+/// building results by hand, e.g. in tests of the verdicts).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
 pub struct ParameterProfile {
     /// Parameter name.
     pub name: String,
@@ -104,8 +106,8 @@ pub struct ParameterProfile {
     pub refits: usize,
 }
 
-/// Result of the profile scans.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Result of the profile scans. `Default` gives an empty result.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
 pub struct ProfileResult {
     /// Confidence level.
     pub level: f64,

@@ -12,6 +12,14 @@ use crate::fit::{DataView, FitResult, Refitter};
 /// limit far beyond the quadratic prediction).
 pub(crate) const SCAN_LIMIT_SCALES: f64 = 100.0;
 
+/// An exploration that overshoots its aim by more than this factor is
+/// pulled back by bisection (common practice: keep the scanned range close
+/// to the region of interest).
+const OVERSHOOT: f64 = 3.0;
+
+/// Most bisections of an overshoot.
+const MAX_TIGHTEN: usize = 4;
+
 /// Most trial points of one exploration (the step grows by up to 4x per
 /// point, so this is never the binding limit for finite scales).
 const MAX_EXPLORATION_STEPS: usize = 60;
@@ -195,7 +203,7 @@ pub(crate) fn explore(
     };
     let dmax = room.min(target.limit);
     let mut nodes: Vec<(f64, Node)> = Vec::new();
-    if !(dmax > 0.0) {
+    if dmax.is_nan() || dmax <= 0.0 {
         let end = if room <= target.limit {
             WalkEnd::Bound
         } else {
@@ -213,9 +221,20 @@ pub(crate) fn explore(
             Some(node) => {
                 retries = 0;
                 let rise = node.chi2 - chi2_min;
-                start.copy_from_slice(&node.params);
+                let inner = std::mem::replace(&mut start, node.params.clone());
                 nodes.push((x, node));
                 if rise >= target.accept {
+                    tighten(
+                        sc,
+                        j,
+                        est,
+                        dir,
+                        chi2_min,
+                        target,
+                        &mut nodes,
+                        (d_last, inner),
+                        (d, rise),
+                    );
                     return Walk {
                         nodes,
                         end: WalkEnd::Reached,
@@ -236,7 +255,7 @@ pub(crate) fn explore(
             None => {
                 retries += 1;
                 let half = d_last + 0.5 * (d - d_last);
-                if retries > 3 || !(half > d_last) {
+                if retries > 3 || half.is_nan() || half <= d_last {
                     break;
                 }
                 d = half;
@@ -246,5 +265,47 @@ pub(crate) fn explore(
     Walk {
         nodes,
         end: WalkEnd::Failed,
+    }
+}
+
+/// Pulls the end of an exploration back towards the aim when the last step
+/// overshot it by more than [`OVERSHOOT`]: bisects between the last point
+/// below the acceptance level (`inner`: distance and parameters) and the
+/// end, keeping `nodes` in outward order with the end (still at or above
+/// the acceptance level) last.
+#[allow(clippy::too_many_arguments)]
+fn tighten(
+    sc: &mut Scanner,
+    j: usize,
+    est: f64,
+    dir: f64,
+    chi2_min: f64,
+    target: Target,
+    nodes: &mut Vec<(f64, Node)>,
+    inner: (f64, Vec<f64>),
+    outer: (f64, f64),
+) {
+    let (mut d_lo, mut lo_params) = inner;
+    let (mut d_hi, mut rise_hi) = outer;
+    for _ in 0..MAX_TIGHTEN {
+        if rise_hi <= OVERSHOOT * target.aim {
+            return;
+        }
+        let dt = 0.5 * (d_lo + d_hi);
+        let xt = est + dir * dt;
+        let Some(node) = sc.at(&[(j, xt)], &lo_params) else {
+            return;
+        };
+        let rise = node.chi2 - chi2_min;
+        let last = nodes.len() - 1;
+        if rise >= target.accept {
+            nodes[last] = (xt, node);
+            d_hi = dt;
+            rise_hi = rise;
+        } else {
+            lo_params.copy_from_slice(&node.params);
+            nodes.insert(last, (xt, node));
+            d_lo = dt;
+        }
     }
 }

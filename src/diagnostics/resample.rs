@@ -262,14 +262,12 @@ pub fn jackknife(ctx: &Fitted, progress: &dyn Progress) -> Vec<Outcome> {
     }
     let sigma = data.sigma_or_ones();
     refit_replicates(ctx, 0..n, n - 1, true, progress, |left_out, s| {
-        let mut o = 0;
-        for i in (0..n).filter(|&i| i != left_out) {
+        for (o, i) in (0..n).filter(|&i| i != left_out).enumerate() {
             for (c, col) in data.x.iter().enumerate() {
                 s.x[c][o] = col[i];
             }
             s.y[o] = data.y[i];
             s.sigma[o] = sigma[i];
-            o += 1;
         }
     })
 }
@@ -395,7 +393,7 @@ pub fn correlation_matrix(rows: &[Vec<f64>], m: usize, constant: &[bool]) -> Vec
         for b in (a + 1)..m {
             let skip = constant.get(a).copied().unwrap_or(false) || constant.get(b).copied().unwrap_or(false);
             let den = (cov[a][a] * cov[b][b]).sqrt();
-            let v = if skip || !(den > 0.0) || n < 2 {
+            let v = if skip || den.is_nan() || den <= 0.0 || n < 2 {
                 0.0
             } else {
                 (cov[a][b] / den).clamp(-1.0, 1.0)

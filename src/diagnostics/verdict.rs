@@ -17,13 +17,17 @@
 //!    differs from the base value by more than [`MINIMUM_SHIFT_SE`]
 //!    standard errors (or always when there is no standard error),
 //!    otherwise *doubtful*; the sentence quotes both chi-squared values.
-//! 4. **Profile.** A profile end not found (the profile never rises by the
-//!    threshold on that side: practically non-identifiable, Raue et al.
+//! 4. **Profile.** A profile end not found (the profile does not rise by
+//!    the threshold on that side before the scan limit, the parameter's
+//!    bound, or failed refits: practically non-identifiable, Raue et al.
 //!    2009, Bioinformatics 25:1923) -> *fails*. Otherwise each half-width
 //!    (`upper - estimate`, `estimate - lower`) is compared with its
 //!    covariance counterpart `sqrt(threshold) * SE`: a ratio outside
 //!    `[1 - tol, 1 + tol]` on either side -> *doubtful*; outside
-//!    [[`PROFILE_FAIL_LOW`], [`PROFILE_FAIL_HIGH`]] -> *fails*.
+//!    [[`PROFILE_FAIL_LOW`], [`PROFILE_FAIL_HIGH`]] -> *fails*. A profile
+//!    point below the base fit by more than the threshold (times the
+//!    profile's chi-squared scale) is a better minimum and is judged as in
+//!    rule 3.
 //! 5. **Resampled SD** (bootstrap and Monte Carlo alike). With `r =
 //!    sd_ratio` and `u` its standard uncertainty, a difference counts only
 //!    when it is statistically clear, `|r - 1| > `[`CLEAR_SIGMAS`]` * u`,
@@ -33,9 +37,10 @@
 //!    exceeds [`FAILURE_SHARE`] -> *doubtful* for every parameter; the
 //!    sentence says how many failed.
 //!
-//! The profile's `threshold` is read in the units of the chi-squared it
-//! scans, so that `sqrt(threshold) * SE` is the covariance half-width
-//! (for a linear model the two agree exactly).
+//! The profile's crossings lie at `chi2_min + threshold * chi2_scale`, the
+//! scale being chi2/dof when the covariance is scaled, so `sqrt(threshold) *
+//! SE` is the covariance half-width in both cases (for a linear model the
+//! two agree exactly).
 
 use serde::{Deserialize, Serialize};
 
@@ -63,7 +68,7 @@ pub struct Verdict {
 }
 
 use super::multistart::MultistartResult;
-use super::profile::{ParameterProfile, ProfileResult};
+use super::profile::{EndStatus, ProfileResult};
 use super::resample::{ResampleResult, ResampledParameter};
 use crate::fit::{FitResult, ParamResult};
 
@@ -129,8 +134,9 @@ pub fn decide(inputs: &VerdictInputs) -> Vec<Verdict> {
     };
     fit.parameters
         .iter()
-        .filter(|p| !p.fixed)
-        .map(|p| {
+        .enumerate()
+        .filter(|(_, p)| !p.fixed)
+        .map(|(index, p)| {
             let mut f = Findings {
                 problems: Vec::new(),
                 agreements: Vec::new(),
@@ -140,9 +146,7 @@ pub fn decide(inputs: &VerdictInputs) -> Vec<Verdict> {
                 multistart_rule(ms, p, &mut f);
             }
             if let Some(pr) = inputs.profile {
-                if let Some(pp) = pr.parameters.iter().find(|q| q.name == p.name) {
-                    profile_rule(pr.threshold, pp, p.std_error, tol, &mut f);
-                }
+                profile_rule(pr, index, p, tol, &mut f);
             }
             for (label, res) in [
                 ("bootstrap", inputs.bootstrap),
@@ -228,10 +232,23 @@ fn multistart_rule(ms: &MultistartResult, p: &ParamResult, f: &mut Findings) {
         return;
     };
     let at_best = best.parameters.iter().find(|v| v.name == p.name).map(|v| v.value);
+    better_minimum("a better minimum exists", best.chi2, ms.base_chi2, at_best, p, f);
+}
+
+/// Rule 3 (and its profile counterpart): a clearly lower chi-squared at
+/// another point; `at_best` is this parameter's value there.
+fn better_minimum(
+    lead: &str,
+    chi2_best: f64,
+    chi2_base: f64,
+    at_best: Option<f64>,
+    p: &ParamResult,
+    f: &mut Findings,
+) {
     let chi2s = format!(
         "chi2 = {} against {} at the base fit",
-        num(best.chi2),
-        num(ms.base_chi2)
+        num(chi2_best),
+        num(chi2_base)
     );
     match (at_best, p.std_error) {
         (Some(v), Some(se)) if se > 0.0 => {
@@ -240,8 +257,7 @@ fn multistart_rule(ms: &MultistartResult, p: &ParamResult, f: &mut Findings) {
                 f.object(
                     Status::Fails,
                     format!(
-                        "a better minimum exists: {chi2s}; there this parameter is {} instead of {}, \
-                         {} standard errors away",
+                        "{lead}: {chi2s}; there this parameter is {} instead of {}, {} standard errors away",
                         num(v),
                         num(p.value),
                         fixed2(shift)
@@ -251,8 +267,8 @@ fn multistart_rule(ms: &MultistartResult, p: &ParamResult, f: &mut Findings) {
                 f.object(
                     Status::Doubtful,
                     format!(
-                        "a better minimum exists: {chi2s}; this parameter is {} there, within {} standard \
-                         error of the base value {}, but the base fit is not the least-squares solution",
+                        "{lead}: {chi2s}; this parameter is {} there, within {} standard error of the base \
+                         value {}, but the base fit is not the least-squares solution",
                         num(v),
                         num(MINIMUM_SHIFT_SE),
                         num(p.value)
@@ -263,41 +279,82 @@ fn multistart_rule(ms: &MultistartResult, p: &ParamResult, f: &mut Findings) {
         (Some(v), _) => f.object(
             Status::Fails,
             format!(
-                "a better minimum exists: {chi2s}; there this parameter is {} instead of {}",
+                "{lead}: {chi2s}; there this parameter is {} instead of {}",
                 num(v),
                 num(p.value)
             ),
         ),
-        (None, _) => f.object(Status::Fails, format!("a better minimum exists: {chi2s}")),
+        (None, _) => f.object(Status::Fails, format!("{lead}: {chi2s}")),
     }
 }
 
-fn profile_rule(threshold: f64, pp: &ParameterProfile, se: Option<f64>, tol: f64, f: &mut Findings) {
-    let mut missing = Vec::new();
-    if !pp.lower_found {
-        missing.push(("below", pp.lower));
+fn profile_rule(pr: &ProfileResult, index: usize, p: &ParamResult, tol: f64, f: &mut Findings) {
+    let scale = if pr.chi2_scale.is_finite() && pr.chi2_scale > 0.0 {
+        pr.chi2_scale
+    } else {
+        1.0
+    };
+    let rise = pr.threshold * scale;
+    // A profile point clearly below the base fit (by more than the
+    // threshold): the base fit is not the minimum. The lowest such point
+    // over all profiles counts, like the best minimum of the multi-start.
+    let lowest = pr
+        .parameters
+        .iter()
+        .filter_map(|q| q.below_minimum.as_ref())
+        .filter(|lp| lp.below_by > rise)
+        .min_by(|a, b| a.chi2.total_cmp(&b.chi2));
+    if let Some(lp) = lowest {
+        better_minimum(
+            "a profile passes through a better minimum",
+            lp.chi2,
+            pr.chi2_min,
+            lp.parameters.get(index).copied(),
+            p,
+            f,
+        );
     }
-    if !pp.upper_found {
-        missing.push(("above", pp.upper));
-    }
-    if !missing.is_empty() {
-        for (side, last) in missing {
-            f.object(
-                Status::Fails,
-                format!(
-                    "the chi-squared profile does not rise by {} {side} the estimate (scanned to {}): the \
-                     parameter is practically non-identifiable on that side",
-                    num(threshold),
-                    num(last)
-                ),
-            );
-        }
-        return;
-    }
-    let Some(se) = se.filter(|s| *s > 0.0 && s.is_finite()) else {
+    let Some(pp) = pr.parameters.iter().find(|q| q.name == p.name) else {
         return;
     };
-    let expected = threshold.max(0.0).sqrt() * se;
+    let mut open = false;
+    for (side, found, status, last) in [
+        ("below", pp.lower_found, pp.lower_status, pp.lower),
+        ("above", pp.upper_found, pp.upper_status, pp.upper),
+    ] {
+        if found {
+            continue;
+        }
+        open = true;
+        let why = match status {
+            EndStatus::Bound => format!(
+                "the chi-squared profile does not rise by {} {side} the estimate before the parameter's \
+                 bound at {}: within its allowed range the data do not limit it on that side",
+                num(rise),
+                num(last)
+            ),
+            EndStatus::Unresolved => format!(
+                "the chi-squared profile could not be followed {side} the estimate (refits failed at {} \
+                 before it rose by {}), so the interval end is unknown",
+                num(last),
+                num(rise)
+            ),
+            EndStatus::ScanLimit | EndStatus::Found => format!(
+                "the chi-squared profile does not rise by {} {side} the estimate (scanned to {}): the \
+                 parameter is practically non-identifiable on that side",
+                num(rise),
+                num(last)
+            ),
+        };
+        f.object(Status::Fails, why);
+    }
+    if open {
+        return;
+    }
+    let Some(se) = p.std_error.filter(|s| *s > 0.0 && s.is_finite()) else {
+        return;
+    };
+    let expected = pr.threshold.max(0.0).sqrt() * se;
     let lo = (pp.estimate - pp.lower) / expected;
     let hi = (pp.upper - pp.estimate) / expected;
     let worst = [lo, hi]
@@ -438,6 +495,7 @@ fn pct(share: f64) -> String {
 mod tests {
     use super::*;
     use crate::diagnostics::multistart::{Minimum, NamedValue};
+    use crate::diagnostics::profile::{LowerPoint, ParameterProfile};
     use crate::fit::StopReason;
 
     fn param(name: &str, value: f64, se: Option<f64>) -> ParamResult {
@@ -526,6 +584,7 @@ mod tests {
     }
 
     fn profile_of(name: &str, est: f64, lower: f64, upper: f64, found: (bool, bool)) -> ProfileResult {
+        let status = |f: bool| if f { EndStatus::Found } else { EndStatus::ScanLimit };
         ProfileResult {
             level: 0.6827,
             threshold: 1.0,
@@ -543,8 +602,16 @@ mod tests {
                 parabola: Vec::new(),
                 asymmetry: None,
                 failed: 0,
+                lower_status: status(found.0),
+                upper_status: status(found.1),
+                non_identifiable: !(found.0 && found.1),
+                scale: 0.1,
+                below_minimum: None,
+                refits: 0,
             }],
             failed: 0,
+            chi2_scale: 1.0,
+            base_not_minimum: false,
         }
     }
 
@@ -653,6 +720,41 @@ mod tests {
         let v = decide(&inp);
         assert_eq!(v[0].status, Status::Fails);
         assert!(v[0].reasons[0].contains("non-identifiable") && v[0].reasons[0].contains("above"));
+    }
+
+    #[test]
+    fn profile_end_at_bound_fails_and_lower_point_is_a_better_minimum() {
+        let fit = fit_of(vec![param("a", 1.0, Some(0.1)), param("b", 2.0, Some(0.2))]);
+        let mut pr = profile_of("a", 1.0, 0.0, 1.1, (false, true));
+        pr.parameters[0].lower_status = EndStatus::Bound;
+        let mut inp = inputs(&fit);
+        inp.profile = Some(&pr);
+        let v = decide(&inp);
+        assert_eq!(v[0].status, Status::Fails);
+        assert!(v[0].reasons[0].contains("bound at 0"), "{:?}", v[0].reasons);
+        assert_eq!(v[1].status, Status::Holds, "b has no profile here");
+
+        // A point 5 below the minimum of 10 (threshold 1): a better minimum
+        // where a = 1.02 (0.2 SE away: doubtful) and b = 2.5 (2.5 SE: fails).
+        let mut pr = profile_of("a", 1.0, 0.9, 1.1, (true, true));
+        pr.parameters[0].below_minimum = Some(LowerPoint {
+            value: 1.02,
+            chi2: 5.0,
+            below_by: 5.0,
+            parameters: vec![1.02, 2.5],
+        });
+        pr.base_not_minimum = true;
+        let mut inp = inputs(&fit);
+        inp.profile = Some(&pr);
+        let v = decide(&inp);
+        assert_eq!(v[0].status, Status::Doubtful, "{:?}", v[0].reasons);
+        assert_eq!(v[1].status, Status::Fails, "{:?}", v[1].reasons);
+        assert!(v[1].reasons[0].contains("chi2 = 5 against 10 at the base fit"));
+        // Below by less than the threshold: not counted.
+        pr.parameters[0].below_minimum.as_mut().unwrap().below_by = 0.5;
+        let mut inp = inputs(&fit);
+        inp.profile = Some(&pr);
+        assert_eq!(decide(&inp)[1].status, Status::Holds);
     }
 
     #[test]

@@ -24,6 +24,10 @@ const EPS: f64 = f64::EPSILON;
 /// a parameter onto a plateau where the model no longer depends on it).
 const INITIAL_RADIUS: f64 = 1.0;
 
+/// Steps taken below the rounding noise of chi2 before the run stops (the
+/// full fit refines further with [`polish`]).
+const NOISE_STEPS: usize = 1;
+
 /// Relative singular-value cut for the Gauss-Newton step (lambda = 0).
 const GN_RANK_CUT: f64 = 1e-14;
 
@@ -44,6 +48,8 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
     let mut delta = 0.0f64;
     let mut lambda = 0.0f64;
     let mut first = true;
+    let mut noise_steps = 0usize;
+    let mut last_noise_dnorm = f64::INFINITY;
 
     loop {
         rf.gradient_and_active();
@@ -74,29 +80,10 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
             };
         }
 
-        // QR of the scaled active columns, then SVD of R.
-        let k = rf.active.len();
-        for (c, &j) in rf.active.iter().enumerate() {
-            let inv = 1.0 / rf.diag[j];
-            let (src, dst) = (&rf.jac[j * n..(j + 1) * n], &mut rf.qr[c * n..(c + 1) * n]);
-            for (o, v) in dst.iter_mut().zip(src.iter()) {
-                *o = v * inv;
-            }
-        }
-        householder_qr(&mut rf.qr, n, k, &mut rf.rdiag, &mut rf.beta);
-        rf.qtr.copy_from_slice(&rf.resid);
-        apply_qt(&rf.qr, n, k, &rf.beta, &mut rf.qtr);
-        extract_r(&rf.qr, n, k, &rf.rdiag, &mut rf.w[..k * k]);
-        jacobi_svd(&mut rf.w[..k * k], k, &mut rf.v[..k * k], &mut rf.s[..k]);
-        let smax = rf.s[..k].iter().fold(0.0f64, |a, &b| a.max(b));
-        for i in 0..k {
-            let si = rf.s[i];
-            rf.c[i] = if si > 0.0 {
-                dot(&rf.w[i * k..(i + 1) * k], &rf.qtr[..k]) / si
-            } else {
-                0.0
-            };
-        }
+        let noise = rf.chi2_noise(data.y);
+        let mut in_noise;
+
+        let (k, smax) = factor(rf);
 
         // Inner loop: trial steps until one is accepted or a stop rule fires.
         loop {
@@ -181,14 +168,18 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
                         lambda *= 0.5;
                     }
                     // In the rounding-noise regime (the linear model promises
-                    // less than a few ulps of chi2) the ratio is noise: take the
-                    // step unless chi2 measurably rose, since the Gauss-Newton
-                    // step is still the better estimate of the minimiser.
-                    let noise = pred <= 16.0 * EPS * chi2 && actred >= -4.0 * EPS * chi2;
-                    let accepted = rho >= 1e-4 || noise;
+                    // less than the rounding noise of chi2) the ratio is noise:
+                    // take the step unless chi2 measurably rose, since the
+                    // Gauss-Newton step is still the better estimate of the
+                    // minimiser than anything chi2 itself can resolve.
+                    in_noise = pred.abs() <= noise && actred.abs() <= 2.0 * noise;
+                    let accepted = rho >= 1e-4 || in_noise;
                     if accepted {
                         rf.accept_trial(true);
                         chi2 = chi2_t;
+                        if in_noise {
+                            delta = delta.max(2.0 * dnorm);
+                        }
                     }
                     (accepted, actred, rho)
                 }
@@ -207,6 +198,15 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
             if delta <= xtol.max(EPS) * xnorm || dnorm == 0.0 {
                 return finish(rf, chi2, true, StopReason::Step, iterations);
             }
+            if accepted && in_noise {
+                // Stop once steps below the noise of chi2 no longer contract
+                // (or after a few of them): chi2 cannot resolve more.
+                noise_steps += 1;
+                if noise_steps >= NOISE_STEPS || (noise_steps >= 2 && dnorm > 0.5 * last_noise_dnorm) {
+                    return finish(rf, chi2, true, StopReason::ChiSquaredChange, iterations);
+                }
+                last_noise_dnorm = dnorm;
+            }
             if accepted {
                 break;
             }
@@ -215,6 +215,87 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
             }
         }
     }
+}
+
+/// QR of the scaled active columns of the Jacobian, SVD of `R` and the
+/// coefficients `c = U^T Q^T r`. Returns the number of active columns and
+/// the largest singular value.
+fn factor(rf: &mut Refitter) -> (usize, f64) {
+    let n = rf.n;
+    let k = rf.active.len();
+    for (c, &j) in rf.active.iter().enumerate() {
+        let inv = 1.0 / rf.diag[j];
+        let (src, dst) = (&rf.jac[j * n..(j + 1) * n], &mut rf.qr[c * n..(c + 1) * n]);
+        for (o, v) in dst.iter_mut().zip(src.iter()) {
+            *o = v * inv;
+        }
+    }
+    householder_qr(&mut rf.qr, n, k, &mut rf.rdiag, &mut rf.beta);
+    rf.qtr.copy_from_slice(&rf.resid);
+    apply_qt(&rf.qr, n, k, &rf.beta, &mut rf.qtr);
+    extract_r(&rf.qr, n, k, &rf.rdiag, &mut rf.w[..k * k]);
+    jacobi_svd(&mut rf.w[..k * k], k, &mut rf.v[..k * k], &mut rf.s[..k]);
+    let smax = rf.s[..k].iter().fold(0.0f64, |a, &b| a.max(b));
+    for i in 0..k {
+        let si = rf.s[i];
+        rf.c[i] = if si > 0.0 {
+            dot(&rf.w[i * k..(i + 1) * k], &rf.qtr[..k]) / si
+        } else {
+            0.0
+        };
+    }
+    (k, smax)
+}
+
+/// Gauss-Newton refinement at the end of a converged run: undamped,
+/// rank-truncated steps while they contract (each at most half the last)
+/// and chi2 does not rise beyond its rounding noise. Near the minimum the
+/// Gauss-Newton step resolves the solution more finely than chi2 itself
+/// can. Returns the number of steps taken; the workspace holds the result.
+pub(crate) fn polish(rf: &mut Refitter, problem: &Problem, data: &DataView) -> (usize, f64) {
+    let model = problem.model;
+    let mut chi2 = dot(&rf.resid, &rf.resid);
+    let mut last = f64::INFINITY;
+    let mut steps = 0;
+    for _ in 0..6 {
+        rf.gradient_and_active();
+        if rf.active.is_empty() || chi2 == 0.0 {
+            break;
+        }
+        for j in 0..rf.m {
+            rf.diag[j] = if rf.colnorm[j] > 0.0 { rf.colnorm[j] } else { 1.0 };
+        }
+        let (k, smax) = factor(rf);
+        scaled_step(
+            &rf.s[..k],
+            &rf.c[..k],
+            &rf.v[..k * k],
+            k,
+            0.0,
+            smax,
+            &mut rf.p[..k],
+        );
+        rf.d.iter_mut().for_each(|x| *x = 0.0);
+        for (c, &j) in rf.active.iter().enumerate() {
+            rf.d[j] = -rf.p[c] / rf.diag[j];
+        }
+        rf.project_trial();
+        let dnorm = scaled_norm(rf);
+        if dnorm == 0.0 || dnorm > 0.5 * last {
+            break;
+        }
+        let noise = rf.chi2_noise(data.y);
+        match rf.eval_trial(model, data, true) {
+            Ok(chi2_t) if chi2_t <= chi2 + 2.0 * noise => {
+                rf.accept_trial(true);
+                chi2 = chi2_t;
+                steps += 1;
+                last = dnorm;
+            }
+            _ => break,
+        }
+    }
+    (steps, chi2)
 }
 
 fn finish(rf: &mut Refitter, chi2: f64, converged: bool, stop: StopReason, iterations: usize) -> Refit {

@@ -25,7 +25,7 @@ mod steepest;
 
 pub use covariance::{RANK_TOLERANCE, UNDETERMINED_WEIGHT};
 pub use refitter::Refitter;
-pub use result::{analyse, fit, fit_from, FitError, FitResult, ParamResult};
+pub use result::{analyse, fit, fit_from, FitError, FitResult, ParamResult, MAX_RESTARTS};
 
 /// Minimisation method.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]

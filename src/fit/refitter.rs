@@ -111,8 +111,6 @@ impl Refitter {
             evaluations: 0,
         };
         r.resize(n_points, m);
-        // Let the model size its scratch once, here, with a throw-away
-        // evaluation at the starts when the sizes are known to be consistent.
         r
     }
 
@@ -310,6 +308,18 @@ impl Refitter {
             }
         }
         gmax
+    }
+
+    /// Rounding noise of chi2 at the current point: each residual
+    /// `(f - y) / sigma` carries an error of about `eps (|f| + |y|) / sigma`,
+    /// so chi2 is uncertain by about `2 eps sum |r| (|f| + |y|) / sigma`.
+    pub(crate) fn chi2_noise(&self, y: &[f64]) -> f64 {
+        let mut s = 0.0;
+        for (((r, f), y), w) in self.resid.iter().zip(&self.values).zip(y).zip(&self.inv_sigma) {
+            s += r.abs() * (f.abs() + y.abs()) * w;
+        }
+        let chi2: f64 = super::linalg::dot(&self.resid, &self.resid);
+        2.0 * f64::EPSILON * s + f64::EPSILON * chi2
     }
 
     /// Norm of the scaled current parameters over the varying ones.

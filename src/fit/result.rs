@@ -153,14 +153,19 @@ pub fn fit(problem: &Problem, data: &Dataset) -> Result<FitResult, FitError> {
 }
 
 /// Most restarts of the optimiser from its own endpoint in a full fit.
-const MAX_RESTARTS: usize = 8;
+pub const MAX_RESTARTS: usize = 8;
 
 /// Full fit from a given start (same as [`fit`] otherwise).
 ///
 /// Strategy (generic, the same for every problem): run the optimiser; while
 /// it stopped for any reason other than a small gradient and the last run
-/// still lowered chi2, restart it from its endpoint (fresh scaling and
-/// trust region), at most [`MAX_RESTARTS`] times.
+/// still lowered chi2 by more than its rounding noise, restart it from its
+/// endpoint (fresh scaling and trust region), at most [`MAX_RESTARTS`]
+/// times. A converged Levenberg-Marquardt fit then takes undamped
+/// Gauss-Newton steps while they contract, which resolves the minimiser
+/// more finely than chi2 itself can. Errors: bad lengths, non-finite data,
+/// sigma not positive, bounds not an interval, a start outside its bounds,
+/// fewer points than free parameters, a model not finite at the start.
 pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitResult, FitError> {
     check(problem, data, start)?;
     let sigma = data.sigma_or_ones();
@@ -191,6 +196,7 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     let mut rf = Refitter::new(problem, data.len());
     let mut total = rf.refit(problem, &view, start, &free);
     let mut current = rf.params().to_vec();
+    let mut holds_current = true;
     for _ in 0..MAX_RESTARTS {
         if total.stop == StopReason::Gradient || total.stop == StopReason::NonFinite {
             break;
@@ -199,13 +205,14 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
         let again = rf.refit(problem, &view, &current, &free);
         total.iterations += again.iterations;
         total.evaluations += again.evaluations;
-        if again.chi2 <= before {
+        holds_current = again.chi2 <= before;
+        if holds_current {
             current.copy_from_slice(rf.params());
             total.chi2 = again.chi2;
             total.stop = again.stop;
             total.converged = again.converged;
         }
-        let improved = again.chi2 < before * (1.0 - 4.0 * f64::EPSILON);
+        let improved = again.chi2 < before - rf.chi2_noise(&data.y);
         if !improved {
             // No progress from a fresh start: the endpoint is the answer; it
             // counts as converged unless the last run hit the cap without
@@ -214,6 +221,25 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
                 total.converged = true;
             }
             break;
+        }
+    }
+    if total.converged && problem.options.method == super::Method::Lm {
+        // Refine the best endpoint (back into the workspace first when the
+        // last restart ended elsewhere).
+        let mut ok = true;
+        if !holds_current {
+            let again = rf.refit(problem, &view, &current, &free);
+            total.iterations += again.iterations;
+            total.evaluations += again.evaluations;
+            ok = again.chi2 <= total.chi2 + rf.chi2_noise(&data.y);
+        }
+        if ok {
+            let before = rf.evaluations;
+            let (steps, chi2) = super::lm::polish(&mut rf, problem, &view);
+            total.iterations += steps;
+            total.evaluations += rf.evaluations - before;
+            current.copy_from_slice(rf.params());
+            total.chi2 = chi2;
         }
     }
     analyse(problem, data, &current, &total)
@@ -332,6 +358,11 @@ pub fn analyse(
         &mut scratch,
     )
     .map_err(|e| FitError::NotFinite { point: e.point })?;
+    if let Some(idx) = jac.iter().position(|v| !v.is_finite()) {
+        return Err(FitError::NotFinite {
+            point: idx % n.max(1),
+        });
+    }
 
     let at_bound: Vec<bool> = problem
         .params

@@ -257,6 +257,14 @@ impl Graph {
                     return self.konst(1.0);
                 }
             }
+            Bin::MulZ => {
+                if self.is_value(a, 0.0) {
+                    return self.konst(0.0);
+                }
+                if self.as_const(a).is_some() {
+                    return self.mul(a, b);
+                }
+            }
             Bin::Atan2 | Bin::Min | Bin::Max => {}
         }
         let (a, b) = if op.commutes() { self.order(a, b) } else { (a, b) };
@@ -464,7 +472,7 @@ impl Graph {
         match op {
             Bin::Add => self.add(da, db),
             Bin::Sub => self.sub(da, db),
-            Bin::Mul => {
+            Bin::Mul | Bin::MulZ => {
                 let l = self.mul(da, b);
                 let r = self.mul(a, db);
                 self.add(l, r)
@@ -488,9 +496,10 @@ impl Graph {
                     let f = self.mul(b, p);
                     self.mul(f, da)
                 } else {
-                    // a^b (b' ln a + b a'/a)
+                    // a^b (b' ln a + b a'/a); the first term is 0 wherever
+                    // b' = 0, also for a negative base (where ln a is NaN).
                     let ln = self.un(Un::Ln, a);
-                    let t1 = self.mul(db, ln);
+                    let t1 = self.bin(Bin::MulZ, db, ln);
                     let inner = if da == zero {
                         t1
                     } else {

@@ -334,6 +334,7 @@ impl ModelFn for Tape {
         for col in &x[..self.n_vars] {
             assert!(col.len() >= n, "data column shorter than the value buffer");
         }
+        let reserve = self.full_prog.scratch_len().max(self.value_prog.scratch_len());
         match jac {
             Some(j) => {
                 assert_eq!(
@@ -341,9 +342,9 @@ impl ModelFn for Tape {
                     n * self.n_params,
                     "Jacobian buffer must hold n * n_params values"
                 );
-                self.full_prog.run(params, x, values, Some(j), scratch)
+                self.full_prog.run(reserve, params, x, values, Some(j), scratch)
             }
-            None => self.value_prog.run(params, x, values, None, scratch),
+            None => self.value_prog.run(reserve, params, x, values, None, scratch),
         }
     }
 }

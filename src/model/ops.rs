@@ -36,6 +36,9 @@ pub(crate) enum Bin {
     Atan2,
     Min,
     Max,
+    /// `a * b`, but 0 whenever `a` is 0 (even for an infinite or NaN `b`):
+    /// the `b' ln a` term of a power's derivative, absent when `b' = 0`.
+    MulZ,
 }
 
 impl Un {
@@ -78,6 +81,7 @@ impl Bin {
             Bin::Atan2 => a.atan2(b),
             Bin::Min => min(a, b),
             Bin::Max => max(a, b),
+            Bin::MulZ => mul_z(a, b),
         }
     }
 
@@ -119,6 +123,16 @@ pub(crate) fn small_int(b: f64) -> Option<i32> {
         Some(b as i32)
     } else {
         None
+    }
+}
+
+/// `a * b` with `0 * anything = 0`.
+#[inline(always)]
+pub(crate) fn mul_z(a: f64, b: f64) -> f64 {
+    if a == 0.0 {
+        0.0
+    } else {
+        a * b
     }
 }
 

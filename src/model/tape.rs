@@ -7,8 +7,13 @@
 //! program* runs once per block of [`BLOCK`] points; each instruction loops
 //! over the block, so dispatch costs one branch per instruction per block
 //! and the inner loops are plain arithmetic the compiler can vectorise.
-//! Working registers are blocks of `BLOCK` numbers, reused once their value
-//! is dead, so they stay in cache.
+//!
+//! Operands live in three places: working registers (blocks of `BLOCK`
+//! numbers in the scratch buffer, reused once their value is dead, so they
+//! stay in cache), the caller's data columns (read in place), and the
+//! caller's output buffers (values and Jacobian columns are written in
+//! place by the instruction that computes them, and may be read back by
+//! later instructions).
 
 use super::graph::{Graph, Id, Node};
 use super::ops::{self, Bin, Un};
@@ -17,61 +22,72 @@ use super::NonFinite;
 /// Number of data points per block.
 pub(crate) const BLOCK: usize = 128;
 
-/// An operand of a `Sel` instruction: a register or a scalar slot.
+/// Where a column operand lives.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Loc {
+    /// Working register.
+    R(u32),
+    /// Output column: 0 is the values, `1 + j` Jacobian column `j`.
+    O(u32),
+    /// Data column `k`.
+    X(u32),
+}
+
+/// An operand of a `Sel` instruction: a column or a scalar slot.
 #[derive(Debug, Clone, Copy, PartialEq)]
 enum Src {
-    R(u32),
+    C(Loc),
     S(u32),
 }
 
-/// A column instruction. `d` is the destination register, `a`, `b`, `c`
-/// are registers, `s` is a scalar slot.
+/// A column instruction. `d` is the destination, `a`, `b`, `c` are column
+/// operands, `s` is a scalar slot.
 #[derive(Debug, Clone, PartialEq)]
 enum Ins {
-    /// d = x[k]
-    Var { d: u32, k: u32 },
+    /// d = a (a data column that is itself an output)
+    Copy { d: Loc, a: Loc },
     /// d = op(a)
-    Un { op: Un, d: u32, a: u32 },
+    Un { op: Un, d: Loc, a: Loc },
     /// d = a op b
-    RR { op: Bin, d: u32, a: u32, b: u32 },
+    CC { op: Bin, d: Loc, a: Loc, b: Loc },
     /// d = s op b
-    SR { op: Bin, d: u32, s: u32, b: u32 },
+    SC { op: Bin, d: Loc, s: u32, b: Loc },
     /// d = a op s
-    RS { op: Bin, d: u32, a: u32, s: u32 },
+    CS { op: Bin, d: Loc, a: Loc, s: u32 },
     /// d = if p <= q { t } else { f }
-    Sel { d: u32, p: Src, q: Src, t: Src, f: Src },
+    Sel { d: Loc, p: Src, q: Src, t: Src, f: Src },
     /// d = exp(s * a)
-    ExpSR { d: u32, s: u32, a: u32 },
+    ExpSC { d: Loc, s: u32, a: Loc },
     /// d = s * a + b
-    FmaSRR { d: u32, s: u32, a: u32, b: u32 },
+    FmaSCC { d: Loc, s: u32, a: Loc, b: Loc },
     /// d = a * b + c
-    FmaRRR { d: u32, a: u32, b: u32, c: u32 },
-    /// d = s * a * b
-    MulSRR { d: u32, s: u32, a: u32, b: u32 },
+    FmaCCC { d: Loc, a: Loc, b: Loc, c: Loc },
+    /// d = s * (a * b)
+    MulSCC { d: Loc, s: u32, a: Loc, b: Loc },
 }
 
 impl Ins {
-    /// The destination and the register operands, for register allocation.
-    fn regs_mut(&mut self) -> (&mut u32, Vec<&mut u32>) {
+    /// The destination and the column operands, for register allocation.
+    fn locs_mut(&mut self) -> (&mut Loc, Vec<&mut Loc>) {
         match self {
-            Ins::Var { d, .. } => (d, vec![]),
+            Ins::Copy { d, a } => (d, vec![a]),
             Ins::Un { d, a, .. } => (d, vec![a]),
-            Ins::RR { d, a, b, .. } => (d, vec![a, b]),
-            Ins::SR { d, b, .. } => (d, vec![b]),
-            Ins::RS { d, a, .. } => (d, vec![a]),
+            Ins::CC { d, a, b, .. } => (d, vec![a, b]),
+            Ins::SC { d, b, .. } => (d, vec![b]),
+            Ins::CS { d, a, .. } => (d, vec![a]),
             Ins::Sel { d, p, q, t, f } => {
                 let mut v = Vec::new();
                 for s in [p, q, t, f] {
-                    if let Src::R(r) = s {
-                        v.push(r);
+                    if let Src::C(l) = s {
+                        v.push(l);
                     }
                 }
                 (d, v)
             }
-            Ins::ExpSR { d, a, .. } => (d, vec![a]),
-            Ins::FmaSRR { d, a, b, .. } => (d, vec![a, b]),
-            Ins::FmaRRR { d, a, b, c } => (d, vec![a, b, c]),
-            Ins::MulSRR { d, a, b, .. } => (d, vec![a, b]),
+            Ins::ExpSC { d, a, .. } => (d, vec![a]),
+            Ins::FmaSCC { d, a, b, .. } => (d, vec![a, b]),
+            Ins::FmaCCC { d, a, b, c } => (d, vec![a, b, c]),
+            Ins::MulSCC { d, a, b, .. } => (d, vec![a, b]),
         }
     }
 }
@@ -84,11 +100,13 @@ enum SIns {
     Sel { d: u32, p: u32, q: u32, t: u32, f: u32 },
 }
 
-/// Where an output column comes from.
+/// How an output column is produced.
 #[derive(Debug, Clone, Copy, PartialEq)]
 enum Out {
-    /// A register, copied block by block.
-    R(u32),
+    /// Written in place by a column instruction.
+    Direct,
+    /// The same node as an earlier output: copied from it block by block.
+    Dup(u32),
     /// A scalar slot, the same at every point.
     S(u32),
 }
@@ -115,17 +133,31 @@ enum Emit {
     Fused,
 }
 
+/// Placeholder location of a node before allocation.
+fn node_loc(id: Id) -> Loc {
+    Loc::R(id)
+}
+
 impl Program {
     /// Lowers the nodes `roots` (output columns, in order) of `g`.
     pub(crate) fn lower(g: &Graph, roots: &[Id]) -> Program {
         let mark = g.reachable(roots);
         let top = mark.len();
         let mut uses = vec![0usize; top];
-        let mut is_root = vec![false; top];
-        for &r in roots {
+        // First output of each root node.
+        let mut root_out = vec![u32::MAX; top];
+        let mut outputs = Vec::with_capacity(roots.len());
+        for (o, &r) in roots.iter().enumerate() {
             uses[r as usize] += 1;
-            is_root[r as usize] = true;
+            let first = &mut root_out[r as usize];
+            outputs.push(if *first == u32::MAX {
+                *first = o as u32;
+                Out::Direct
+            } else {
+                Out::Dup(*first)
+            });
         }
+        let is_root = |id: Id| root_out[id as usize] != u32::MAX;
         for (id, &m) in mark.iter().enumerate() {
             if m {
                 let (ch, k) = g.node(id as Id).children();
@@ -168,14 +200,18 @@ impl Program {
                 }),
             }
         }
+        for (o, &r) in roots.iter().enumerate() {
+            if !g.is_column(r) {
+                outputs[o] = Out::S(slot[r as usize]);
+            }
+        }
 
         // Fusion decisions (children before parents, so a child's own
         // state is known when its parent looks at it).
         let mut emit = vec![Emit::Plain; top];
         let col = |id: Id| g.is_column(id);
-        let absorbable = |emit: &[Emit], c: Id| {
-            uses[c as usize] == 1 && !is_root[c as usize] && emit[c as usize] == Emit::Plain
-        };
+        let absorbable =
+            |emit: &[Emit], c: Id| uses[c as usize] == 1 && !is_root(c) && emit[c as usize] == Emit::Plain;
         let scalar_mul = |c: Id| match g.node(c) {
             Node::Bin(Bin::Mul, s, a) if !col(s) && col(a) => Some((s, a)),
             _ => None,
@@ -212,32 +248,35 @@ impl Program {
             }
         }
 
-        // Column instructions over virtual registers (= node ids).
+        // Column instructions over placeholder locations (= node ids).
         let mut ins = Vec::new();
         for id in 0..top {
             if !mark[id] || !col(id as Id) || emit[id] == Emit::Inlined {
                 continue;
             }
-            let d = id as u32;
+            let d = node_loc(id as Id);
+            let l = node_loc;
             let src = |c: Id| {
                 if col(c) {
-                    Src::R(c)
+                    Src::C(l(c))
                 } else {
                     Src::S(slot[c as usize])
                 }
             };
             let node = g.node(id as Id);
             let i = match (node, emit[id]) {
-                (Node::Var(k), _) => Ins::Var { d, k },
+                // Data columns are read in place; only an output needs a copy.
+                (Node::Var(k), _) if is_root(id as Id) => Ins::Copy { d, a: Loc::X(k) },
+                (Node::Var(_), _) => continue,
                 (Node::Un(Un::Exp, a), Emit::Fused) => {
                     let (s, x) = scalar_mul(a).expect("fusion checked the pattern");
-                    Ins::ExpSR {
+                    Ins::ExpSC {
                         d,
                         s: slot[s as usize],
-                        a: x,
+                        a: l(x),
                     }
                 }
-                (Node::Un(op, a), _) => Ins::Un { op, d, a },
+                (Node::Un(op, a), _) => Ins::Un { op, d, a: l(a) },
                 (Node::Bin(Bin::Add, x, y), Emit::Fused) => {
                     let (m, other) = if emit[x as usize] == Emit::Inlined {
                         (x, y)
@@ -245,38 +284,48 @@ impl Program {
                         (y, x)
                     };
                     if let Some((s, a)) = scalar_mul(m) {
-                        Ins::FmaSRR {
+                        Ins::FmaSCC {
                             d,
                             s: slot[s as usize],
-                            a,
-                            b: other,
+                            a: l(a),
+                            b: l(other),
                         }
                     } else {
                         let (a, b) = col_mul(m).expect("fusion checked the pattern");
-                        Ins::FmaRRR { d, a, b, c: other }
+                        Ins::FmaCCC {
+                            d,
+                            a: l(a),
+                            b: l(b),
+                            c: l(other),
+                        }
                     }
                 }
                 (Node::Bin(Bin::Mul, s, y), Emit::Fused) => {
                     let (a, b) = col_mul(y).expect("fusion checked the pattern");
-                    Ins::MulSRR {
+                    Ins::MulSCC {
                         d,
                         s: slot[s as usize],
-                        a,
-                        b,
+                        a: l(a),
+                        b: l(b),
                     }
                 }
                 (Node::Bin(op, a, b), _) => match (col(a), col(b)) {
-                    (true, true) => Ins::RR { op, d, a, b },
-                    (false, true) => Ins::SR {
+                    (true, true) => Ins::CC {
+                        op,
+                        d,
+                        a: l(a),
+                        b: l(b),
+                    },
+                    (false, true) => Ins::SC {
                         op,
                         d,
                         s: slot[a as usize],
-                        b,
+                        b: l(b),
                     },
-                    (true, false) => Ins::RS {
+                    (true, false) => Ins::CS {
                         op,
                         d,
-                        a,
+                        a: l(a),
                         s: slot[b as usize],
                     },
                     (false, false) => unreachable!("a column node has a column operand"),
@@ -293,47 +342,58 @@ impl Program {
             ins.push(i);
         }
 
-        // Register allocation by last use; outputs stay live to the end.
+        // Final locations: outputs in place, data columns in place, other
+        // nodes in registers allocated by last use.
+        let id_of = |l: &Loc| match *l {
+            Loc::R(id) => id as usize,
+            _ => usize::MAX,
+        };
         let mut last = vec![usize::MAX; top];
         for (i, inst) in ins.iter_mut().enumerate() {
-            let (_, reads) = inst.regs_mut();
+            let (_, reads) = inst.locs_mut();
             for r in reads {
-                last[*r as usize] = i;
+                if let Loc::R(id) = *r {
+                    last[id as usize] = i;
+                }
             }
         }
-        let mut phys = vec![u32::MAX; top];
+        let mut fin: Vec<Option<Loc>> = vec![None; top];
+        for id in 0..top {
+            if mark[id] && col(id as Id) {
+                if is_root(id as Id) {
+                    fin[id] = Some(Loc::O(root_out[id]));
+                } else if let Node::Var(k) = g.node(id as Id) {
+                    fin[id] = Some(Loc::X(k));
+                }
+            }
+        }
         let mut free: Vec<u32> = Vec::new();
         let mut n_regs = 0u32;
         for (i, inst) in ins.iter_mut().enumerate() {
-            let (d, reads) = inst.regs_mut();
-            let p = free.pop().unwrap_or_else(|| {
-                n_regs += 1;
-                n_regs - 1
-            });
-            phys[*d as usize] = p;
-            *d = p;
-            let mut freed: [u32; 4] = [u32::MAX; 4];
-            for (k, r) in reads.into_iter().enumerate() {
-                let v = *r as usize;
-                *r = phys[v];
-                if last[v] == i && !is_root[v] && !freed.contains(&phys[v]) {
-                    freed[k] = phys[v];
-                    free.push(phys[v]);
+            let (d, reads) = inst.locs_mut();
+            let did = id_of(d);
+            if fin[did].is_none() {
+                let p = free.pop().unwrap_or_else(|| {
+                    n_regs += 1;
+                    n_regs - 1
+                });
+                fin[did] = Some(Loc::R(p));
+            }
+            *d = fin[did].expect("destination placed");
+            let mut freed: Vec<usize> = Vec::new();
+            for r in reads {
+                let Loc::R(rid) = *r else { continue };
+                let rid = rid as usize;
+                let loc = fin[rid].expect("operands are computed before use");
+                *r = loc;
+                if let Loc::R(p) = loc {
+                    if last[rid] == i && !freed.contains(&rid) {
+                        freed.push(rid);
+                        free.push(p);
+                    }
                 }
             }
-            // A value never read (possible only for outputs) keeps its register.
         }
-
-        let outputs = roots
-            .iter()
-            .map(|&r| {
-                if col(r) {
-                    Out::R(phys[r as usize])
-                } else {
-                    Out::S(slot[r as usize])
-                }
-            })
-            .collect();
         Program {
             scalar_init,
             param_slots,
@@ -350,25 +410,28 @@ impl Program {
     }
 
     /// Number of column instructions (for tests of the optimiser).
-    #[allow(dead_code)]
     pub(crate) fn n_instructions(&self) -> usize {
         self.ins.len()
     }
 
     /// Evaluates the outputs over all points. Output 0 goes to `values`,
-    /// output `1 + j` to column `j` of `jac`.
+    /// output `1 + j` to column `j` of `jac`. `scratch` is grown to at least
+    /// `reserve` (the largest need of the programs sharing it), so that
+    /// alternating programs does not grow it again.
+    #[allow(clippy::too_many_arguments)]
     pub(crate) fn run(
         &self,
+        reserve: usize,
         params: &[f64],
         x: &[&[f64]],
         values: &mut [f64],
-        mut jac: Option<&mut [f64]>,
+        jac: Option<&mut [f64]>,
         scratch: &mut Vec<f64>,
     ) -> Result<(), NonFinite> {
         let n = values.len();
         let need = self.scratch_len();
         if scratch.len() < need {
-            scratch.resize(need, 0.0);
+            scratch.resize(need.max(reserve), 0.0);
         }
         let (sc, regs) = scratch[..need].split_at_mut(self.scalar_init.len());
         sc.copy_from_slice(&self.scalar_init);
@@ -386,12 +449,18 @@ impl Program {
             }
         }
         let sc: &[f64] = sc;
+        let mut empty: [f64; 0] = [];
+        let jac = match jac {
+            Some(j) => j,
+            None => &mut empty[..],
+        };
+        let mut outs = Outs { values, jac, n };
 
         let mut bad: Option<usize> = None;
         for (o, out) in self.outputs.iter().enumerate() {
             if let Out::S(s) = *out {
                 let v = sc[s as usize];
-                out_col(o, values, &mut jac, n).fill(v);
+                outs.col_mut(o as u32).fill(v);
                 if !v.is_finite() && n > 0 {
                     bad = Some(0);
                 }
@@ -401,17 +470,24 @@ impl Program {
         let mut start = 0;
         while start < n {
             let len = BLOCK.min(n - start);
+            let blk = Block { start, len };
             for inst in &self.ins {
-                exec(inst, regs, sc, x, start, len);
+                exec(inst, regs, &mut outs, sc, x, blk);
             }
             let mut block_bad: Option<usize> = None;
             for (o, out) in self.outputs.iter().enumerate() {
-                if let Out::R(r) = *out {
-                    let r = r as usize * BLOCK;
-                    let src = &regs[r..r + len];
-                    out_col(o, values, &mut jac, n)[start..start + len].copy_from_slice(src);
-                    if bad.is_none() && !all_finite(src) {
-                        let k = src.iter().position(|v| !v.is_finite()).unwrap_or(0);
+                match *out {
+                    Out::Direct => {}
+                    Out::Dup(from) => {
+                        let (dst, rd) = outs.split_out(o as u32, blk);
+                        dst.copy_from_slice(rd.out(from));
+                    }
+                    Out::S(_) => continue,
+                }
+                if bad.is_none() {
+                    let col = &outs.col_mut(o as u32)[start..start + len];
+                    if !all_finite(col) {
+                        let k = col.iter().position(|v| !v.is_finite()).unwrap_or(0);
                         block_bad = Some(block_bad.map_or(k, |b| b.min(k)));
                     }
                 }
@@ -428,50 +504,194 @@ impl Program {
     }
 }
 
-/// Output column `o`: 0 is `values`, `1 + j` is column `j` of `jac`.
-fn out_col<'a>(o: usize, values: &'a mut [f64], jac: &'a mut Option<&mut [f64]>, n: usize) -> &'a mut [f64] {
-    if o == 0 {
-        values
-    } else {
-        let j = jac
-            .as_deref_mut()
-            .expect("derivative outputs need a Jacobian buffer");
-        &mut j[(o - 1) * n..o * n]
-    }
-}
-
+/// Whether every number is finite: `v * 0` is 0 for finite `v` and NaN
+/// otherwise; four independent sums let the loop vectorise.
 #[inline]
 fn all_finite(s: &[f64]) -> bool {
-    s.iter().fold(true, |acc, v| acc & v.is_finite())
+    let mut acc = [0.0f64; 4];
+    let chunks = s.chunks_exact(4);
+    let rest = chunks.remainder();
+    for c in chunks {
+        for k in 0..4 {
+            acc[k] += c[k] * 0.0;
+        }
+    }
+    for &v in rest {
+        acc[0] += v * 0.0;
+    }
+    (acc[0] + acc[1]) + (acc[2] + acc[3]) == 0.0
 }
 
-/// Read access to every register except the destination.
-struct View<'a> {
-    lo: &'a [f64],
-    hi: &'a [f64],
-    d: usize,
+/// The current block of points.
+#[derive(Clone, Copy)]
+struct Block {
+    start: usize,
     len: usize,
 }
 
-impl View<'_> {
-    #[inline(always)]
-    fn get(&self, r: u32) -> &[f64] {
-        let r = r as usize;
-        if r < self.d {
-            &self.lo[r * BLOCK..r * BLOCK + self.len]
+/// The caller's output buffers.
+struct Outs<'a> {
+    values: &'a mut [f64],
+    jac: &'a mut [f64],
+    n: usize,
+}
+
+impl Outs<'_> {
+    /// The whole column of output `o`.
+    fn col_mut(&mut self, o: u32) -> &mut [f64] {
+        let n = self.n;
+        if o == 0 {
+            self.values
         } else {
-            let o = (r - self.d - 1) * BLOCK;
-            &self.hi[o..o + self.len]
+            let o = o as usize;
+            &mut self.jac[(o - 1) * n..o * n]
+        }
+    }
+
+    /// Output `o` over the block, mutable, and read access to the others.
+    #[inline(always)]
+    fn split_out(&mut self, o: u32, blk: Block) -> (&mut [f64], OutView<'_>) {
+        let (n, s, len) = (self.n, blk.start, blk.len);
+        if o == 0 {
+            let view = OutView {
+                values: &[],
+                lo: &[],
+                hi: &self.jac[..],
+                d: 0,
+                n,
+                blk,
+            };
+            (&mut self.values[s..s + len], view)
+        } else {
+            let k = o as usize - 1;
+            let (lo, rest) = self.jac.split_at_mut(k * n);
+            let (col, hi) = rest.split_at_mut(n);
+            let view = OutView {
+                values: &self.values[..],
+                lo,
+                hi,
+                d: o,
+                n,
+                blk,
+            };
+            (&mut col[s..s + len], view)
+        }
+    }
+
+    /// Read access to every output.
+    fn view(&self, blk: Block) -> OutView<'_> {
+        OutView {
+            values: &self.values[..],
+            lo: &[],
+            hi: &self.jac[..],
+            d: 0,
+            n: self.n,
+            blk,
         }
     }
 }
 
+/// Read access to the outputs except output `d` (when `d > 0`; with
+/// `d == 0` and empty `values` the values are the excluded one).
+struct OutView<'a> {
+    values: &'a [f64],
+    /// Jacobian columns before `d` (or all of them when `d == 0`: `hi`).
+    lo: &'a [f64],
+    hi: &'a [f64],
+    d: u32,
+    n: usize,
+    blk: Block,
+}
+
+impl OutView<'_> {
+    #[inline(always)]
+    fn out(&self, o: u32) -> &[f64] {
+        let (s, len, n) = (self.blk.start, self.blk.len, self.n);
+        let col = if o == 0 {
+            self.values
+        } else if self.d == 0 {
+            &self.hi[(o as usize - 1) * n..]
+        } else if o < self.d {
+            &self.lo[(o as usize - 1) * n..]
+        } else {
+            &self.hi[(o - self.d - 1) as usize * n..]
+        };
+        &col[s..s + len]
+    }
+}
+
+/// Read access to registers (except the destination), outputs and data.
+struct Reader<'a> {
+    lo: &'a [f64],
+    hi: &'a [f64],
+    d: usize,
+    outs: OutView<'a>,
+    x: &'a [&'a [f64]],
+}
+
+impl Reader<'_> {
+    #[inline(always)]
+    fn get(&self, l: Loc) -> &[f64] {
+        let len = self.outs.blk.len;
+        match l {
+            Loc::R(r) => {
+                let r = r as usize;
+                if r < self.d {
+                    &self.lo[r * BLOCK..r * BLOCK + len]
+                } else {
+                    let o = (r - self.d - 1) * BLOCK;
+                    &self.hi[o..o + len]
+                }
+            }
+            Loc::O(o) => self.outs.out(o),
+            Loc::X(k) => {
+                let s = self.outs.blk.start;
+                &self.x[k as usize][s..s + len]
+            }
+        }
+    }
+}
+
+/// The destination of an instruction and read access to everything else.
 #[inline(always)]
-fn split(regs: &mut [f64], d: u32, len: usize) -> (&mut [f64], View<'_>) {
-    let d = d as usize;
-    let (lo, rest) = regs.split_at_mut(d * BLOCK);
-    let (dst, hi) = rest.split_at_mut(BLOCK);
-    (&mut dst[..len], View { lo, hi, d, len })
+fn split<'a>(
+    d: Loc,
+    regs: &'a mut [f64],
+    outs: &'a mut Outs<'_>,
+    x: &'a [&'a [f64]],
+    blk: Block,
+) -> (&'a mut [f64], Reader<'a>) {
+    match d {
+        Loc::R(r) => {
+            let r = r as usize;
+            let (lo, rest) = regs.split_at_mut(r * BLOCK);
+            let (dst, hi) = rest.split_at_mut(BLOCK);
+            (
+                &mut dst[..blk.len],
+                Reader {
+                    lo,
+                    hi,
+                    d: r,
+                    outs: outs.view(blk),
+                    x,
+                },
+            )
+        }
+        Loc::O(o) => {
+            let (dst, view) = outs.split_out(o, blk);
+            (
+                dst,
+                Reader {
+                    lo: regs,
+                    hi: &[],
+                    d: usize::MAX,
+                    outs: view,
+                    x,
+                },
+            )
+        }
+        Loc::X(_) => unreachable!("data columns are never written"),
+    }
 }
 
 #[inline(always)]
@@ -495,6 +715,20 @@ fn k3(d: &mut [f64], a: &[f64], b: &[f64], c: &[f64], f: impl Fn(f64, f64, f64) 
     }
 }
 
+#[inline(always)]
+fn ks_left(d: &mut [f64], s: f64, b: &[f64], f: impl Fn(f64, f64) -> f64) {
+    for (o, &y) in d.iter_mut().zip(b) {
+        *o = f(s, y);
+    }
+}
+
+#[inline(always)]
+fn ks_right(d: &mut [f64], a: &[f64], s: f64, f: impl Fn(f64, f64) -> f64) {
+    for (o, &x) in d.iter_mut().zip(a) {
+        *o = f(x, s);
+    }
+}
+
 macro_rules! un_kernel {
     ($op:expr, $d:expr, $a:expr) => {
         match $op {
@@ -514,8 +748,8 @@ macro_rules! un_kernel {
             Un::Sinh => k1($d, $a, f64::sinh),
             Un::Cosh => k1($d, $a, f64::cosh),
             Un::Tanh => k1($d, $a, f64::tanh),
-            Un::Erf => k1($d, $a, |x| Un::Erf.apply(x)),
-            Un::Erfc => k1($d, $a, |x| Un::Erfc.apply(x)),
+            Un::Erf => k1($d, $a, ops::erf),
+            Un::Erfc => k1($d, $a, ops::erfc),
         }
     };
 }
@@ -531,47 +765,34 @@ macro_rules! bin_kernel {
             Bin::Atan2 => $kern($d, $a, $b, f64::atan2),
             Bin::Min => $kern($d, $a, $b, ops::min),
             Bin::Max => $kern($d, $a, $b, ops::max),
+            Bin::MulZ => $kern($d, $a, $b, ops::mul_z),
         }
     };
 }
 
-#[inline(always)]
-fn ks_left(d: &mut [f64], s: f64, b: &[f64], f: impl Fn(f64, f64) -> f64) {
-    for (o, &y) in d.iter_mut().zip(b) {
-        *o = f(s, y);
-    }
-}
-
-#[inline(always)]
-fn ks_right(d: &mut [f64], a: &[f64], s: f64, f: impl Fn(f64, f64) -> f64) {
-    for (o, &x) in d.iter_mut().zip(a) {
-        *o = f(x, s);
-    }
-}
-
 /// Runs one column instruction over one block.
-fn exec(inst: &Ins, regs: &mut [f64], sc: &[f64], x: &[&[f64]], start: usize, len: usize) {
+fn exec(inst: &Ins, regs: &mut [f64], outs: &mut Outs<'_>, sc: &[f64], x: &[&[f64]], blk: Block) {
     match *inst {
-        Ins::Var { d, k } => {
-            let (dst, _) = split(regs, d, len);
-            dst.copy_from_slice(&x[k as usize][start..start + len]);
+        Ins::Copy { d, a } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
+            dst.copy_from_slice(r.get(a));
         }
         Ins::Un { op, d, a } => {
-            let (dst, v) = split(regs, d, len);
-            un_kernel!(op, dst, v.get(a));
+            let (dst, r) = split(d, regs, outs, x, blk);
+            un_kernel!(op, dst, r.get(a));
         }
-        Ins::RR { op, d, a, b } => {
-            let (dst, v) = split(regs, d, len);
-            bin_kernel!(op, k2, dst, v.get(a), v.get(b));
+        Ins::CC { op, d, a, b } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
+            bin_kernel!(op, k2, dst, r.get(a), r.get(b));
         }
-        Ins::SR { op, d, s, b } => {
-            let (dst, v) = split(regs, d, len);
-            bin_kernel!(op, ks_left, dst, sc[s as usize], v.get(b));
+        Ins::SC { op, d, s, b } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
+            bin_kernel!(op, ks_left, dst, sc[s as usize], r.get(b));
         }
-        Ins::RS { op, d, a, s } => {
-            let (dst, v) = split(regs, d, len);
+        Ins::CS { op, d, a, s } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
             let s = sc[s as usize];
-            let a = v.get(a);
+            let a = r.get(a);
             if op == Bin::Pow {
                 // Decide the power kernel once per block, not per point.
                 if s == 2.0 {
@@ -586,33 +807,33 @@ fn exec(inst: &Ins, regs: &mut [f64], sc: &[f64], x: &[&[f64]], start: usize, le
             }
         }
         Ins::Sel { d, p, q, t, f } => {
-            let (dst, v) = split(regs, d, len);
+            let (dst, r) = split(d, regs, outs, x, blk);
             let at = |s: Src, i: usize| match s {
-                Src::R(r) => v.get(r)[i],
+                Src::C(l) => r.get(l)[i],
                 Src::S(k) => sc[k as usize],
             };
             for (i, o) in dst.iter_mut().enumerate() {
                 *o = ops::select(at(p, i), at(q, i), at(t, i), at(f, i));
             }
         }
-        Ins::ExpSR { d, s, a } => {
-            let (dst, v) = split(regs, d, len);
+        Ins::ExpSC { d, s, a } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
             let s = sc[s as usize];
-            k1(dst, v.get(a), |x| (s * x).exp());
+            k1(dst, r.get(a), |x| (s * x).exp());
         }
-        Ins::FmaSRR { d, s, a, b } => {
-            let (dst, v) = split(regs, d, len);
+        Ins::FmaSCC { d, s, a, b } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
             let s = sc[s as usize];
-            k2(dst, v.get(a), v.get(b), |x, y| s * x + y);
+            k2(dst, r.get(a), r.get(b), |x, y| s * x + y);
         }
-        Ins::FmaRRR { d, a, b, c } => {
-            let (dst, v) = split(regs, d, len);
-            k3(dst, v.get(a), v.get(b), v.get(c), |x, y, z| x * y + z);
+        Ins::FmaCCC { d, a, b, c } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
+            k3(dst, r.get(a), r.get(b), r.get(c), |x, y, z| x * y + z);
         }
-        Ins::MulSRR { d, s, a, b } => {
-            let (dst, v) = split(regs, d, len);
+        Ins::MulSCC { d, s, a, b } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
             let s = sc[s as usize];
-            k2(dst, v.get(a), v.get(b), |x, y| s * x * y);
+            k2(dst, r.get(a), r.get(b), |x, y| s * (x * y));
         }
     }
 }

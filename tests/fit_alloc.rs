@@ -1,0 +1,115 @@
+//! The refit loop allocates nothing once the workspace exists and the
+//! model's scratch buffer has grown (a counting global allocator checks it).
+
+use fitaudit::fit::{DataView, FitOptions, Method, ParamSpec, Problem, Refitter};
+use fitaudit::model::{compile, ModelFn, NativeModel, Symbols};
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::sync::atomic::{AtomicUsize, Ordering};
+
+struct Counting;
+
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        System.alloc(layout)
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        System.dealloc(ptr, layout)
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        System.realloc(ptr, layout, new_size)
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+fn decay(p: &[f64], x: &[f64], g: &mut [f64]) -> f64 {
+    let t = x[0];
+    let e1 = (-p[1] * t).exp();
+    let e2 = (-p[3] * t).exp();
+    g[0] = e1;
+    g[1] = -p[0] * t * e1;
+    g[2] = e2;
+    g[3] = -p[2] * t * e2;
+    p[0] * e1 + p[2] * e2
+}
+
+fn count_refit_allocations(model: &dyn ModelFn, options: FitOptions) -> (usize, bool) {
+    // Exact data of the model at (2, 1.3, 0.8, 0.2): the solution is known
+    // (identity), the start is 8 % off.
+    let t: Vec<f64> = (0..200).map(|i| i as f64 * 0.05).collect();
+    let y: Vec<f64> = t
+        .iter()
+        .map(|&t| 2.0 * (-1.3 * t).exp() + 0.8 * (-0.2 * t).exp())
+        .collect();
+    let sigma = vec![0.01; t.len()];
+    let xs: Vec<&[f64]> = vec![&t];
+    let view = DataView {
+        x: &xs,
+        y: &y,
+        sigma: &sigma,
+    };
+    let mut bounded = ParamSpec::free("a2", 0.8);
+    bounded.min = 0.0;
+    let problem = Problem {
+        model,
+        params: vec![
+            ParamSpec::free("a1", 2.0),
+            ParamSpec::free("k1", 1.3),
+            bounded,
+            ParamSpec::free("k2", 0.2),
+        ],
+        options,
+    };
+    let start = [2.16, 1.2, 0.86, 0.184];
+    let free = [true, true, true, true];
+    let mut rf = Refitter::new(&problem, t.len());
+    // First refit may grow the model's scratch.
+    rf.refit(&problem, &view, &start, &free);
+    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    let mut ok = true;
+    for _ in 0..5 {
+        let r = rf.refit(&problem, &view, &start, &free);
+        ok &= r.converged && (rf.params()[1] - 1.3).abs() < 1e-6;
+        let r = rf.refit(&problem, &view, &start, &[true, false, true, true]);
+        ok &= r.converged;
+    }
+    (ALLOCATIONS.load(Ordering::SeqCst) - before, ok)
+}
+
+#[test]
+fn refits_allocate_nothing() {
+    let native = NativeModel::new(4, decay);
+    let p: Vec<String> = ["a1", "k1", "a2", "k2"].iter().map(|s| s.to_string()).collect();
+    let v = vec!["t".to_string()];
+    let syms = Symbols {
+        parameters: &p,
+        constants: &[],
+        variables: &v,
+    };
+    let tape = compile("a1*exp(-k1*t) + a2*exp(-k2*t)", &syms).unwrap();
+    let lm = FitOptions::default();
+    let geo = FitOptions {
+        geodesic: true,
+        ..FitOptions::default()
+    };
+    let sd = FitOptions {
+        method: Method::Steepest,
+        max_iterations: 2000,
+        ..FitOptions::default()
+    };
+    for (label, model) in [("native", &native as &dyn ModelFn), ("compiled", &tape)] {
+        let (n, ok) = count_refit_allocations(model, lm.clone());
+        assert_eq!(n, 0, "{label} LM");
+        assert!(ok, "{label} LM");
+        let (n, ok) = count_refit_allocations(model, geo.clone());
+        assert_eq!(n, 0, "{label} LM geodesic");
+        assert!(ok, "{label} LM geodesic");
+        let (n, _) = count_refit_allocations(model, sd.clone());
+        assert_eq!(n, 0, "{label} steepest");
+    }
+}
