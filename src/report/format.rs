@@ -93,15 +93,35 @@ pub fn at(x: f64, place: i32) -> String {
     format!("{x:.decimals$}")
 }
 
+/// A number without an uncertainty: [`DEFAULT_DIGITS`] significant digits,
+/// trailing zeros dropped (they would claim a precision nobody stated):
+/// `2.5`, `0.666667`, `1.2e-7`.
+pub fn plain(x: f64) -> String {
+    let s = sig(x, DEFAULT_DIGITS);
+    let (mantissa, exp) = match s.split_once('e') {
+        Some((m, e)) => (m.to_string(), Some(e.to_string())),
+        None => (s.clone(), None),
+    };
+    let m = if mantissa.contains('.') {
+        mantissa.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        mantissa
+    };
+    match exp {
+        Some(e) => format!("{m}e{e}"),
+        None => m,
+    }
+}
+
 /// A value and its standard uncertainty: the uncertainty to two significant
 /// digits, the value at the same decimal place. When the uncertainty is not
-/// a positive finite number, the value gets `fallback_digits` significant
-/// digits and the uncertainty prints as given (or the absent mark).
+/// a positive finite number, the value prints [`plain`] and the uncertainty
+/// as given (or the absent mark).
 pub fn value_and_uncertainty(value: f64, u: Option<f64>) -> (String, String) {
     match u.and_then(|u| last_place(u, UNCERTAINTY_DIGITS).map(|p| (u, p))) {
         Some((u, place)) => (at(value, place), sig(u, UNCERTAINTY_DIGITS)),
         None => (
-            sig(value, DEFAULT_DIGITS),
+            plain(value),
             u.map(|u| sig(u, UNCERTAINTY_DIGITS))
                 .unwrap_or_else(|| ABSENT.into()),
         ),
@@ -112,12 +132,12 @@ pub fn value_and_uncertainty(value: f64, u: Option<f64>) -> (String, String) {
 pub const DEFAULT_DIGITS: usize = 6;
 
 /// A number at the precision of a parameter: at the place of its standard
-/// uncertainty's second significant digit, or to [`DEFAULT_DIGITS`]
-/// significant digits when there is no usable uncertainty.
+/// uncertainty's second significant digit, or [`plain`] when there is no
+/// usable uncertainty.
 pub fn at_precision_of(x: f64, u: Option<f64>) -> String {
     match u.and_then(|u| last_place(u, UNCERTAINTY_DIGITS)) {
         Some(place) => at(x, place),
-        None => sig(x, DEFAULT_DIGITS),
+        None => plain(x),
     }
 }
 
@@ -208,7 +228,7 @@ mod tests {
 
     #[test]
     fn significant_digits_and_exponent_switch() {
-        assert_eq!(sig(3.14159265, 3), "3.14");
+        assert_eq!(sig(1.234567, 3), "1.23");
         assert_eq!(sig(-0.000_123_4, 2), "-0.00012");
         assert_eq!(sig(0.000_012_34, 2), "1.2e-5");
         assert_eq!(sig(123_456.0, 3), "123456");
@@ -229,14 +249,15 @@ mod tests {
             value_and_uncertainty(2.0 / 3.0, None),
             ("0.666667".into(), ABSENT.into())
         );
-        assert_eq!(
-            value_and_uncertainty(1.5, Some(0.0)),
-            ("1.50000".into(), "0".into())
-        );
+        assert_eq!(value_and_uncertainty(1.5, Some(0.0)), ("1.5".into(), "0".into()));
         assert_eq!(
             value_and_uncertainty(1.5, Some(f64::NAN)),
-            ("1.50000".into(), "NaN".into())
+            ("1.5".into(), "NaN".into())
         );
+        assert_eq!(plain(1.2e-7), "1.2e-7");
+        assert_eq!(plain(1.0e-7), "1e-7");
+        assert_eq!(plain(120.0), "120");
+        assert_eq!(plain(2_500_000.0), "2.5e6");
         assert_eq!(at_precision_of(21.4873, Some(0.061)), "21.487");
         assert_eq!(at_precision_of(21.4873, None), "21.4873");
     }

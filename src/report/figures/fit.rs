@@ -62,7 +62,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             };
             c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some(label))?;
             c.lines(
-                &[curve.clone()],
+                std::slice::from_ref(&curve),
                 Stroke::new(Dash::Solid, 2, 0),
                 Some("fitted model"),
             )?;

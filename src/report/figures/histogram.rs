@@ -18,7 +18,7 @@ pub(crate) fn bins(n: usize) -> usize {
 pub(crate) fn densities(values: &[f64], lo: f64, hi: f64, k: usize) -> Vec<f64> {
     let mut counts = vec![0usize; k];
     let w = (hi - lo) / k as f64;
-    if values.is_empty() || !(w > 0.0) {
+    if values.is_empty() || w.is_nan() || w <= 0.0 {
         return vec![0.0; k];
     }
     for &v in values {
@@ -90,7 +90,7 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         markers.push(Marker {
             label: "Monte Carlo interval".into(),
             short: "MC",
-            stroke: Stroke::new(Dash::LongDash, 2, 70),
+            stroke: Stroke::new(Dash::Long, 2, 70),
             ends: vec![m.lower, m.upper],
         });
     }
@@ -190,7 +190,7 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         }
         if !normal.is_empty() {
             c.lines(
-                &[normal.clone()],
+                std::slice::from_ref(&normal),
                 Stroke::new(Dash::Solid, 2, 0),
                 Some("analytic normal"),
             )?;

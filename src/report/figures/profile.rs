@@ -72,8 +72,12 @@ pub(crate) fn figure(
         let y_desc = "\u{394}\u{3c7}\u{b2} (profiled minus minimum)";
         let mut c = svg::chart(&plot, Some(&title), xr, yr, name, y_desc)?;
         let parabola = Stroke::new(Dash::Dashed, 2, 100);
-        c.lines(&[para.clone()], parabola, Some("covariance parabola"))?;
-        c.lines(&[prof.clone()], Stroke::new(Dash::Solid, 2, 0), Some("profile"))?;
+        c.lines(std::slice::from_ref(&para), parabola, Some("covariance parabola"))?;
+        c.lines(
+            std::slice::from_ref(&prof),
+            Stroke::new(Dash::Solid, 2, 0),
+            Some("profile"),
+        )?;
         c.points(&prof, Mark::new(Shape::Circle, 2, 0, true), None)?;
         let threshold = Stroke::new(Dash::Dotted, 2, 0);
         c.lines(&[vec![(xr.0, t), (xr.1, t)]], threshold, Some(&threshold_label))?;

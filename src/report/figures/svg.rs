@@ -45,7 +45,7 @@ pub(crate) enum Dash {
     /// 2 px dashes, 3 px gaps.
     Dotted,
     /// 14 px dashes, 5 px gaps.
-    LongDash,
+    Long,
 }
 
 impl Dash {
@@ -55,7 +55,7 @@ impl Dash {
             Dash::Solid => (1 << 28, 1),
             Dash::Dashed => (7, 4),
             Dash::Dotted => (2, 3),
-            Dash::LongDash => (14, 5),
+            Dash::Long => (14, 5),
         }
     }
 }
