@@ -64,21 +64,6 @@ where
     pool.install(f)
 }
 
-#[cfg(test)]
-mod tests {
-    use super::folder_name;
-
-    #[test]
-    fn folder_names_cannot_escape() {
-        assert_eq!(folder_name("cooling"), "cooling");
-        assert_eq!(folder_name(".."), "study__");
-        assert_eq!(folder_name("."), "study_");
-        assert_eq!(folder_name(""), "study");
-        assert_eq!(folder_name("a/../b"), "a_.._b");
-        assert_eq!(folder_name("Temp (°C)"), "Temp___C_");
-    }
-}
-
 /// A progress bar on stderr when stderr is a terminal and not `--quiet`.
 pub struct TerminalProgress {
     bar: Mutex<Option<ProgressBar>>,
@@ -211,4 +196,19 @@ pub fn demo_summary(summary: &crate::demo::DemoSummary) -> String {
         );
     }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::folder_name;
+
+    #[test]
+    fn folder_names_cannot_escape() {
+        assert_eq!(folder_name("cooling"), "cooling");
+        assert_eq!(folder_name(".."), "study__");
+        assert_eq!(folder_name("."), "study_");
+        assert_eq!(folder_name(""), "study");
+        assert_eq!(folder_name("a/../b"), "a_.._b");
+        assert_eq!(folder_name("Temp (°C)"), "Temp___C_");
+    }
 }

@@ -276,3 +276,30 @@ fn shared_and_pass_through_columns() {
         assert!((v[i] - 1.5 * x[i].exp()).abs() <= 1e-15 * v[i].abs());
     }
 }
+
+#[test]
+fn decay_compiles_to_six_fused_instructions() {
+    // exp(s*t) twice, a2*E2, a1*E1 + that, (-a1)*(t*E1), (-a2)*(t*E2): the
+    // shared exponentials serve value and Jacobian (see BENCHMARKS.md).
+    let t = tape(DECAY, &["a1", "k1", "a2", "k2"], &["t"]);
+    assert_eq!(t.n_instructions(), 6);
+    // Fused forms with subtraction and negated products give the same
+    // numbers as the formula computed by hand (arithmetic).
+    let t = tape(
+        "a*x - b*y*x - x*y + -(x*y*a) - (y - b*x)",
+        &["a", "b"],
+        &["x", "y"],
+    );
+    let (x, y) = ([0.5, 1.5, -2.0], [3.0, -1.0, 0.25]);
+    let mut v = [0.0; 3];
+    let mut j = [0.0; 6];
+    t.eval(&[2.0, 3.0], &[&x, &y], &mut v, Some(&mut j), &mut Vec::new())
+        .unwrap();
+    for i in 0..3 {
+        let (a, b, x, y) = (2.0, 3.0, x[i], y[i]);
+        let want = a * x - b * y * x - x * y + -(x * y * a) - (y - b * x);
+        assert!((v[i] - want).abs() < 1e-14, "{} vs {want}", v[i]);
+        assert!((j[i] - (x - x * y)).abs() < 1e-14);
+        assert!((j[3 + i] - (-y * x + x)).abs() < 1e-14);
+    }
+}

@@ -6,7 +6,9 @@
 mod resample_common;
 
 use fitaudit::diagnostics::resample::ResampleResult;
-use fitaudit::diagnostics::{bootstrap, monte_carlo, Fitted, NoProgress};
+use std::sync::atomic::{AtomicU64, Ordering};
+
+use fitaudit::diagnostics::{bootstrap, monte_carlo, Fitted, NoProgress, Progress};
 use fitaudit::settings::{
     AuditSettings, BootstrapScheme, BootstrapSettings, MonteCarloSettings, WildWeights,
 };
@@ -94,4 +96,60 @@ fn identical_for_any_thread_count_and_seed_dependent() {
         );
         assert_ne!(a.parameters[0].std, b.parameters[0].std, "{}", a.scheme);
     }
+}
+
+/// Counts what the diagnostics report to the progress bar.
+#[derive(Default)]
+struct Counter {
+    starts: AtomicU64,
+    total: AtomicU64,
+    advanced: AtomicU64,
+    finishes: AtomicU64,
+}
+
+impl Progress for Counter {
+    fn start(&self, _stage: &str, total: u64) {
+        self.starts.fetch_add(1, Ordering::SeqCst);
+        self.total.fetch_add(total, Ordering::SeqCst);
+    }
+    fn advance(&self, n: u64) {
+        self.advanced.fetch_add(n, Ordering::SeqCst);
+    }
+    fn finish(&self) {
+        self.finishes.fetch_add(1, Ordering::SeqCst);
+    }
+}
+
+#[test]
+fn progress_reaches_its_total() {
+    let t = grid(30, 0.0, 0.2);
+    let data = synthetic(&t, &[0.3; 30], |t| 10.0 * (-0.5 * t).exp(), 300, 1, true);
+    let model = decay_model();
+    let params = free_params(&[("A", 8.0), ("k", 0.4)]);
+    let fit = base_fit(&model, &params, &data);
+    let settings = AuditSettings {
+        bootstrap: BootstrapSettings {
+            replicates: 100,
+            ..BootstrapSettings::default()
+        },
+        monte_carlo: MonteCarloSettings {
+            replicates: 5000,
+            adaptive: true,
+            adaptive_tolerance: 0.3,
+            ..MonteCarloSettings::default()
+        },
+        ..AuditSettings::default()
+    };
+    let ctx = fitted(&model, &params, &data, &fit, &settings);
+    let c = Counter::default();
+    let b = bootstrap::run(&ctx, &c);
+    let m = monte_carlo::run(&ctx, &c);
+    assert_eq!(b.run + b.jackknife_refits, 130);
+    assert!(m.run < 5000, "stops early: {}", m.run);
+    // Two stages, each started and finished once; the bar reaches its total
+    // (replicates + jackknife) even when the adaptive rule stops early.
+    assert_eq!(c.starts.load(Ordering::SeqCst), 2);
+    assert_eq!(c.finishes.load(Ordering::SeqCst), 2);
+    assert_eq!(c.total.load(Ordering::SeqCst), 130 + 5030);
+    assert_eq!(c.advanced.load(Ordering::SeqCst), 130 + 5030);
 }

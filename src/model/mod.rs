@@ -13,14 +13,48 @@
 //!   tighter than unary minus: `-x^2` is `-(x^2)`, and `2^-1` is `0.5`);
 //! * parentheses, and square brackets used as parentheses;
 //! * the functions of [`catalogue`] and the constants of [`constants`];
-//! * names, resolved in this order: parameters, named constants of the
-//!   study, data columns (independent variables), built-in constants.
+//! * names (ASCII letters, digits and `_`, not starting with a digit),
+//!   resolved in this order: parameters, named constants of the study, data
+//!   columns (independent variables), built-in constants; an unknown name is
+//!   an error suggesting the closest known name;
+//! * whitespace (including line breaks) anywhere between tokens;
+//! * nesting (parentheses, calls, unary signs, powers) up to [`MAX_DEPTH`]
+//!   levels.
+//!
+//! Semantics worth knowing: `min`/`max` return NaN when either argument is
+//! NaN; the derivative of `abs` is the sign (0 at 0), that of `min`/`max`
+//! the derivative of the active argument (the first one at a tie); a power
+//! with an exponent that does not depend on the parameter differentiates as
+//! `b a^(b-1) a'` (so negative bases with integer exponents work), otherwise
+//! as `a^b (b' ln a + b a'/a)`.
 //!
 //! [`compile`] turns a formula into a [`Tape`]: a flat instruction list that
 //! computes the value and the exact derivative with respect to every
 //! parameter (symbolic differentiation, never finite differences), with
 //! common subexpressions shared and constants folded. The tape evaluates
 //! column-wise over blocks of data points into caller-provided buffers.
+//!
+//! ```
+//! use fitaudit::model::{compile, ModelFn, Symbols};
+//!
+//! let params = vec!["a".to_string(), "k".to_string()];
+//! let vars = vec!["t".to_string()];
+//! let syms = Symbols { parameters: &params, constants: &[], variables: &vars };
+//! let tape = compile("a*exp(-k*t)", &syms).unwrap();
+//!
+//! let t = [0.0, 1.0, 2.0];
+//! let mut values = [0.0; 3];
+//! let mut jac = [0.0; 6]; // column-major: d/da for every point, then d/dk
+//! let mut scratch = Vec::new();
+//! tape.eval(&[2.0, 0.5], &[&t], &mut values, Some(&mut jac), &mut scratch).unwrap();
+//! assert_eq!(values[0], 2.0);
+//! assert_eq!(jac[1], (-0.5f64).exp()); // d/da at t = 1
+//! assert_eq!(jac[3 + 2], -2.0 * 2.0 * (-1.0f64).exp()); // d/dk at t = 2
+//!
+//! let err = compile("a*exp(-kk*t)", &syms).unwrap_err();
+//! assert_eq!(err.column, Some(8));
+//! assert!(err.to_string().contains("did you mean 'k'?"));
+//! ```
 
 use std::fmt;
 

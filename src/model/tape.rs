@@ -58,10 +58,12 @@ enum Ins {
     Sel { d: Loc, p: Src, q: Src, t: Src, f: Src },
     /// d = exp(s * a)
     ExpSC { d: Loc, s: u32, a: Loc },
-    /// d = s * a + b
-    FmaSCC { d: Loc, s: u32, a: Loc, b: Loc },
-    /// d = a * b + c
-    FmaCCC { d: Loc, a: Loc, b: Loc, c: Loc },
+    /// d = (s * a) ± b, or b - s * a
+    FmaSCC { k: Comb, d: Loc, s: u32, a: Loc, b: Loc },
+    /// d = (a * b) ± c, or c - a * b
+    FmaCCC { k: Comb, d: Loc, a: Loc, b: Loc, c: Loc },
+    /// d = -(a * b)
+    NegMulCC { d: Loc, a: Loc, b: Loc },
     /// d = s * (a * b)
     MulSCC { d: Loc, s: u32, a: Loc, b: Loc },
 }
@@ -86,10 +88,22 @@ impl Ins {
             }
             Ins::ExpSC { d, a, .. } => (d, vec![a]),
             Ins::FmaSCC { d, a, b, .. } => (d, vec![a, b]),
-            Ins::FmaCCC { d, a, b, c } => (d, vec![a, b, c]),
+            Ins::FmaCCC { d, a, b, c, .. } => (d, vec![a, b, c]),
+            Ins::NegMulCC { d, a, b } => (d, vec![a, b]),
             Ins::MulSCC { d, a, b, .. } => (d, vec![a, b]),
         }
     }
+}
+
+/// How a fused product `p` combines with the other operand `c`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Comb {
+    /// p + c
+    Add,
+    /// p - c
+    ProdMinus,
+    /// c - p
+    MinusProd,
 }
 
 /// A scalar instruction over scalar slots.
@@ -227,7 +241,8 @@ impl Program {
             let mut absorb = None;
             match g.node(id as Id) {
                 Node::Un(Un::Exp, a) if absorbable(&emit, a) && scalar_mul(a).is_some() => absorb = Some(a),
-                Node::Bin(Bin::Add, x, y) if col(x) && col(y) => {
+                Node::Un(Un::Neg, a) if absorbable(&emit, a) && col_mul(a).is_some() => absorb = Some(a),
+                Node::Bin(Bin::Add | Bin::Sub, x, y) if col(x) && col(y) => {
                     for c in [x, y] {
                         if absorb.is_none()
                             && absorbable(&emit, c)
@@ -276,15 +291,21 @@ impl Program {
                         a: l(x),
                     }
                 }
+                (Node::Un(Un::Neg, m), Emit::Fused) => {
+                    let (a, b) = col_mul(m).expect("fusion checked the pattern");
+                    Ins::NegMulCC { d, a: l(a), b: l(b) }
+                }
                 (Node::Un(op, a), _) => Ins::Un { op, d, a: l(a) },
-                (Node::Bin(Bin::Add, x, y), Emit::Fused) => {
-                    let (m, other) = if emit[x as usize] == Emit::Inlined {
-                        (x, y)
+                (Node::Bin(op @ (Bin::Add | Bin::Sub), x, y), Emit::Fused) => {
+                    let sub = op == Bin::Sub;
+                    let (m, other, k) = if emit[x as usize] == Emit::Inlined {
+                        (x, y, if sub { Comb::ProdMinus } else { Comb::Add })
                     } else {
-                        (y, x)
+                        (y, x, if sub { Comb::MinusProd } else { Comb::Add })
                     };
                     if let Some((s, a)) = scalar_mul(m) {
                         Ins::FmaSCC {
+                            k,
                             d,
                             s: slot[s as usize],
                             a: l(a),
@@ -293,6 +314,7 @@ impl Program {
                     } else {
                         let (a, b) = col_mul(m).expect("fusion checked the pattern");
                         Ins::FmaCCC {
+                            k,
                             d,
                             a: l(a),
                             b: l(b),
@@ -821,14 +843,28 @@ fn exec(inst: &Ins, regs: &mut [f64], outs: &mut Outs<'_>, sc: &[f64], x: &[&[f6
             let s = sc[s as usize];
             k1(dst, r.get(a), |x| (s * x).exp());
         }
-        Ins::FmaSCC { d, s, a, b } => {
+        Ins::FmaSCC { k, d, s, a, b } => {
             let (dst, r) = split(d, regs, outs, x, blk);
             let s = sc[s as usize];
-            k2(dst, r.get(a), r.get(b), |x, y| s * x + y);
+            let (a, b) = (r.get(a), r.get(b));
+            match k {
+                Comb::Add => k2(dst, a, b, |x, y| s * x + y),
+                Comb::ProdMinus => k2(dst, a, b, |x, y| s * x - y),
+                Comb::MinusProd => k2(dst, a, b, |x, y| y - s * x),
+            }
         }
-        Ins::FmaCCC { d, a, b, c } => {
+        Ins::FmaCCC { k, d, a, b, c } => {
             let (dst, r) = split(d, regs, outs, x, blk);
-            k3(dst, r.get(a), r.get(b), r.get(c), |x, y, z| x * y + z);
+            let (a, b, c) = (r.get(a), r.get(b), r.get(c));
+            match k {
+                Comb::Add => k3(dst, a, b, c, |x, y, z| x * y + z),
+                Comb::ProdMinus => k3(dst, a, b, c, |x, y, z| x * y - z),
+                Comb::MinusProd => k3(dst, a, b, c, |x, y, z| z - x * y),
+            }
+        }
+        Ins::NegMulCC { d, a, b } => {
+            let (dst, r) = split(d, regs, outs, x, blk);
+            k2(dst, r.get(a), r.get(b), |x, y| -(x * y));
         }
         Ins::MulSCC { d, s, a, b } => {
             let (dst, r) = split(d, regs, outs, x, blk);
