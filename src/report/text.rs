@@ -162,37 +162,37 @@ fn signature(f: &FunctionInfo) -> String {
 }
 
 /// The functions and constants of the formula language (`fitaudit models`),
-/// from [`crate::model::catalogue`]: entries of arity 0 are constants.
+/// from [`crate::model::catalogue`] and [`crate::model::constants`].
 pub fn models_table() -> String {
-    catalogue_table(crate::model::catalogue())
+    catalogue_table(crate::model::catalogue(), crate::model::constants())
 }
 
-/// [`models_table`] for a given catalogue.
-pub fn catalogue_table(entries: &[FunctionInfo]) -> String {
-    if entries.is_empty() {
+/// [`models_table`] for a given catalogue: functions with their arguments
+/// and description, then constants with their values (shortest exact
+/// decimal form).
+pub fn catalogue_table(functions: &[FunctionInfo], constants: &[(&str, f64)]) -> String {
+    if functions.is_empty() && constants.is_empty() {
         return "No functions or constants are known to this build.\n".into();
     }
     let mut out = String::new();
-    let functions: Vec<Vec<String>> = entries
-        .iter()
-        .filter(|f| f.arity > 0)
-        .map(|f| vec![format!("  {}", signature(f)), f.description.to_string()])
-        .collect();
-    let constants: Vec<Vec<String>> = entries
-        .iter()
-        .filter(|f| f.arity == 0)
-        .map(|f| vec![format!("  {}", f.name), f.description.to_string()])
-        .collect();
     if !functions.is_empty() {
+        let rows: Vec<Vec<String>> = functions
+            .iter()
+            .map(|f| vec![format!("  {}", signature(f)), f.description.to_string()])
+            .collect();
         out.push_str("Functions:\n");
-        out.push_str(&columns(&functions, &[]));
+        out.push_str(&columns(&rows, &[]));
     }
     if !constants.is_empty() {
         if !out.is_empty() {
             out.push('\n');
         }
+        let rows: Vec<Vec<String>> = constants
+            .iter()
+            .map(|(n, v)| vec![format!("  {n}"), format!("{v}")])
+            .collect();
         out.push_str("Constants:\n");
-        out.push_str(&columns(&constants, &[]));
+        out.push_str(&columns(&rows, &[]));
     }
     out
 }
@@ -210,25 +210,29 @@ mod tests {
                 description: "exponential",
             },
             FunctionInfo {
-                name: "pi",
-                arity: 0,
-                description: "ratio of circumference to diameter",
-            },
-            FunctionInfo {
                 name: "atan2",
                 arity: 2,
                 description: "angle of (x, y)",
             },
         ];
-        let t = catalogue_table(&entries);
+        let t = catalogue_table(&entries, &[("pi", std::f64::consts::PI)]);
         assert_eq!(
             t,
             "Functions:\n  exp(x)       exponential\n  atan2(x, y)  angle of (x, y)\n\n\
-             Constants:\n  pi  ratio of circumference to diameter\n"
+             Constants:\n  pi  3.141592653589793\n"
         );
         assert_eq!(
-            catalogue_table(&[]),
+            catalogue_table(&[], &[]),
             "No functions or constants are known to this build.\n"
+        );
+        // The language's own catalogue: exp is there, and pi and e with their
+        // values (mathematical constants to 16 digits).
+        let real = models_table();
+        assert!(real.lines().any(|l| l.starts_with("  exp(x) ")), "{real}");
+        assert!(real.lines().any(|l| l == "  pi  3.141592653589793"), "{real}");
+        assert!(
+            real.lines().any(|l| l.trim_end() == "  e   2.718281828459045"),
+            "{real}"
         );
     }
 
