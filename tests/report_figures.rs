@@ -1,9 +1,9 @@
 //! The figures: the expected files, well-formed self-contained SVG,
 //! labelled axes, greyscale only, escaped text, safe file names.
 
-mod common;
+#[path = "common/fixture.rs"]
+mod fixture;
 
-use common::fixture;
 use fitaudit::report::figures::{self, multistart_plane_order, Figures};
 
 fn svg_texts(svg: &str) -> Vec<String> {

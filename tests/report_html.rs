@@ -1,8 +1,8 @@
 //! report.html: well-formed, self-contained, escaped, sections in order.
 
-mod common;
+#[path = "common/fixture.rs"]
+mod fixture;
 
-use common::fixture;
 use fitaudit::audit::AuditResults;
 use fitaudit::report::{figures, format, html};
 

@@ -1,11 +1,11 @@
 //! results.json: round trip, schema version, non-finite numbers, and
 //! docs/RESULTS.md documenting every field.
 
-mod common;
+#[path = "common/fixture.rs"]
+mod fixture;
 
 use std::collections::BTreeSet;
 
-use common::fixture;
 use fitaudit::audit::{AuditResults, SCHEMA_VERSION};
 use fitaudit::report::json;
 

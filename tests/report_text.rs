@@ -1,8 +1,8 @@
 //! Terminal tables: fit table, verdict lines.
 
-mod common;
+#[path = "common/fixture.rs"]
+mod fixture;
 
-use common::fixture;
 use fitaudit::fit::{FitResult, ParamResult, ParamSpec, StopReason};
 use fitaudit::report::text;
 

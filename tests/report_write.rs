@@ -1,12 +1,12 @@
 //! write_report: exactly the expected files, committed atomically; a failing
 //! render leaves no folder; summary.md and replicates.csv contents.
 
-mod common;
+#[path = "common/fixture.rs"]
+mod fixture;
 
 use std::collections::BTreeSet;
 use std::path::Path;
 
-use common::fixture;
 use fitaudit::audit::{AuditOptions, AuditResults};
 use fitaudit::report::{self, figures, markdown, Figures, Renderer, ReportError};
 

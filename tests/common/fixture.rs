@@ -10,6 +10,8 @@
 //! and contours are the quadratic (covariance) forms, the tau profile with
 //! an added cubic term so that its interval is asymmetric.
 
+#![allow(dead_code)]
+
 use fitaudit::audit::{AuditResults, Curve, Provenance, StudyInfo, SCHEMA_VERSION};
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::contour::{ContourGrid, ContourLine, ContourResult};

@@ -1,3 +1,0 @@
-//! Shared test fixtures.
-#![allow(dead_code)]
-pub mod fixture;
