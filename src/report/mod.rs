@@ -1,46 +1,181 @@
-//! Report layer (STUB on main until the report branch lands; same signatures).
+//! The report: one renderer per output format, all reading the same
+//! [`AuditResults`]; the figures are drawn once and shared.
+//!
+//! [`write_report`] writes, into one output folder committed atomically
+//! through [`crate::output::Staging`]:
+//!
+//! | file | renderer |
+//! |---|---|
+//! | `report.html` | [`html::Html`]: one self-contained page, inline SVG and CSS |
+//! | `results.json` | [`json::Json`]: everything computed (docs/RESULTS.md) |
+//! | `summary.md` | [`markdown::Markdown`]: verdict and comparison tables |
+//! | `figures/*.svg` | [`figures::SvgFiles`]: every figure as its own file |
+//! | `replicates.csv` | [`csv::Replicates`]: on request, every replicate estimate |
+//!
+//! The terminal tables of the command line are in [`text`].
 
 use std::path::{Path, PathBuf};
 
 use crate::audit::{AuditOptions, AuditResults};
+use crate::output::{OutputError, Staging};
 
-/// Report errors (STUB).
+pub mod csv;
+pub mod figures;
+pub mod format;
+pub mod html;
+pub mod json;
+pub mod markdown;
+pub mod tables;
+pub mod text;
+
+pub use figures::{Figure, Figures};
+
+/// Errors of the report layer.
 #[derive(Debug, thiserror::Error)]
 pub enum ReportError {
-    /// Output folder failure.
+    /// Writing the output folder failed.
     #[error(transparent)]
-    Output(#[from] crate::output::OutputError),
+    Output(#[from] OutputError),
+    /// A figure could not be drawn.
+    #[error("figure {name}: {message}")]
+    Figure {
+        /// File name of the figure.
+        name: String,
+        /// What went wrong.
+        message: String,
+    },
+    /// The results could not be written as JSON.
+    #[error("results.json: {0}")]
+    Json(#[from] serde_json::Error),
+    /// The replicate table could not be written.
+    #[error("replicates.csv: {0}")]
+    Csv(String),
 }
 
-/// Writes the report folder (STUB: results.json only).
+/// One output format. A renderer only produces bytes; the caller does the
+/// file I/O (through [`Staging`]), so a renderer never leaves half a file.
+pub trait Renderer {
+    /// Short name of the format (for messages).
+    fn name(&self) -> &'static str;
+    /// The files of this format: `(path relative to the output folder, contents)`.
+    fn render(
+        &self,
+        results: &AuditResults,
+        figures: &Figures,
+    ) -> Result<Vec<(String, Vec<u8>)>, ReportError>;
+}
+
+/// The renderers `fitaudit audit` runs, in order.
+pub fn default_renderers(options: &AuditOptions) -> Vec<Box<dyn Renderer>> {
+    let mut out: Vec<Box<dyn Renderer>> = vec![
+        Box::new(html::Html),
+        Box::new(json::Json),
+        Box::new(markdown::Markdown),
+        Box::new(figures::SvgFiles),
+    ];
+    if options.write_replicates {
+        out.push(Box::new(csv::Replicates));
+    }
+    out
+}
+
+/// Draws the figures and writes every output of the audit into `out`:
+/// `report.html`, `results.json`, `summary.md`, `figures/*.svg` and, when
+/// `options.write_replicates`, `replicates.csv`. Nothing appears at `out`
+/// unless every file was written. Returns the final folder.
 pub fn write_report(
     results: &AuditResults,
     out: &Path,
     options: &AuditOptions,
 ) -> Result<PathBuf, ReportError> {
-    let _ = options;
-    let staging = crate::output::Staging::new(out)?;
-    let json = serde_json::to_vec_pretty(results).unwrap_or_default();
-    staging.write("results.json", &json)?;
+    let figures = figures::build(results)?;
+    let renderers = default_renderers(options);
+    let refs: Vec<&dyn Renderer> = renderers.iter().map(|r| r.as_ref()).collect();
+    write_with(results, &figures, out, &refs)
+}
+
+/// Runs `renderers` and writes their files into `out` atomically: any error
+/// (of a renderer or of the file system) leaves no folder behind.
+pub fn write_with(
+    results: &AuditResults,
+    figures: &Figures,
+    out: &Path,
+    renderers: &[&dyn Renderer],
+) -> Result<PathBuf, ReportError> {
+    // Render everything before touching the disk.
+    let mut files = Vec::new();
+    for r in renderers {
+        files.extend(r.render(results, figures)?);
+    }
+    let staging = Staging::new(out)?;
+    for (path, bytes) in &files {
+        staging.write(path, bytes)?;
+    }
     Ok(staging.commit()?)
 }
 
-/// Plain-text renderers (STUB).
-pub mod text {
-    use crate::audit::AuditResults;
-    use crate::fit::{FitResult, ParamSpec};
+/// The notice that leads every report when the multi-start search found a
+/// clearly lower minimum than the base fit: `(base chi2, best chi2)`.
+pub fn better_minimum(results: &AuditResults) -> Option<(f64, f64)> {
+    let ms = results.multistart.as_ref()?;
+    if ms.base_is_best {
+        return None;
+    }
+    let best = ms
+        .minima
+        .iter()
+        .map(|m| m.chi2)
+        .filter(|c| c.is_finite())
+        .fold(f64::INFINITY, f64::min);
+    Some((ms.base_chi2, best))
+}
 
-    /// Fit table (STUB).
-    pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> String {
-        let _ = (title, params);
-        format!("{fit:?}\n")
+/// The profile points that lie below the base fit's chi-squared:
+/// `(parameter, held value, chi2 there)`. Such a point means the base fit is
+/// not the minimum; the report leads with it like a better multi-start minimum.
+pub fn profile_below_base(results: &AuditResults) -> Vec<(String, f64, f64)> {
+    let Some(p) = &results.profile else {
+        return Vec::new();
+    };
+    p.parameters
+        .iter()
+        .filter_map(|q| {
+            q.below_minimum
+                .as_ref()
+                .map(|b| (q.name.clone(), b.value, b.chi2))
+        })
+        .collect()
+}
+
+/// The caution that closes every report.
+pub const CAUTION: &str = "Statistics support, and do not replace, a laboratory's own validation \
+procedure and the applicable standards. The diagnostics in this report show how far the quoted \
+uncertainties agree with resampling, simulation and the shape of the chi-squared surface for this \
+data set and this model; they do not establish that the model is right, that the data are free of \
+systematic error, or that the method is fit for its intended use.";
+
+/// Coverage factor of a two-sided normal interval at `level`: the
+/// standard-normal quantile at (1 + level) / 2 (1.96 at 95 %). The analytic
+/// interval at the study's level is value +- k u.
+pub fn coverage_factor(level: f64) -> f64 {
+    use statrs::distribution::{ContinuousCDF, Normal};
+    match Normal::new(0.0, 1.0) {
+        Ok(n) if level > 0.0 && level < 1.0 => n.inverse_cdf(0.5 + level / 2.0),
+        _ => f64::NAN,
     }
-    /// Verdict lines (STUB).
-    pub fn verdict_lines(results: &AuditResults) -> String {
-        format!("{:?}\n", results.verdicts)
-    }
-    /// Function catalogue (STUB).
-    pub fn models_table() -> String {
-        String::new()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn coverage_factors_of_the_normal_table() {
+        // GUM (JCGM 100:2008) table G.1: p = 95 % -> k = 1.960, p = 99 % ->
+        // k = 2.576, p = 68.27 % -> k = 1.
+        assert!((coverage_factor(0.95) - 1.959_964).abs() < 1e-5);
+        assert!((coverage_factor(0.99) - 2.575_829).abs() < 1e-5);
+        assert!((coverage_factor(0.6827) - 1.0).abs() < 1e-3);
+        assert!(coverage_factor(1.0).is_nan());
     }
 }

@@ -1,0 +1,147 @@
+//! `contour_<p1>_<p2>.svg`: profiled chi-squared contour lines of one
+//! parameter pair, the covariance ellipses at the same levels and, when the
+//! bootstrap ran, the cloud of bootstrap estimates.
+
+use super::svg::{self, Dash, Mark, Shape, Stroke};
+use super::{estimate_column, Figure};
+use crate::audit::AuditResults;
+use crate::diagnostics::contour::{ContourLine, ContourResult};
+use crate::report::{format, ReportError};
+
+/// Most bootstrap points drawn (the first ones in replicate order).
+pub(crate) const MAX_CLOUD: usize = 2000;
+
+fn polylines(lines: &ContourLine) -> Vec<Vec<(f64, f64)>> {
+    lines
+        .paths
+        .iter()
+        .map(|p| p.iter().map(|q| (q[0], q[1])).collect())
+        .collect()
+}
+
+const LEVEL_STROKES: [Stroke; 3] = [
+    Stroke::new(Dash::Solid, 2, 0),
+    Stroke::new(Dash::Solid, 1, 0),
+    Stroke::new(Dash::Solid, 1, 120),
+];
+const ELLIPSE_STROKES: [Stroke; 3] = [
+    Stroke::new(Dash::Dashed, 2, 0),
+    Stroke::new(Dash::Dashed, 1, 0),
+    Stroke::new(Dash::Dotted, 1, 60),
+];
+
+/// The contour figure of one pair, or None when nothing can be drawn.
+pub(crate) fn figure(
+    results: &AuditResults,
+    c: &ContourResult,
+    file: String,
+) -> Result<Option<Figure>, ReportError> {
+    if c.skipped.is_some() {
+        return Ok(None);
+    }
+    let [a, b] = [&c.pair[0], &c.pair[1]];
+    let frame_pts = c
+        .lines
+        .iter()
+        .chain(c.ellipse.iter())
+        .flat_map(|l| l.paths.iter().flatten())
+        .copied()
+        .chain(c.grid.x.iter().filter_map(|&x| c.grid.y.first().map(|&y| [x, y])))
+        .chain(c.grid.y.iter().filter_map(|&y| c.grid.x.first().map(|&x| [x, y])));
+    let pts: Vec<[f64; 2]> = frame_pts.collect();
+    let xr = svg::extent(pts.iter().map(|p| p[0]));
+    let yr = svg::extent(pts.iter().map(|p| p[1]));
+    let (Some(xr), Some(yr)) = (xr, yr) else {
+        return Ok(None);
+    };
+    let fit = &results.fit;
+    let value = |n: &str| fit.parameters.iter().find(|p| p.name == n).map(|p| p.value);
+    let centre = value(a).zip(value(b));
+
+    // The bootstrap cloud, inside the frame.
+    let names: Vec<String> = fit.parameters.iter().map(|p| p.name.clone()).collect();
+    let mut cloud = Vec::new();
+    let mut outside = 0usize;
+    let mut total = 0usize;
+    if let Some(bs) = &results.bootstrap {
+        if let (Some(ja), Some(jb)) = (estimate_column(bs, &names, a), estimate_column(bs, &names, b)) {
+            for row in &bs.estimates {
+                let (Some(&x), Some(&y)) = (row.get(ja), row.get(jb)) else {
+                    continue;
+                };
+                if !(x.is_finite() && y.is_finite()) {
+                    continue;
+                }
+                total += 1;
+                if x < xr.0 || x > xr.1 || y < yr.0 || y > yr.1 {
+                    outside += 1;
+                } else if cloud.len() < MAX_CLOUD {
+                    cloud.push((x, y));
+                }
+            }
+        }
+    }
+    let drawn = cloud.len();
+    let level_label = |k: usize, what: &str| {
+        let p = c.level_probabilities.get(k).copied();
+        let lv = c
+            .lines
+            .get(k)
+            .map(|l| l.level)
+            .or(c.levels.get(k).copied())
+            .unwrap_or(f64::NAN);
+        match p {
+            Some(p) => format!(
+                "{what} \u{394}\u{3c7}\u{b2} = {} ({})",
+                format::sig(lv, 3),
+                format::percent(p, 3)
+            ),
+            None => format!("{what} \u{394}\u{3c7}\u{b2} = {}", format::sig(lv, 3)),
+        }
+    };
+    let text = svg::render(&file, (640 + svg::LEGEND_WIDTH, 600), |root| {
+        let (plot, side) = root.split_horizontally(640);
+        let title = format!("Contours of {a} and {b}");
+        let mut ch = svg::chart(&plot, Some(&title), xr, yr, a, b)?;
+        if !cloud.is_empty() {
+            ch.points(
+                &cloud,
+                Mark::new(Shape::Circle, 1, 175, true),
+                Some("bootstrap estimates"),
+            )?;
+        }
+        for (k, l) in c.lines.iter().enumerate() {
+            let stroke = LEVEL_STROKES[k.min(LEVEL_STROKES.len() - 1)];
+            ch.lines(&polylines(l), stroke, Some(&level_label(k, "profiled")))?;
+        }
+        for (k, l) in c.ellipse.iter().enumerate() {
+            let stroke = ELLIPSE_STROKES[k.min(ELLIPSE_STROKES.len() - 1)];
+            ch.lines(&polylines(l), stroke, Some(&level_label(k, "ellipse")))?;
+        }
+        if let Some(ct) = centre {
+            ch.points(&[ct], Mark::new(Shape::Cross, 5, 0, true), Some("base fit"))?;
+        }
+        svg::legend(&side, &ch.legend)?;
+        Ok(())
+    })?;
+    let mut caption = format!(
+        "Profiled chi-squared contours of {a} and {b} (solid; the other parameters refitted at every grid \
+         node) and the covariance ellipses at the same levels (dashed), for two parameters jointly."
+    );
+    if total > 0 {
+        caption.push_str(&format!(" Grey dots: {drawn} of {total} bootstrap estimates"));
+        if outside > 0 {
+            caption.push_str(&format!(" ({outside} outside the frame)"));
+        }
+        caption.push('.');
+    }
+    if c.failed > 0 {
+        caption.push_str(&format!(" {} grid nodes failed to refit.", c.failed));
+    }
+    Ok(Some(Figure {
+        file,
+        title: format!("Contours of {a} and {b}"),
+        caption,
+        svg: text,
+    }))
+}

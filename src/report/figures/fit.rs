@@ -1,0 +1,151 @@
+//! `fit.svg`: the data with their error bars and the fitted curve, with the
+//! normalised residuals in a panel below.
+
+use super::svg::{self, Dash, Mark, Shape, Stroke};
+use super::Figure;
+use crate::audit::AuditResults;
+use crate::report::ReportError;
+
+/// Axis title of normalised residuals.
+pub(crate) fn residual_label(results: &AuditResults) -> &'static str {
+    if results.data.has_sigma() {
+        "normalised residual (y \u{2212} f)/\u{3c3}"
+    } else {
+        "residual y \u{2212} f (no \u{3c3} given)"
+    }
+}
+
+/// The fit figure, or None when there are no points.
+pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportError> {
+    let data = &results.data;
+    if data.is_empty() || data.x.is_empty() {
+        return Ok(None);
+    }
+    let sigma = data.sigma.clone();
+    let n = data.len();
+    let err = |i: usize| sigma.as_ref().and_then(|s| s.get(i).copied()).unwrap_or(0.0);
+    let res_label = residual_label(results);
+    let fitted = &results.fit.fitted;
+    let residuals = &results.fit.residuals;
+    let y_name = data.y_name.as_str();
+
+    if data.x.len() == 1 {
+        let x = &data.x[0];
+        let x_name = data.x_names.first().map(String::as_str).unwrap_or("x");
+        let curve: Vec<(f64, f64)> = results
+            .curve
+            .as_ref()
+            .map(|c| c.x.iter().copied().zip(c.y.iter().copied()).collect())
+            .unwrap_or_default();
+        let xr = svg::extent(x.iter().copied().chain(curve.iter().map(|p| p.0)));
+        let yr = svg::extent(
+            (0..n)
+                .flat_map(|i| [data.y[i] - err(i), data.y[i] + err(i)])
+                .chain(curve.iter().map(|p| p.1)),
+        );
+        let (Some(xr), Some(yr)) = (xr, yr) else {
+            return Ok(None);
+        };
+        let res_pts: Vec<(f64, f64)> = x.iter().copied().zip(residuals.iter().copied()).collect();
+        let rr = svg::extent(res_pts.iter().map(|p| p.1).chain([0.0])).unwrap_or((-1.0, 1.0));
+        let svg_text = svg::render("fit.svg", (720 + svg::LEGEND_WIDTH, 620), |root| {
+            let (plot, side) = root.split_horizontally(720);
+            let (top, bottom) = plot.split_vertically(410);
+            let mut c = svg::chart(&top, Some("Data and fitted model"), xr, yr, x_name, y_name)?;
+            let bars: Vec<(f64, f64, f64)> = (0..n).map(|i| (x[i], data.y[i], err(i))).collect();
+            c.error_bars(&bars, 90)?;
+            let pts: Vec<(f64, f64)> = (0..n).map(|i| (x[i], data.y[i])).collect();
+            let label = if sigma.is_some() {
+                "data \u{b1} \u{3c3}"
+            } else {
+                "data"
+            };
+            c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some(label))?;
+            c.lines(
+                std::slice::from_ref(&curve),
+                Stroke::new(Dash::Solid, 2, 0),
+                Some("fitted model"),
+            )?;
+            svg::legend(&side, &c.legend)?;
+            let mut r = svg::chart(&bottom, None, xr, rr, x_name, res_label)?;
+            r.lines(
+                &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
+                Stroke::new(Dash::Solid, 1, 110),
+                None,
+            )?;
+            r.points(&res_pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+            Ok(())
+        })?;
+        return Ok(Some(Figure {
+            file: "fit.svg".into(),
+            title: "Data and fitted model".into(),
+            caption: format!(
+                "Top: {y_name} against {x_name}, {}, and the fitted model. Bottom: {} of each point.",
+                if sigma.is_some() {
+                    "error bars \u{b1}1 standard uncertainty"
+                } else {
+                    "no uncertainties given"
+                },
+                if sigma.is_some() {
+                    "the normalised residual (y \u{2212} f)/\u{3c3}"
+                } else {
+                    "the residual y \u{2212} f"
+                }
+            ),
+            svg: svg_text,
+        }));
+    }
+
+    // Several independent variables: observed against fitted, residuals against fitted.
+    let m = n.min(fitted.len());
+    if m == 0 {
+        return Ok(None);
+    }
+    let obs: Vec<(f64, f64)> = (0..m).map(|i| (fitted[i], data.y[i])).collect();
+    let lim = svg::extent((0..m).flat_map(|i| [fitted[i], data.y[i] - err(i), data.y[i] + err(i)]));
+    let Some(lim) = lim else {
+        return Ok(None);
+    };
+    let res_pts: Vec<(f64, f64)> = fitted.iter().copied().zip(residuals.iter().copied()).collect();
+    let rr = svg::extent(res_pts.iter().map(|p| p.1).chain([0.0])).unwrap_or((-1.0, 1.0));
+    let fitted_label = format!("fitted {y_name}");
+    let svg_text = svg::render("fit.svg", (720 + svg::LEGEND_WIDTH, 620), |root| {
+        let (plot, side) = root.split_horizontally(720);
+        let (top, bottom) = plot.split_vertically(410);
+        let mut c = svg::chart(
+            &top,
+            Some("Observed against fitted"),
+            lim,
+            lim,
+            &fitted_label,
+            y_name,
+        )?;
+        let bars: Vec<(f64, f64, f64)> = (0..m).map(|i| (fitted[i], data.y[i], err(i))).collect();
+        c.error_bars(&bars, 90)?;
+        c.lines(
+            &[vec![(lim.0, lim.0), (lim.1, lim.1)]],
+            Stroke::new(Dash::Dashed, 1, 0),
+            Some("observed = fitted"),
+        )?;
+        c.points(&obs, Mark::new(Shape::Circle, 3, 0, false), Some("data"))?;
+        svg::legend(&side, &c.legend)?;
+        let mut r = svg::chart(&bottom, None, lim, rr, &fitted_label, res_label)?;
+        r.lines(
+            &[vec![(lim.0, 0.0), (lim.1, 0.0)]],
+            Stroke::new(Dash::Solid, 1, 110),
+            None,
+        )?;
+        r.points(&res_pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+        Ok(())
+    })?;
+    Ok(Some(Figure {
+        file: "fit.svg".into(),
+        title: "Observed against fitted".into(),
+        caption: format!(
+            "Top: observed {y_name} against the fitted values ({} independent variables), with the line \
+             where they agree. Bottom: the residuals against the fitted values.",
+            data.x.len()
+        ),
+        svg: svg_text,
+    }))
+}

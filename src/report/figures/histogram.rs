@@ -1,0 +1,257 @@
+//! `hist_<p>.svg`: bootstrap and Monte Carlo estimates of one parameter as
+//! densities, the analytic normal curve, and the ends of every interval.
+
+use plotters::style::text_anchor::{HPos, Pos, VPos};
+
+use super::svg::{self, Dash, Stroke};
+use super::{column, estimate_column, Figure};
+use crate::audit::AuditResults;
+use crate::report::{coverage_factor, format, ReportError};
+
+/// Number of histogram bins for `n` values: the Rice rule 2 n^(1/3)
+/// (common practice), kept between 8 and 50.
+pub(crate) fn bins(n: usize) -> usize {
+    ((2.0 * (n as f64).cbrt()).ceil() as usize).clamp(8, 50)
+}
+
+/// Densities of `values` over `k` equal bins from `lo` to `hi`: count / (n width).
+pub(crate) fn densities(values: &[f64], lo: f64, hi: f64, k: usize) -> Vec<f64> {
+    let mut counts = vec![0usize; k];
+    let w = (hi - lo) / k as f64;
+    if values.is_empty() || w.is_nan() || w <= 0.0 {
+        return vec![0.0; k];
+    }
+    for &v in values {
+        let b = (((v - lo) / w).floor() as isize).clamp(0, k as isize - 1) as usize;
+        counts[b] += 1;
+    }
+    counts
+        .iter()
+        .map(|&c| c as f64 / (values.len() as f64 * w))
+        .collect()
+}
+
+struct Marker {
+    label: String,
+    short: &'static str,
+    stroke: Stroke,
+    ends: Vec<f64>,
+}
+
+/// The histogram of parameter `j`, or None when no resampling ran for it.
+pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Option<Figure>, ReportError> {
+    let p = &results.fit.parameters[j];
+    if p.fixed {
+        return Ok(None);
+    }
+    let names: Vec<String> = results.fit.parameters.iter().map(|p| p.name.clone()).collect();
+    let take = |rs: Option<&crate::diagnostics::resample::ResampleResult>| {
+        rs.and_then(|rs| estimate_column(rs, &names, &p.name).map(|c| column(rs, c)))
+            .filter(|v| v.len() >= 2)
+    };
+    let boot = take(results.bootstrap.as_ref());
+    let mc = take(results.monte_carlo.as_ref());
+    if boot.is_none() && mc.is_none() {
+        return Ok(None);
+    }
+    let level = results.settings.level;
+    let k = coverage_factor(level);
+    let se = p.std_error.filter(|s| s.is_finite() && *s > 0.0);
+
+    let mut markers = Vec::new();
+    if let Some(se) = se {
+        markers.push(Marker {
+            label: format!("analytic value \u{b1} {}\u{b7}u", format::sig(k, 3)),
+            short: "\u{b1}u",
+            stroke: Stroke::new(Dash::Solid, 2, 130),
+            ends: vec![p.value - k * se, p.value + k * se],
+        });
+    }
+    let find = |rs: Option<&crate::diagnostics::resample::ResampleResult>| {
+        rs.and_then(|rs| rs.parameters.iter().find(|q| q.name == p.name).cloned())
+    };
+    if let Some(b) = find(results.bootstrap.as_ref()) {
+        markers.push(Marker {
+            label: "bootstrap percentile".into(),
+            short: "pct",
+            stroke: Stroke::new(Dash::Dashed, 2, 0),
+            ends: vec![b.lower, b.upper],
+        });
+        if let (Some(lo), Some(hi)) = (b.bca_lower, b.bca_upper) {
+            markers.push(Marker {
+                label: "bootstrap BCa".into(),
+                short: "BCa",
+                stroke: Stroke::new(Dash::Dotted, 2, 0),
+                ends: vec![lo, hi],
+            });
+        }
+    }
+    if let Some(m) = find(results.monte_carlo.as_ref()) {
+        markers.push(Marker {
+            label: "Monte Carlo interval".into(),
+            short: "MC",
+            stroke: Stroke::new(Dash::Long, 2, 70),
+            ends: vec![m.lower, m.upper],
+        });
+    }
+    if let Some(pp) = results
+        .profile
+        .as_ref()
+        .and_then(|pr| pr.parameters.iter().find(|q| q.name == p.name))
+    {
+        let mut ends = Vec::new();
+        if pp.lower_found {
+            ends.push(pp.lower);
+        }
+        if pp.upper_found {
+            ends.push(pp.upper);
+        }
+        markers.push(Marker {
+            label: "profile interval".into(),
+            short: "prof",
+            stroke: Stroke::new(Dash::Solid, 1, 0),
+            ends,
+        });
+    }
+    for m in &mut markers {
+        m.ends.retain(|v| v.is_finite());
+    }
+
+    let all: Vec<f64> = boot
+        .iter()
+        .chain(mc.iter())
+        .flatten()
+        .copied()
+        .chain(markers.iter().flat_map(|m| m.ends.iter().copied()))
+        .collect();
+    let Some(xr) = svg::extent(all.iter().copied()) else {
+        return Ok(None);
+    };
+    let (lo, hi) = svg::extent(boot.iter().chain(mc.iter()).flatten().copied()).unwrap_or(xr);
+    let nb = bins(
+        boot.as_ref()
+            .map_or(0, Vec::len)
+            .max(mc.as_ref().map_or(0, Vec::len)),
+    );
+    let w = (hi - lo) / nb as f64;
+    let dens_b = boot.as_ref().map(|v| densities(v, lo, hi, nb));
+    let dens_m = mc.as_ref().map(|v| densities(v, lo, hi, nb));
+    let hist_max = dens_b
+        .iter()
+        .chain(dens_m.iter())
+        .flatten()
+        .copied()
+        .fold(0.0, f64::max);
+    let normal: Vec<(f64, f64)> = match se {
+        Some(se) => (0..=200)
+            .map(|i| {
+                let x = xr.0 + (xr.1 - xr.0) * i as f64 / 200.0;
+                let z = (x - p.value) / se;
+                (
+                    x,
+                    (-0.5 * z * z).exp() / (se * (2.0 * std::f64::consts::PI).sqrt()),
+                )
+            })
+            .collect(),
+        None => Vec::new(),
+    };
+    let peak = normal.iter().map(|p| p.1).fold(hist_max, f64::max);
+    let ymax = if peak > 0.0 && peak.is_finite() {
+        peak * 1.25
+    } else {
+        1.0
+    };
+    let file = format!("hist_{stem}.svg");
+    let name = p.name.as_str();
+
+    let text = svg::render(&file, (680 + svg::LEGEND_WIDTH, 500), |root| {
+        let (plot, side) = root.split_horizontally(680);
+        let title = format!("Resampled estimates of {name}");
+        let mut c = svg::chart(&plot, Some(&title), xr, (0.0, ymax), name, "density")?;
+        if let Some(d) = &dens_b {
+            let boxes: Vec<[f64; 4]> = d
+                .iter()
+                .enumerate()
+                .filter(|(_, h)| **h > 0.0)
+                .map(|(i, h)| [lo + w * i as f64, 0.0, lo + w * (i + 1) as f64, *h])
+                .collect();
+            let label = format!("bootstrap ({} replicates)", boot.as_ref().map_or(0, Vec::len));
+            c.boxes(&boxes, 205, Some(&label))?;
+        }
+        if let Some(d) = &dens_m {
+            let mut step = vec![(lo, 0.0)];
+            for (i, h) in d.iter().enumerate() {
+                step.push((lo + w * i as f64, *h));
+                step.push((lo + w * (i + 1) as f64, *h));
+            }
+            step.push((hi, 0.0));
+            let label = format!("Monte Carlo ({} trials)", mc.as_ref().map_or(0, Vec::len));
+            c.lines(&[step], Stroke::new(Dash::Dashed, 1, 0), Some(&label))?;
+        }
+        if !normal.is_empty() {
+            c.lines(
+                std::slice::from_ref(&normal),
+                Stroke::new(Dash::Solid, 2, 0),
+                Some("analytic normal"),
+            )?;
+        }
+        for (row, m) in markers.iter().enumerate() {
+            let segs: Vec<Vec<(f64, f64)>> =
+                m.ends.iter().map(|&x| vec![(x, 0.0), (x, ymax * 0.86)]).collect();
+            c.lines(&segs, m.stroke, Some(&m.label))?;
+            for &x in &m.ends {
+                let y = ymax * (0.975 - 0.028 * row as f64);
+                c.text(m.short, (x, y), 10, Pos::new(HPos::Center, VPos::Center))?;
+            }
+        }
+        svg::legend(&side, &c.legend)?;
+        Ok(())
+    })?;
+
+    let mut parts = Vec::new();
+    if let Some(b) = &boot {
+        parts.push(format!("{} bootstrap replicates (grey bars)", b.len()));
+    }
+    if let Some(m) = &mc {
+        parts.push(format!("{} Monte Carlo trials (dashed outline)", m.len()));
+    }
+    Ok(Some(Figure {
+        file,
+        title: format!("Resampled estimates of {name}"),
+        caption: format!(
+            "Estimates of {name} from {} as densities{}. Vertical lines mark the ends of every interval \
+             at the {} level: analytic value \u{b1} {}\u{b7}u, bootstrap percentile and BCa, Monte Carlo \
+             and profile, labelled at the top.",
+            parts.join(" and "),
+            if se.is_some() {
+                ", with the normal density of the analytic value and standard error (solid curve)"
+            } else {
+                "; no analytic standard error"
+            },
+            format::percent(level, 4),
+            format::sig(k, 3)
+        ),
+        svg: text,
+    }))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rice_bins_and_densities_integrate_to_one() {
+        // Rice rule: 2 n^(1/3); n = 1000 gives 20 (common practice).
+        assert_eq!(bins(1000), 20);
+        assert_eq!(bins(5), 8);
+        assert_eq!(bins(1_000_000), 50);
+        let v: Vec<f64> = (0..100).map(|i| i as f64 / 10.0).collect();
+        let d = densities(&v, 0.0, 9.9, 11);
+        let w = 9.9 / 11.0;
+        let total: f64 = d.iter().map(|h| h * w).sum();
+        // Identity: a density histogram has unit area.
+        assert!((total - 1.0).abs() < 1e-12);
+        // The maximum lands in the last bin.
+        assert!(d[10] > 0.0);
+    }
+}

@@ -1,0 +1,144 @@
+//! `residuals_qq.svg` (normal Q-Q plot) and `residuals_x.svg` (residuals
+//! against each independent variable).
+
+use statrs::distribution::{ContinuousCDF, Normal};
+
+use super::fit::residual_label;
+use super::svg::{self, Dash, Mark, Shape, Stroke};
+use super::Figure;
+use crate::audit::AuditResults;
+use crate::report::ReportError;
+
+/// Theoretical standard-normal quantiles of `n` ordered values at the Hazen
+/// plotting positions `p_i = (i - 0.5) / n`, i = 1..n (Hazen 1914): the
+/// median of each of n equal-probability slices.
+pub fn hazen_quantiles(n: usize) -> Vec<f64> {
+    let Ok(normal) = Normal::new(0.0, 1.0) else {
+        return Vec::new();
+    };
+    (1..=n)
+        .map(|i| normal.inverse_cdf((i as f64 - 0.5) / n as f64))
+        .collect()
+}
+
+/// The Q-Q plot and the residuals-against-x panels.
+pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError> {
+    let mut out = Vec::new();
+    let mut r: Vec<f64> = results
+        .fit
+        .residuals
+        .iter()
+        .copied()
+        .filter(|v| v.is_finite())
+        .collect();
+    if r.len() >= 3 {
+        r.sort_by(f64::total_cmp);
+        let q = hazen_quantiles(r.len());
+        let pts: Vec<(f64, f64)> = q.iter().copied().zip(r.iter().copied()).collect();
+        let lim = svg::extent(q.iter().chain(r.iter()).copied()).unwrap_or((-3.0, 3.0));
+        let y_label = format!("ordered {}", residual_label(results));
+        let text = svg::render("residuals_qq.svg", (560 + svg::LEGEND_WIDTH, 520), |root| {
+            let (plot, side) = root.split_horizontally(560);
+            let mut c = svg::chart(
+                &plot,
+                Some("Normal Q-Q plot of the residuals"),
+                lim,
+                lim,
+                "standard normal quantile (Hazen positions)",
+                &y_label,
+            )?;
+            c.lines(
+                &[vec![(lim.0, lim.0), (lim.1, lim.1)]],
+                Stroke::new(Dash::Dashed, 1, 0),
+                Some("unit normal (residual = quantile)"),
+            )?;
+            c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some("residuals"))?;
+            svg::legend(&side, &c.legend)?;
+            Ok(())
+        })?;
+        out.push(Figure {
+            file: "residuals_qq.svg".into(),
+            title: "Normal Q-Q plot of the residuals".into(),
+            caption: format!(
+                "The {} ordered residuals against standard normal quantiles at the Hazen plotting \
+                 positions (i \u{2212} 0.5)/n. Points on the dashed line are what normally distributed \
+                 residuals with the stated uncertainties give; a steeper line means larger scatter \
+                 than the uncertainties say, curvature means heavy or skewed tails.",
+                r.len()
+            ),
+            svg: text,
+        });
+    }
+
+    let data = &results.data;
+    let res = &results.fit.residuals;
+    let k = data.x.len();
+    if k == 0 || res.is_empty() {
+        return Ok(out);
+    }
+    let rr = svg::extent(res.iter().copied().chain([0.0])).unwrap_or((-1.0, 1.0));
+    let height = 80 + 240 * k as u32;
+    let text = svg::render("residuals_x.svg", (760, height), |root| {
+        let panels = root.split_evenly((k, 1));
+        for (v, panel) in panels.iter().enumerate() {
+            let col = &data.x[v];
+            let name = data.x_names.get(v).map(String::as_str).unwrap_or("x");
+            let Some(xr) = svg::extent(col.iter().copied()) else {
+                continue;
+            };
+            let caption = (v == 0).then_some("Residuals against the independent variables");
+            let mut c = svg::chart(panel, caption, xr, rr, name, residual_label(results))?;
+            c.lines(
+                &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
+                Stroke::new(Dash::Solid, 1, 110),
+                None,
+            )?;
+            for band in [-2.0, 2.0] {
+                c.lines(
+                    &[vec![(xr.0, band), (xr.1, band)]],
+                    Stroke::new(Dash::Dotted, 1, 90),
+                    None,
+                )?;
+            }
+            let pts: Vec<(f64, f64)> = col.iter().copied().zip(res.iter().copied()).collect();
+            c.points(&pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+        }
+        Ok(())
+    })?;
+    let names = data.x_names.join(", ");
+    out.push(Figure {
+        file: "residuals_x.svg".into(),
+        title: "Residuals against the independent variables".into(),
+        caption: format!(
+            "Residuals against {names}; dotted lines at \u{b1}2. A trend or a funnel shape points to a \
+             model or weighting problem."
+        ),
+        svg: text,
+    });
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn hazen_positions_against_normal_table() {
+        // n = 10: the first position is 0.05; the standard normal 5 % point
+        // is -1.6449 (NIST/SEMATECH e-Handbook of Statistical Methods,
+        // 1.3.6.7.1, table of the normal distribution: z_0.95 = 1.645).
+        let q = hazen_quantiles(10);
+        assert_eq!(q.len(), 10);
+        assert!((q[0] + 1.644_854).abs() < 1e-5, "{}", q[0]);
+        assert!((q[9] - 1.644_854).abs() < 1e-5);
+        // Symmetry of the positions (identity): q_i = -q_(n+1-i); odd n has 0 in the middle.
+        for i in 0..10 {
+            assert!((q[i] + q[9 - i]).abs() < 1e-9);
+        }
+        let q = hazen_quantiles(5);
+        assert!(q[2].abs() < 1e-12);
+        // n = 4: p = 0.125 -> z = -1.1503 (same table: Phi(1.15) = 0.8749).
+        let q = hazen_quantiles(4);
+        assert!((q[0] + 1.150_35).abs() < 1e-4, "{}", q[0]);
+    }
+}

@@ -1,0 +1,521 @@
+//! Drawing helpers on top of plotters' SVG backend: greyscale line styles
+//! (solid, dashed, dotted, long dash), marker shapes, axis set-up and the
+//! conversion of a finished drawing into a self-contained SVG string.
+//!
+//! Text is written as SVG `<text>` elements in the generic `sans-serif`
+//! family: no font file is read or embedded, and plotters escapes the text.
+
+use std::panic::{catch_unwind, AssertUnwindSafe};
+
+use plotters::coord::types::RangedCoordf64;
+use plotters::coord::Shift;
+use plotters::element::{DashedPathElement, Drawable, PointCollection};
+use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
+use plotters_backend::{BackendCoord, DrawingErrorKind};
+
+use crate::report::format;
+use crate::report::ReportError;
+
+/// Result of a drawing step; plotters' errors are boxed and reported as
+/// [`ReportError::Figure`].
+pub(crate) type DrawResult = Result<(), Box<dyn std::error::Error>>;
+
+/// A Cartesian chart with floating-point axes on the SVG backend.
+pub(crate) type Chart<'a, 'b> = ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
+
+/// The drawing area handed to a figure.
+pub(crate) type Area<'a> = DrawingArea<SVGBackend<'a>, Shift>;
+
+/// Font family of every label: a generic family, so no font is needed.
+pub(crate) const FONT: &str = "sans-serif";
+
+/// A grey level (0 black, 255 white).
+pub(crate) fn grey(level: u8) -> RGBColor {
+    RGBColor(level, level, level)
+}
+
+/// Dash pattern of a line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Dash {
+    /// Continuous.
+    Solid,
+    /// 7 px dashes, 4 px gaps.
+    Dashed,
+    /// 2 px dashes, 3 px gaps.
+    Dotted,
+    /// 14 px dashes, 5 px gaps.
+    Long,
+}
+
+impl Dash {
+    /// (dash, gap) in pixels; a solid line is one dash longer than any path.
+    fn pattern(self) -> (i32, i32) {
+        match self {
+            Dash::Solid => (1 << 28, 1),
+            Dash::Dashed => (7, 4),
+            Dash::Dotted => (2, 3),
+            Dash::Long => (14, 5),
+        }
+    }
+}
+
+/// How a line is drawn: dash pattern, width in pixels, grey level.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Stroke {
+    /// Dash pattern.
+    pub dash: Dash,
+    /// Width in pixels.
+    pub width: u32,
+    /// Grey level.
+    pub grey: u8,
+}
+
+impl Stroke {
+    /// A stroke.
+    pub const fn new(dash: Dash, width: u32, grey: u8) -> Stroke {
+        Stroke { dash, width, grey }
+    }
+
+    fn style(self) -> ShapeStyle {
+        grey(self.grey).stroke_width(self.width)
+    }
+
+    fn element<C: Clone>(self, points: Vec<C>) -> DashedPathElement<std::vec::IntoIter<C>, i32> {
+        let (on, off) = self.dash.pattern();
+        DashedPathElement::new(points, on, off, self.style())
+    }
+}
+
+/// Marker shape.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Shape {
+    /// Circle.
+    Circle,
+    /// Square.
+    Square,
+    /// Triangle, apex up.
+    Triangle,
+    /// Diagonal cross.
+    Cross,
+    /// Diamond.
+    Diamond,
+}
+
+/// A marker: shape, radius in pixels, grey level, filled or hollow.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Mark {
+    /// Shape.
+    pub shape: Shape,
+    /// Radius in pixels.
+    pub size: i32,
+    /// Grey level.
+    pub grey: u8,
+    /// Filled (true) or outlined.
+    pub filled: bool,
+}
+
+impl Mark {
+    /// A marker.
+    pub const fn new(shape: Shape, size: i32, grey: u8, filled: bool) -> Mark {
+        Mark {
+            shape,
+            size,
+            grey,
+            filled,
+        }
+    }
+
+    /// The marker as an element at `c` (data or pixel coordinates).
+    pub fn at<C>(self, c: C) -> MarkerElement<C> {
+        MarkerElement { at: c, mark: self }
+    }
+}
+
+/// A marker drawn at one point; one element type for every shape.
+pub(crate) struct MarkerElement<C> {
+    at: C,
+    mark: Mark,
+}
+
+impl<'a, C: 'a> PointCollection<'a, C> for &'a MarkerElement<C> {
+    type Point = &'a C;
+    type IntoIter = std::iter::Once<&'a C>;
+    fn point_iter(self) -> Self::IntoIter {
+        std::iter::once(&self.at)
+    }
+}
+
+impl<C, DB: DrawingBackend> Drawable<DB> for MarkerElement<C> {
+    fn draw<I: Iterator<Item = BackendCoord>>(
+        &self,
+        mut pos: I,
+        backend: &mut DB,
+        _parent: (u32, u32),
+    ) -> Result<(), DrawingErrorKind<DB::ErrorType>> {
+        let Some((x, y)) = pos.next() else {
+            return Ok(());
+        };
+        let m = self.mark;
+        let s = m.size.max(1);
+        let colour = grey(m.grey);
+        let style = if m.filled {
+            colour.filled()
+        } else {
+            colour.stroke_width(1)
+        };
+        let outline = |backend: &mut DB, pts: Vec<BackendCoord>| {
+            if m.filled {
+                backend.fill_polygon(pts, &style)
+            } else {
+                let mut closed = pts.clone();
+                closed.push(pts[0]);
+                backend.draw_path(closed, &style)
+            }
+        };
+        match m.shape {
+            Shape::Circle => backend.draw_circle((x, y), s as u32, &style, m.filled),
+            Shape::Square => backend.draw_rect((x - s, y - s), (x + s, y + s), &style, m.filled),
+            Shape::Triangle => {
+                let t = s + 1;
+                outline(
+                    backend,
+                    vec![(x, y - t), (x + t, y + t * 3 / 4), (x - t, y + t * 3 / 4)],
+                )
+            }
+            Shape::Diamond => {
+                let t = s + 1;
+                outline(backend, vec![(x, y - t), (x + t, y), (x, y + t), (x - t, y)])
+            }
+            Shape::Cross => {
+                let line = colour.stroke_width(if m.filled { 2 } else { 1 });
+                backend.draw_line((x - s, y - s), (x + s, y + s), &line)?;
+                backend.draw_line((x - s, y + s), (x + s, y - s), &line)
+            }
+        }
+    }
+}
+
+/// The maximal runs of finite points of a polyline.
+pub(crate) fn finite_runs(points: &[(f64, f64)]) -> Vec<Vec<(f64, f64)>> {
+    let mut out = Vec::new();
+    let mut cur = Vec::new();
+    for &(x, y) in points {
+        if x.is_finite() && y.is_finite() {
+            cur.push((x, y));
+        } else if !cur.is_empty() {
+            out.push(std::mem::take(&mut cur));
+        }
+    }
+    if !cur.is_empty() {
+        out.push(cur);
+    }
+    out
+}
+
+/// What a legend entry shows beside its label.
+#[derive(Debug, Clone, Copy)]
+pub(crate) enum Key {
+    /// A line sample.
+    Line(Stroke),
+    /// A marker.
+    Mark(Mark),
+    /// A filled box of this grey.
+    Fill(u8),
+}
+
+/// A chart together with the legend entries of what was drawn on it.
+pub(crate) struct Plot<'a, 'b> {
+    /// The plotters chart.
+    pub chart: Chart<'a, 'b>,
+    /// Legend entries in drawing order.
+    pub legend: Vec<(String, Key)>,
+}
+
+impl<'a, 'b: 'a> Plot<'a, 'b> {
+    /// Draws polylines (non-finite points break them) with one legend entry.
+    pub fn lines(
+        &mut self,
+        polylines: &[Vec<(f64, f64)>],
+        stroke: Stroke,
+        label: Option<&str>,
+    ) -> DrawResult {
+        let segs: Vec<Vec<(f64, f64)>> = polylines
+            .iter()
+            .flat_map(|l| finite_runs(l))
+            .filter(|s| s.len() >= 2)
+            .collect();
+        if segs.is_empty() {
+            return Ok(());
+        }
+        self.chart
+            .draw_series(segs.into_iter().map(|s| stroke.element(s)))?;
+        if let Some(l) = label {
+            self.legend.push((l.to_string(), Key::Line(stroke)));
+        }
+        Ok(())
+    }
+
+    /// Draws markers at the finite points, with one legend entry.
+    pub fn points(&mut self, pts: &[(f64, f64)], mark: Mark, label: Option<&str>) -> DrawResult {
+        let pts: Vec<(f64, f64)> = pts
+            .iter()
+            .copied()
+            .filter(|(x, y)| x.is_finite() && y.is_finite())
+            .collect();
+        if pts.is_empty() {
+            return Ok(());
+        }
+        self.chart.draw_series(pts.into_iter().map(|p| mark.at(p)))?;
+        if let Some(l) = label {
+            self.legend.push((l.to_string(), Key::Mark(mark)));
+        }
+        Ok(())
+    }
+
+    /// Vertical error bars from `y - e` to `y + e` with 3 px caps.
+    pub fn error_bars(&mut self, bars: &[(f64, f64, f64)], stroke_grey: u8) -> DrawResult {
+        let style = grey(stroke_grey).stroke_width(1);
+        let ok = |v: &&(f64, f64, f64)| v.0.is_finite() && v.1.is_finite() && v.2.is_finite() && v.2 > 0.0;
+        self.chart.draw_series(
+            bars.iter()
+                .filter(ok)
+                .map(|&(x, y, e)| PathElement::new(vec![(x, y - e), (x, y + e)], style)),
+        )?;
+        for sign in [-1.0, 1.0] {
+            self.chart.draw_series(bars.iter().filter(ok).map(|&(x, y, e)| {
+                EmptyElement::at((x, y + sign * e)) + PathElement::new(vec![(-3, 0), (3, 0)], style)
+            }))?;
+        }
+        Ok(())
+    }
+
+    /// Filled boxes `[x0, y0, x1, y1]` in data coordinates, with one legend entry.
+    pub fn boxes(&mut self, boxes: &[[f64; 4]], fill: u8, label: Option<&str>) -> DrawResult {
+        let style = grey(fill).filled();
+        self.chart.draw_series(
+            boxes
+                .iter()
+                .filter(|b| b.iter().all(|v| v.is_finite()))
+                .map(|b| Rectangle::new([(b[0], b[1]), (b[2], b[3])], style)),
+        )?;
+        if let Some(l) = label {
+            self.legend.push((l.to_string(), Key::Fill(fill)));
+        }
+        Ok(())
+    }
+
+    /// Text at a data position (escaped by the backend).
+    pub fn text(&mut self, s: &str, at: (f64, f64), size: u32, pos: Pos) -> DrawResult {
+        if !(at.0.is_finite() && at.1.is_finite()) {
+            return Ok(());
+        }
+        let style = TextStyle::from((FONT, size).into_font()).color(&BLACK).pos(pos);
+        self.chart
+            .draw_series(std::iter::once(Text::new(s.to_string(), at, style)))?;
+        Ok(())
+    }
+}
+
+/// Splits a label into lines of at most `width` characters at spaces.
+pub(crate) fn wrap(label: &str, width: usize) -> Vec<String> {
+    let mut lines = Vec::new();
+    let mut cur = String::new();
+    // A unit sign stays with its number.
+    let mut words: Vec<String> = Vec::new();
+    for w in label.split(' ') {
+        match words.last_mut() {
+            Some(last) if w.starts_with('%') => {
+                last.push(' ');
+                last.push_str(w);
+            }
+            _ => words.push(w.to_string()),
+        }
+    }
+    for word in &words {
+        let len = cur.chars().count();
+        if len > 0 && len + 1 + word.chars().count() > width {
+            lines.push(std::mem::take(&mut cur));
+        }
+        if !cur.is_empty() {
+            cur.push(' ');
+        }
+        cur.push_str(word);
+    }
+    if !cur.is_empty() {
+        lines.push(cur);
+    }
+    lines
+}
+
+/// Draws a legend at the top of `area` (a side column beside the charts).
+pub(crate) fn legend(area: &Area, entries: &[(String, Key)]) -> DrawResult {
+    if entries.is_empty() {
+        return Ok(());
+    }
+    let (w, _) = area.dim_in_pixel();
+    let chars = ((w as f64 - 52.0) / 6.5).max(12.0) as usize;
+    let style = TextStyle::from((FONT, 12).into_font())
+        .color(&BLACK)
+        .pos(Pos::new(HPos::Left, VPos::Center));
+    let mut y = 46;
+    let top = y - 14;
+    for (label, key) in entries {
+        let (x0, x1) = (12, 36);
+        match *key {
+            Key::Line(s) => area.draw(&s.element(vec![(x0, y), (x1, y)]))?,
+            Key::Mark(m) => area.draw(&m.at(((x0 + x1) / 2, y)))?,
+            Key::Fill(g) => area.draw(&Rectangle::new([(x0, y - 6), (x1, y + 6)], grey(g).filled()))?,
+        }
+        for line in wrap(label, chars) {
+            area.draw(&Text::new(line, (x1 + 8, y), style.clone()))?;
+            y += 16;
+        }
+        y += 4;
+    }
+    area.draw(&Rectangle::new(
+        [(4, top), (w as i32 - 6, y - 8)],
+        grey(150).stroke_width(1),
+    ))?;
+    Ok(())
+}
+
+/// Width of the legend column.
+pub(crate) const LEGEND_WIDTH: u32 = 240;
+
+/// Axis extent of the finite values, widened by 5 % on each side; a single
+/// value gets a window around it. None when no value is finite.
+pub(crate) fn extent(values: impl IntoIterator<Item = f64>) -> Option<(f64, f64)> {
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in values {
+        if v.is_finite() {
+            lo = lo.min(v);
+            hi = hi.max(v);
+        }
+    }
+    if lo > hi {
+        return None;
+    }
+    Some(pad(lo, hi, 0.05))
+}
+
+/// `[lo, hi]` widened by `frac` of its width; a zero width gets a window.
+pub(crate) fn pad(lo: f64, hi: f64, frac: f64) -> (f64, f64) {
+    let w = hi - lo;
+    if w > 0.0 && w.is_finite() {
+        (lo - frac * w, hi + frac * w)
+    } else {
+        let h = if lo != 0.0 { lo.abs() * 0.05 } else { 1.0 };
+        (lo - h, hi + h)
+    }
+}
+
+/// Builds a chart on `area` with axis titles and tick labels formatted by
+/// [`format::tick`].
+pub(crate) fn chart<'a, 'b>(
+    area: &'a Area<'b>,
+    caption: Option<&str>,
+    x: (f64, f64),
+    y: (f64, f64),
+    x_desc: &str,
+    y_desc: &str,
+) -> Result<Plot<'a, 'b>, Box<dyn std::error::Error>> {
+    let mut builder = ChartBuilder::on(area);
+    builder.margin(12).x_label_area_size(44).y_label_area_size(68);
+    if let Some(c) = caption {
+        builder.caption(c, (FONT, 16));
+    }
+    let mut chart = builder.build_cartesian_2d(x.0..x.1, y.0..y.1)?;
+    let (xs, ys) = (x.1 - x.0, y.1 - y.0);
+    let fx = move |v: &f64| format::tick(*v, xs);
+    let fy = move |v: &f64| format::tick(*v, ys);
+    chart
+        .configure_mesh()
+        .x_desc(x_desc)
+        .y_desc(y_desc)
+        .x_labels(7)
+        .y_labels(7)
+        .x_label_formatter(&fx)
+        .y_label_formatter(&fy)
+        .bold_line_style(grey(225))
+        .light_line_style(grey(245))
+        .axis_style(grey(60))
+        .label_style((FONT, 12))
+        .axis_desc_style((FONT, 14))
+        .draw()?;
+    Ok(Plot {
+        chart,
+        legend: Vec::new(),
+    })
+}
+
+/// Renders a drawing of `size` pixels into a standalone SVG document.
+/// Errors and panics inside plotters both become [`ReportError::Figure`].
+pub(crate) fn render(
+    name: &str,
+    size: (u32, u32),
+    draw: impl FnOnce(&Area) -> DrawResult,
+) -> Result<String, ReportError> {
+    let fail = |message: String| ReportError::Figure {
+        name: name.to_string(),
+        message,
+    };
+    let outcome = catch_unwind(AssertUnwindSafe(|| {
+        let mut buf = String::new();
+        let res = {
+            let root = SVGBackend::with_string(&mut buf, size).into_drawing_area();
+            root.fill(&WHITE)
+                .map_err(|e| e.to_string())
+                .and_then(|_| draw(&root).map_err(|e| e.to_string()))
+                .and_then(|_| root.present().map_err(|e| e.to_string()))
+        };
+        res.map(|_| buf)
+    }));
+    match outcome {
+        Ok(Ok(svg)) => Ok(svg),
+        Ok(Err(msg)) => Err(fail(msg)),
+        Err(_) => Err(fail("the plotting library stopped on these values".into())),
+    }
+}
+
+/// The SVG document in a form fit for inlining into HTML: without the XML
+/// namespace declaration (HTML puts `<svg>` in the SVG namespace by itself,
+/// and the report must not contain a single URL).
+pub fn inline(svg: &str) -> String {
+    svg.replacen(r#" xmlns="http://www.w3.org/2000/svg""#, "", 1)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn legend_labels_wrap_at_spaces_keeping_units() {
+        assert_eq!(
+            wrap("profiled level (68.3 %)", 16),
+            vec!["profiled level", "(68.3 %)"]
+        );
+        assert_eq!(wrap("a b c", 3), vec!["a b", "c"]);
+        assert_eq!(
+            wrap("averyveryverylongword x", 5),
+            vec!["averyveryverylongword", "x"]
+        );
+        assert_eq!(
+            finite_runs(&[(0.0, 1.0), (1.0, f64::NAN), (2.0, 2.0), (3.0, 3.0)]),
+            vec![vec![(0.0, 1.0)], vec![(2.0, 2.0), (3.0, 3.0)]]
+        );
+        assert_eq!(pad(1.0, 1.0, 0.05), (0.95, 1.05));
+        assert_eq!(pad(0.0, 0.0, 0.05), (-1.0, 1.0));
+        assert_eq!(extent([f64::NAN, 0.0, 10.0]), Some((-0.5, 10.5)));
+        assert_eq!(extent([f64::NAN]), None);
+    }
+
+    #[test]
+    fn inlined_svg_carries_no_url() {
+        let svg = render("t.svg", (40, 30), |_| Ok(())).unwrap();
+        assert!(svg.contains("http://www.w3.org/2000/svg"));
+        let inl = inline(&svg);
+        assert!(!inl.contains("http"));
+        assert!(inl.starts_with("<svg"));
+    }
+}

@@ -1,0 +1,554 @@
+//! The tables of the report as plain text cells, shared by the HTML page,
+//! the Markdown summary and the terminal: every number is formatted here,
+//! once, and each renderer only escapes and lays out the cells.
+
+use std::collections::BTreeMap;
+
+use crate::audit::AuditResults;
+use crate::diagnostics::profile::EndStatus;
+use crate::diagnostics::resample::{ResampleResult, ResampledParameter};
+use crate::diagnostics::verdict::Status;
+use crate::fit::{FitResult, ParamResult, StopReason};
+use crate::report::{coverage_factor, format};
+use crate::settings::{BootstrapScheme, WildWeights};
+
+/// A table: header cells and rows of cells.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Table {
+    /// Column headings.
+    pub header: Vec<String>,
+    /// Rows, each as long as the header.
+    pub rows: Vec<Vec<String>>,
+}
+
+fn s(x: impl Into<String>) -> String {
+    x.into()
+}
+
+/// The word of a verdict status.
+pub fn status_word(st: Status) -> &'static str {
+    match st {
+        Status::Holds => "holds",
+        Status::Doubtful => "doubtful",
+        Status::Fails => "fails",
+    }
+}
+
+/// Why the optimiser stopped, in words.
+pub fn stop_words(r: StopReason) -> &'static str {
+    match r {
+        StopReason::Gradient => "gradient below tolerance",
+        StopReason::ChiSquaredChange => "chi-squared change below tolerance",
+        StopReason::Step => "step below tolerance",
+        StopReason::IterationLimit => "iteration limit reached",
+        StopReason::NonFinite => "model not finite",
+    }
+}
+
+/// The verdict table: parameter, status, reasons (joined by "; ").
+pub fn verdicts(results: &AuditResults) -> Table {
+    Table {
+        header: vec![s("Parameter"), s("Verdict"), s("Reasons")],
+        rows: results
+            .verdicts
+            .iter()
+            .map(|v| {
+                vec![
+                    v.parameter.clone(),
+                    s(status_word(v.status)),
+                    if v.reasons.is_empty() {
+                        s(format::ABSENT)
+                    } else {
+                        v.reasons.join("; ")
+                    },
+                ]
+            })
+            .collect(),
+    }
+}
+
+/// The note of a parameter: fixed, at a bound, undetermined.
+pub fn param_note(p: &ParamResult) -> String {
+    let mut notes = Vec::new();
+    if p.fixed {
+        notes.push("fixed");
+    }
+    if p.at_bound {
+        notes.push("at a bound");
+    }
+    if !p.fixed && p.std_error.is_none() {
+        notes.push("undetermined");
+    }
+    notes.join(", ")
+}
+
+/// Relative standard error as a percentage with two significant digits.
+pub fn relative_error(p: &ParamResult) -> String {
+    match p.std_error {
+        Some(se) if p.value != 0.0 && p.value.is_finite() && se.is_finite() => {
+            format::percent(se / p.value.abs(), 2)
+        }
+        _ => s(format::ABSENT),
+    }
+}
+
+/// The fit table: parameter, value, standard error, relative error, note.
+pub fn fit_params(fit: &FitResult) -> Table {
+    Table {
+        header: vec![
+            s("Parameter"),
+            s("Value"),
+            s("Standard error"),
+            s("Relative error"),
+            s("Note"),
+        ],
+        rows: fit
+            .parameters
+            .iter()
+            .map(|p| {
+                let (v, u) = format::value_and_uncertainty(p.value, p.std_error);
+                vec![p.name.clone(), v, u, relative_error(p), param_note(p)]
+            })
+            .collect(),
+    }
+}
+
+/// Goodness of fit as (quantity, value) pairs.
+pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
+    let mut out = vec![
+        (s("Chi-squared"), format::chi2(fit.chi2)),
+        (s("Degrees of freedom"), fit.dof.to_string()),
+        (
+            s("Reduced chi-squared (chi-squared / dof)"),
+            format::sig(fit.reduced_chi2, 4),
+        ),
+        (
+            s("p-value, P(chi-squared_dof > observed)"),
+            format::p_value(fit.p_value),
+        ),
+        (
+            s("Condition number of the weighted Jacobian"),
+            if fit.condition_number == f64::MAX {
+                s("infinite (the weighted Jacobian is singular)")
+            } else {
+                format::sig(fit.condition_number, 3)
+            },
+        ),
+        (s("Rank"), format!("{} of {}", fit.rank, fit.parameters.len())),
+        (
+            s("Covariance"),
+            s(if fit.covariance_scaled {
+                "scaled by the reduced chi-squared"
+            } else {
+                "absolute (from the stated uncertainties)"
+            }),
+        ),
+        (
+            s("Converged"),
+            format!(
+                "{} ({})",
+                if fit.converged { "yes" } else { "no" },
+                stop_words(fit.stop_reason)
+            ),
+        ),
+        (
+            s("Iterations / model evaluations"),
+            format!("{} / {}", fit.iterations, fit.evaluations),
+        ),
+    ];
+    for (k, dir) in fit.undetermined.iter().enumerate() {
+        let terms: Vec<String> = dir
+            .iter()
+            .map(|(n, c)| format!("{} {}", format::sig(*c, 3), n))
+            .collect();
+        out.push((format!("Undetermined direction {}", k + 1), terms.join(" + ")));
+    }
+    out
+}
+
+fn interval(lo: f64, hi: f64, se: Option<f64>) -> String {
+    format!(
+        "[{}, {}]",
+        format::at_precision_of(lo, se),
+        format::at_precision_of(hi, se)
+    )
+}
+
+fn ratio_pm(r: Option<f64>, u: Option<f64>) -> String {
+    match (r, u) {
+        (Some(r), Some(u)) => format!("{} \u{b1} {}", format::ratio(r), format::sig(u, 2)),
+        (Some(r), None) => format::ratio(r),
+        _ => s(format::ABSENT),
+    }
+}
+
+fn resampled<'a>(rs: Option<&'a ResampleResult>, name: &str) -> Option<&'a ResampledParameter> {
+    rs.and_then(|rs| rs.parameters.iter().find(|p| p.name == name))
+}
+
+/// How one side of a profile scan ended, in words.
+pub fn end_status_words(st: EndStatus) -> &'static str {
+    match st {
+        EndStatus::Found => "crossed the threshold",
+        EndStatus::Bound => "stayed below the threshold up to the parameter's bound",
+        EndStatus::ScanLimit => "stayed below the threshold up to the scan limit",
+        EndStatus::Unresolved => "refits failed before the crossing",
+    }
+}
+
+/// One profile end: the value, or why it is open.
+fn profile_end(x: f64, found: bool, status: EndStatus, se: Option<f64>) -> String {
+    let v = format::at_precision_of(x, se);
+    match (found, status) {
+        (true, _) | (false, EndStatus::Found) if x.is_finite() => v,
+        (_, EndStatus::Bound) => format!("open to the bound {v}"),
+        (_, EndStatus::Unresolved) => format!("unresolved near {v}"),
+        _ if x.is_finite() => format!("open beyond {v}"),
+        _ => "open".to_string(),
+    }
+}
+
+/// The interval comparison: per parameter, the analytic, bootstrap, Monte
+/// Carlo and profile uncertainties at the study's level, and their ratios
+/// to the analytic ones.
+pub fn comparison(results: &AuditResults) -> Table {
+    let k = coverage_factor(results.settings.level);
+    let header = vec![
+        s("Parameter"),
+        s("Value"),
+        s("Analytic \u{b1}u"),
+        format!("Analytic interval (\u{b1}{}u)", format::sig(k, 3)),
+        s("Bootstrap SD"),
+        s("Bootstrap percentile"),
+        s("Bootstrap BCa"),
+        s("Bootstrap SD / u"),
+        s("Monte Carlo SD"),
+        s("Monte Carlo interval"),
+        s("Monte Carlo SD / u"),
+        s("Profile interval"),
+        format!("Profile half-width / ({}u)", format::sig(k, 3)),
+        s("Profile asymmetry"),
+    ];
+    let absent = || s(format::ABSENT);
+    let mut rows = Vec::new();
+    for p in results.fit.parameters.iter().filter(|p| !p.fixed) {
+        let se = p.std_error.filter(|u| u.is_finite() && *u > 0.0);
+        let (v, u) = format::value_and_uncertainty(p.value, p.std_error);
+        let mut row = vec![p.name.clone(), v, u];
+        row.push(match se {
+            Some(u) => interval(p.value - k * u, p.value + k * u, se),
+            None => absent(),
+        });
+        match resampled(results.bootstrap.as_ref(), &p.name) {
+            Some(b) => {
+                row.push(format::at_precision_of(b.std, se.or(Some(b.std))));
+                row.push(interval(b.lower, b.upper, se));
+                row.push(match (b.bca_lower, b.bca_upper) {
+                    (Some(l), Some(h)) => interval(l, h, se),
+                    _ => absent(),
+                });
+                row.push(ratio_pm(b.sd_ratio, b.sd_ratio_uncertainty));
+            }
+            None => row.extend([absent(), absent(), absent(), absent()]),
+        }
+        match resampled(results.monte_carlo.as_ref(), &p.name) {
+            Some(m) => {
+                row.push(format::at_precision_of(m.std, se.or(Some(m.std))));
+                row.push(interval(m.lower, m.upper, se));
+                row.push(ratio_pm(m.sd_ratio, m.sd_ratio_uncertainty));
+            }
+            None => row.extend([absent(), absent(), absent()]),
+        }
+        match results
+            .profile
+            .as_ref()
+            .and_then(|pr| pr.parameters.iter().find(|q| q.name == p.name))
+        {
+            Some(q) => {
+                row.push(format!(
+                    "[{}, {}]",
+                    profile_end(q.lower, q.lower_found, q.lower_status, se),
+                    profile_end(q.upper, q.upper_found, q.upper_status, se)
+                ));
+                row.push(match se {
+                    Some(u) if q.lower_found && q.upper_found => {
+                        format::ratio((q.upper - q.lower) / (2.0 * k * u))
+                    }
+                    _ => absent(),
+                });
+                row.push(q.asymmetry.map(format::ratio).unwrap_or_else(absent));
+            }
+            None => row.extend([absent(), absent(), absent()]),
+        }
+        rows.push(row);
+    }
+    Table { header, rows }
+}
+
+fn reasons_counted(rs: &ResampleResult) -> String {
+    let mut counts: BTreeMap<&str, usize> = BTreeMap::new();
+    for f in &rs.failures {
+        *counts.entry(f.reason.as_str()).or_default() += 1;
+    }
+    counts
+        .iter()
+        .map(|(r, n)| format!("{r}: {n}"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Failure counts of every diagnostic: diagnostic, work done, failed, details.
+pub fn failures(results: &AuditResults) -> Table {
+    let mut rows = Vec::new();
+    let not_run = |name: &str| vec![s(name), s("not run"), s(format::ABSENT), String::new()];
+    let resample_row = |name: &str, unit: &str, rs: &ResampleResult| {
+        let mut details = vec![reasons_counted(rs)];
+        if let Some(stable) = rs.adaptive_stable {
+            details.push(s(if stable {
+                "adaptive rule reached stability"
+            } else {
+                "adaptive rule did not reach stability"
+            }));
+        }
+        if rs.jackknife_refits > 0 {
+            details.push(format!(
+                "BCa jackknife: {} of {} refits failed{}",
+                rs.jackknife_failures.len(),
+                rs.jackknife_refits,
+                if rs.jackknife_failures.is_empty() {
+                    ""
+                } else {
+                    " (BCa interval not computed)"
+                }
+            ));
+        }
+        if let Some(ns) = rs.noise_scale {
+            details.push(format!("noise scale {}", format::sig(ns, 4)));
+        }
+        details.retain(|d| !d.is_empty());
+        let details = details.join("; ");
+        vec![
+            s(name),
+            format!(
+                "{} {unit} run of {} ({} scheme)",
+                rs.run, rs.replicates, rs.scheme
+            ),
+            rs.failed.to_string(),
+            details,
+        ]
+    };
+    match &results.bootstrap {
+        Some(b) => rows.push(resample_row("Bootstrap", "replicates", b)),
+        None => rows.push(not_run("Bootstrap")),
+    }
+    match &results.monte_carlo {
+        Some(m) => rows.push(resample_row("Monte Carlo", "trials", m)),
+        None => rows.push(not_run("Monte Carlo")),
+    }
+    match &results.profile {
+        Some(p) => {
+            let per: Vec<String> = p
+                .parameters
+                .iter()
+                .filter(|q| q.failed > 0)
+                .map(|q| format!("{}: {}", q.name, q.failed))
+                .collect();
+            let open: Vec<String> = p
+                .parameters
+                .iter()
+                .filter(|q| !(q.lower_found && q.upper_found))
+                .map(|q| q.name.clone())
+                .collect();
+            let mut details = vec![per.join(", ")];
+            if !open.is_empty() {
+                details.push(format!("interval open for {}", open.join(", ")));
+            }
+            let flat: Vec<String> = p
+                .parameters
+                .iter()
+                .filter(|q| q.non_identifiable)
+                .map(|q| q.name.clone())
+                .collect();
+            if !flat.is_empty() {
+                details.push(format!("practically non-identifiable: {}", flat.join(", ")));
+            }
+            if p.base_not_minimum {
+                details.push(s(
+                    "a profile point lies below the base fit: the base fit is not the minimum",
+                ));
+            }
+            details.retain(|d| !d.is_empty());
+            let details = details.join("; ");
+            rows.push(vec![
+                s("Profile"),
+                format!(
+                    "{} profiles, {} points",
+                    p.parameters.len(),
+                    p.parameters.iter().map(|q| q.points.len()).sum::<usize>()
+                ),
+                p.failed.to_string(),
+                details,
+            ]);
+        }
+        None => rows.push(not_run("Profile")),
+    }
+    match &results.contours {
+        Some(cs) => {
+            let nodes: usize = cs.iter().map(|c| c.grid.x.len() * c.grid.y.len()).sum();
+            let failed: usize = cs.iter().map(|c| c.failed).sum();
+            let mut per: Vec<String> = cs
+                .iter()
+                .filter(|c| c.failed > 0)
+                .map(|c| format!("{} / {}: {}", c.pair[0], c.pair[1], c.failed))
+                .collect();
+            per.extend(cs.iter().filter_map(|c| {
+                c.skipped
+                    .as_ref()
+                    .map(|e| format!("{} / {} skipped: {e}", c.pair[0], c.pair[1]))
+            }));
+            rows.push(vec![
+                s("Contours"),
+                format!("{} pairs, {nodes} grid nodes", cs.len()),
+                failed.to_string(),
+                per.join(", "),
+            ]);
+        }
+        None => rows.push(not_run("Contours")),
+    }
+    match &results.multistart {
+        Some(m) => rows.push(vec![
+            s("Multi-start"),
+            format!("{} starts, {} distinct minima", m.starts, m.minima.len()),
+            m.failed.to_string(),
+            format!(
+                "estimated probability of a missed minimum {}; expected number of minima {}",
+                format::sig(m.missed_minimum_estimate, 2),
+                format::sig(m.expected_minima, 3)
+            ),
+        ]),
+        None => rows.push(not_run("Multi-start")),
+    }
+    Table {
+        header: vec![s("Diagnostic"), s("Work"), s("Failed"), s("Details")],
+        rows,
+    }
+}
+
+fn scheme_word(b: BootstrapScheme, w: WildWeights) -> String {
+    match b {
+        BootstrapScheme::Case => s("case resampling"),
+        BootstrapScheme::Residual => s("residual resampling"),
+        BootstrapScheme::Wild => format!(
+            "wild, {} weights",
+            match w {
+                WildWeights::Rademacher => "Rademacher",
+                WildWeights::Mammen => "Mammen",
+            }
+        ),
+    }
+}
+
+/// Settings and provenance as (item, value) pairs.
+pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
+    let st = &results.settings;
+    let pv = &results.provenance;
+    let study = &results.study;
+    let none = || s(format::ABSENT);
+    let ran: Vec<&str> = results.diagnostics_run.iter().map(|d| d.cli_name()).collect();
+    let mut out = vec![
+        (s("Tool"), format!("{} {}", pv.tool, pv.version)),
+        (s("Command line"), pv.command_line.clone()),
+        (s("Date (UTC)"), pv.date.clone()),
+        (s("Worker threads"), pv.threads.to_string()),
+        (s("Study"), study.name.clone()),
+        (s("Study file"), study.path.clone()),
+        (
+            s("Study file SHA-256"),
+            study.study_sha256.clone().unwrap_or_else(none),
+        ),
+        (s("Data file"), study.data_file.clone().unwrap_or_else(none)),
+        (
+            s("Data file SHA-256"),
+            study.data_sha256.clone().unwrap_or_else(none),
+        ),
+        (s("Formula"), study.formula.clone()),
+        (s("Points"), study.points.to_string()),
+        (
+            s("Uncertainties of the data"),
+            s(if study.sigma_given {
+                "given (absolute covariance)"
+            } else {
+                "not given (covariance scaled)"
+            }),
+        ),
+        (s("Seed"), st.seed.to_string()),
+        (s("Confidence level"), format::percent(st.level, 4)),
+        (s("Tolerance of the verdicts"), format::percent(st.tolerance, 3)),
+        (
+            s("Diagnostics run"),
+            if ran.is_empty() { s("none") } else { ran.join(", ") },
+        ),
+        (
+            s("Bootstrap settings"),
+            format!(
+                "{} replicates, {}",
+                st.bootstrap.replicates,
+                scheme_word(st.bootstrap.scheme, st.bootstrap.weights)
+            ),
+        ),
+        (
+            s("Monte Carlo settings"),
+            format!(
+                "{} trials, {} noise{}",
+                st.monte_carlo.replicates,
+                match st.monte_carlo.student_t_dof {
+                    Some(nu) => format!("Student-t ({} degrees of freedom)", format::sig(nu, 3)),
+                    None => s("normal"),
+                },
+                if st.monte_carlo.adaptive {
+                    format!(
+                        ", adaptive (tolerance {})",
+                        format::percent(st.monte_carlo.adaptive_tolerance, 2)
+                    )
+                } else {
+                    String::new()
+                }
+            ),
+        ),
+        (
+            s("Profile settings"),
+            format!("{} points per profile", st.profile.points),
+        ),
+        (
+            s("Contour settings"),
+            format!(
+                "{0} x {0} grid; pairs {1}",
+                st.contours.grid,
+                match &st.contours.pairs {
+                    Some(p) => p
+                        .iter()
+                        .map(|[a, b]| format!("{a} / {b}"))
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                    None => s("chosen automatically"),
+                }
+            ),
+        ),
+        (
+            s("Multi-start settings"),
+            format!(
+                "{} starts{}",
+                st.multistart.starts,
+                if st.multistart.log_uniform {
+                    ", log-uniform sampling of wide positive ranges"
+                } else {
+                    ""
+                }
+            ),
+        ),
+    ];
+    if let Some(t) = &study.title {
+        out.insert(5, (s("Title"), t.clone()));
+    }
+    out
+}

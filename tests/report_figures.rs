@@ -1,0 +1,227 @@
+//! The figures: the expected files, well-formed self-contained SVG,
+//! labelled axes, greyscale only, escaped text, safe file names.
+
+#[path = "common/fixture.rs"]
+mod fixture;
+
+use fitaudit::report::figures::{self, multistart_plane_order, Figures};
+
+fn svg_texts(svg: &str) -> Vec<String> {
+    let doc = roxmltree::Document::parse(svg).expect("well-formed SVG");
+    doc.descendants()
+        .filter(|n| n.has_tag_name("text"))
+        .map(|n| n.text().unwrap_or("").trim().to_string())
+        .collect()
+}
+
+fn check_svg(name: &str, svg: &str) {
+    let doc = roxmltree::Document::parse(svg).unwrap_or_else(|e| panic!("{name}: not well-formed: {e}"));
+    let root = doc.root_element();
+    assert_eq!(root.tag_name().name(), "svg", "{name}");
+    assert_eq!(
+        root.tag_name().namespace(),
+        Some("http://www.w3.org/2000/svg"),
+        "{name}"
+    );
+    // Self-contained: the namespace is the only URL; no links, images, fonts or styles from outside.
+    assert_eq!(svg.matches("http").count(), 1, "{name}");
+    for bad in ["href", "<image", "url(", "@import", "<script", "@font-face"] {
+        assert!(!svg.contains(bad), "{name} contains {bad}");
+    }
+    // Greyscale: every colour has equal red, green and blue.
+    for node in doc.descendants() {
+        for attr in ["fill", "stroke"] {
+            if let Some(c) = node.attribute(attr) {
+                if let Some(hex) = c.strip_prefix('#') {
+                    assert_eq!(hex.len(), 6, "{name}: colour {c}");
+                    assert!(
+                        hex[0..2] == hex[2..4] && hex[2..4] == hex[4..6],
+                        "{name}: colour {c} is not grey"
+                    );
+                } else {
+                    assert!(c == "none" || c == "white" || c == "black", "{name}: colour {c}");
+                }
+            }
+        }
+    }
+}
+
+fn build(r: &fitaudit::audit::AuditResults) -> Figures {
+    let f = figures::build(r).expect("figures");
+    for fig in &f.list {
+        check_svg(&fig.file, &fig.svg);
+        assert!(!fig.caption.is_empty() && !fig.title.is_empty());
+    }
+    if let Ok(dir) = std::env::var("FITAUDIT_DUMP_FIGURES") {
+        for fig in &f.list {
+            std::fs::write(format!("{dir}/{}", fig.file), &fig.svg).unwrap();
+        }
+    }
+    f
+}
+
+#[test]
+fn every_figure_of_a_full_audit_with_its_stable_name() {
+    let f = build(&fixture::cooling());
+    assert_eq!(
+        f.files(),
+        vec![
+            "fit.svg",
+            "residuals_qq.svg",
+            "residuals_x.svg",
+            "hist_T_env.svg",
+            "hist_dT.svg",
+            "hist_tau.svg",
+            "profile_T_env.svg",
+            "profile_dT.svg",
+            "profile_tau.svg",
+            "contour_T_env_dT.svg",
+            "contour_T_env_tau.svg",
+            "contour_dT_tau.svg",
+            "multistart.svg",
+            "correlation.svg",
+        ]
+    );
+}
+
+#[test]
+fn axes_carry_the_column_and_parameter_names() {
+    let f = build(&fixture::cooling());
+    let fit = svg_texts(&f.get("fit.svg").unwrap().svg);
+    assert!(
+        fit.iter().filter(|t| *t == "t_s").count() >= 2,
+        "x axis of both panels: {fit:?}"
+    );
+    assert!(fit.iter().any(|t| t == "temp_C"));
+    assert!(fit.iter().any(|t| t.starts_with("normalised residual")));
+    let hist = svg_texts(&f.get("hist_tau.svg").unwrap().svg);
+    for want in [
+        "tau",
+        "density",
+        "bootstrap (400 replicates)",
+        "Monte Carlo (300 trials)",
+        "bootstrap BCa",
+    ] {
+        assert!(hist.iter().any(|t| t == want), "{want} in {hist:?}");
+    }
+    let prof = svg_texts(&f.get("profile_dT.svg").unwrap().svg);
+    assert!(prof.iter().any(|t| t == "dT"));
+    assert!(prof.iter().any(|t| t.starts_with("threshold")));
+    let cont = svg_texts(&f.get("contour_dT_tau.svg").unwrap().svg);
+    assert!(cont.iter().any(|t| t == "dT") && cont.iter().any(|t| t == "tau"));
+    // Levels 2.30 and 6.18 at 68.3 % and 95.5 % (Numerical Recipes 15.6.5 for 2 parameters).
+    assert!(
+        cont.iter().any(|t| t.contains("2.30") && t.contains("68.3 %")),
+        "{cont:?}"
+    );
+    let corr = svg_texts(&f.get("correlation.svg").unwrap().svg);
+    assert!(corr.iter().any(|t| t == "1.00"));
+}
+
+#[test]
+fn correlation_numbers_switch_to_white_on_dark_cells() {
+    let r = fixture::cooling();
+    let f = build(&r);
+    let svg = &f.get("correlation.svg").unwrap().svg;
+    let doc = roxmltree::Document::parse(svg).unwrap();
+    let r02 = format!("{:.2}", r.fit.correlation[0][2]);
+    let r01 = format!("{:.2}", r.fit.correlation[0][1]);
+    let fill_of = |s: &str| {
+        doc.descendants()
+            .find(|n| n.has_tag_name("text") && n.text().map(str::trim) == Some(s))
+            .and_then(|n| n.attribute("fill"))
+            .map(str::to_string)
+    };
+    // |r| = 1 on the diagonal: dark cell, white number; the weak dT-T_env correlation: black.
+    assert_eq!(fill_of("1.00").as_deref(), Some("#FFFFFF"));
+    assert!(r.fit.correlation[0][1].abs() < 0.5);
+    assert_eq!(fill_of(&r01).as_deref(), Some("#000000"));
+    assert!(r.fit.correlation[0][2].abs() > 0.65);
+    assert_eq!(fill_of(&r02).as_deref(), Some("#FFFFFF"));
+}
+
+#[test]
+fn multistart_plane_is_the_two_most_spread_parameters() {
+    let r = fixture::cooling();
+    // End points: tau at 340 and 120 -> relative spread 220/340 = 0.65; dT at 58 and 40 ->
+    // 18/58 = 0.31; T_env at 21.5 and 24 -> 2.5/21.5 = 0.12 (hand computation).
+    let order = multistart_plane_order(r.multistart.as_ref().unwrap(), &r.fit);
+    assert_eq!(order, vec![2, 1, 0]);
+    let f = build(&r);
+    let t = svg_texts(&f.get("multistart.svg").unwrap().svg);
+    assert!(t.iter().any(|s| s == "tau") && t.iter().any(|s| s == "dT"));
+    assert!(
+        t.iter().any(|s| s.starts_with("minimum 1: χ² = 34.9293")),
+        "{t:?}"
+    );
+}
+
+#[test]
+fn missing_diagnostics_omit_their_figures() {
+    let f = build(&fixture::fit_only());
+    assert_eq!(
+        f.files(),
+        vec![
+            "fit.svg",
+            "residuals_qq.svg",
+            "residuals_x.svg",
+            "correlation.svg"
+        ]
+    );
+}
+
+#[test]
+fn several_independent_variables_plot_against_fitted_values() {
+    let f = build(&fixture::two_variables());
+    let fit = svg_texts(&f.get("fit.svg").unwrap().svg);
+    assert!(fit.iter().any(|t| t == "Observed against fitted"));
+    assert!(fit.iter().filter(|t| *t == "fitted temp_C").count() >= 2);
+    let rx = svg_texts(&f.get("residuals_x.svg").unwrap().svg);
+    assert!(rx.iter().any(|t| t == "t_s") && rx.iter().any(|t| t == "u"));
+}
+
+#[test]
+fn hostile_names_are_escaped_in_svg_and_sanitised_in_file_names() {
+    let r = fixture::hostile();
+    let f = build(&r);
+    let files = f.files();
+    for want in [
+        "hist_T_env.svg",
+        "hist_d_T.svg",
+        "hist_tau_1.svg",
+        "contour_d_T_tau_1.svg",
+    ] {
+        assert!(files.contains(&want), "{want} in {files:?}");
+    }
+    for file in &files {
+        assert!(
+            file.chars()
+                .all(|c| c.is_ascii_alphanumeric() || "_-.".contains(c)),
+            "{file}"
+        );
+    }
+    let t = svg_texts(&f.get("hist_tau_1.svg").unwrap().svg);
+    assert!(
+        t.iter().any(|s| s == "tau<1"),
+        "decoded text keeps the name: {t:?}"
+    );
+    let raw = &f.get("fit.svg").unwrap().svg;
+    assert!(raw.contains("t &lt;s&gt;") && raw.contains("temp|&amp;C"));
+}
+
+#[test]
+fn non_finite_values_are_skipped_not_drawn() {
+    let r = fixture::with_non_finite();
+    let f = build(&r);
+    let p = f.get("profile_tau.svg").unwrap();
+    assert!(!p.svg.contains("NaN") && !p.svg.contains("inf"));
+    assert!(p.caption.contains("upper side"), "{}", p.caption);
+    assert!(f
+        .get("contour_T_env_dT.svg")
+        .unwrap()
+        .caption
+        .contains("1 grid nodes failed"));
+    assert!(svg_texts(&f.get("correlation.svg").unwrap().svg)
+        .iter()
+        .any(|t| t == "n/a"));
+}
