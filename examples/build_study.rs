@@ -11,13 +11,16 @@ use fitaudit::audit::{self, AuditOptions};
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::NoProgress;
 use fitaudit::study::{ParamEntry, Study, StudySpec};
+use rand_distr::{Distribution, Normal};
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
+    // Invented concentrations with seeded normal noise of sigma 0.005.
+    let mut rng = fitaudit::rng::stream(11, fitaudit::rng::Stream::Other(0), 0);
+    let noise = Normal::new(0.0, 0.005)?;
     let t: Vec<f64> = (0..20).map(|i| 30.0 * i as f64).collect();
-    // Invented concentrations with a deterministic wiggle standing in for noise.
     let c: Vec<f64> = t
         .iter()
-        .map(|&t| 2.0 * (-t / 150.0f64).exp() + 0.3 + 0.004 * (t * 0.37).sin())
+        .map(|&t| 2.0 * (-t / 150.0f64).exp() + 0.3 + noise.sample(&mut rng))
         .collect();
     let data = Dataset::single("t", t, "c", c, Some(vec![0.005; 20]));
 

@@ -63,6 +63,7 @@ pub fn run_with(
             jackknife,
             adaptive_stable: None,
             noise_scale: None,
+            scatter_dof: (!ctx.fit.covariance_scaled).then_some(ctx.fit.dof),
         },
     )
 }

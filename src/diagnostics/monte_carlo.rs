@@ -104,6 +104,7 @@ pub fn run_with(
             jackknife,
             adaptive_stable,
             noise_scale: Some(noise_scale(ctx)),
+            scatter_dof: None,
         },
     )
 }

@@ -416,6 +416,12 @@ pub struct ParameterInfo<'a> {
     pub std_errors: &'a [Option<f64>],
     /// Which parameters were refitted (not fixed).
     pub free: &'a [bool],
+    /// Degrees of freedom of the residual scatter when the resampled spread
+    /// follows the observed residuals while the analytic standard errors are
+    /// absolute (bootstrap with stated sigma): the ratio then carries the
+    /// chance fluctuation of chi2/dof, relative uncertainty 1/sqrt(2 dof),
+    /// besides that of the replicate count. None otherwise.
+    pub scatter_dof: Option<usize>,
 }
 
 /// Per-parameter statistics and correlation of the successful replicates
@@ -480,7 +486,12 @@ pub fn summarise(
             Some(s) if s > 0.0 && s.is_finite() && std.is_finite() => Some(std / s),
             _ => None,
         };
-        let sd_ratio_uncertainty = sd_ratio.and_then(|r| (b >= 2).then(|| r / (2.0 * (b - 1) as f64).sqrt()));
+        let scatter = info
+            .scatter_dof
+            .filter(|&d| d > 0)
+            .map_or(0.0, |d| 1.0 / (2.0 * d as f64));
+        let sd_ratio_uncertainty =
+            sd_ratio.and_then(|r| (b >= 2).then(|| r * (1.0 / (2.0 * (b - 1) as f64) + scatter).sqrt()));
         let below = estimate - lower;
         let asymmetry = (below > 0.0 && (upper - estimate).is_finite()).then(|| (upper - estimate) / below);
         out.push(ResampledParameter {
@@ -539,6 +550,8 @@ pub struct Assembly {
     pub adaptive_stable: Option<bool>,
     /// Monte Carlo noise factor.
     pub noise_scale: Option<f64>,
+    /// See [`ParameterInfo::scatter_dof`].
+    pub scatter_dof: Option<usize>,
 }
 
 /// Builds the [`ResampleResult`] from replicate and jackknife outcomes.
@@ -552,6 +565,7 @@ pub fn assemble(ctx: &Fitted, a: Assembly) -> ResampleResult {
         estimates: &estimates,
         std_errors: &std_errors,
         free: &free,
+        scatter_dof: a.scatter_dof,
     };
     let run = a.outcomes.len();
     let (rows, failures) = split_outcomes(a.outcomes, 0);
@@ -676,8 +690,17 @@ mod tests {
             estimates: &[3.0, 7.0],
             std_errors: &[Some(2.0), None],
             free: &[true, false],
+            scatter_dof: None,
         };
         let (p, c) = summarise(&info, &rows, None, 0.8);
+        // With the residual scatter's own fluctuation (dof 10): r * sqrt(1/8 + 1/20).
+        let with_scatter = ParameterInfo {
+            scatter_dof: Some(10),
+            ..info
+        };
+        let (q, _) = summarise(&with_scatter, &rows, None, 0.8);
+        let r = q[0].sd_ratio.unwrap();
+        assert!((q[0].sd_ratio_uncertainty.unwrap() - r * (1.0f64 / 8.0 + 1.0 / 20.0).sqrt()).abs() < 1e-12);
         // 1..5: mean 3, sample SD sqrt(2.5) (identity), Q(0.1) = 1.4, Q(0.9) = 4.6.
         assert_eq!(p[0].mean, 3.0);
         assert!((p[0].std - 2.5f64.sqrt()).abs() < 1e-12);
