@@ -163,10 +163,11 @@ pub fn chi2(x: f64) -> String {
     sig(x, 6)
 }
 
-/// A p-value: two significant digits, `< 1e-300` below the smallest normal
-/// double where the digits mean nothing.
+/// A p-value: two significant digits; `< 1e-300` below that (including an
+/// underflow to exactly 0), where the digits mean nothing.
 pub fn p_value(p: f64) -> String {
-    if p.is_finite() && p > 0.0 && p < 1e-300 {
+    // An exact 0 is an underflow, not a certainty.
+    if p.is_finite() && (0.0..1e-300).contains(&p) {
         return "< 1e-300".into();
     }
     sig(p, 2)
@@ -269,6 +270,7 @@ mod tests {
         assert_eq!(percent(0.6827, 4), "68.27 %");
         assert_eq!(p_value(0.0412), "0.041");
         assert_eq!(p_value(1e-320), "< 1e-300");
+        assert_eq!(p_value(0.0), "< 1e-300");
         assert_eq!(tick(0.30000000000000004, 1.0), "0.3");
         assert_eq!(tick(1500.0, 2000.0), "1500");
         assert_eq!(tick(-2.0, 8.0), "-2");

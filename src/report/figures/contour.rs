@@ -40,20 +40,37 @@ pub(crate) fn figure(
         return Ok(None);
     }
     let [a, b] = [&c.pair[0], &c.pair[1]];
-    let frame_pts = c
-        .lines
+    // The frame holds the two innermost profiled levels and every ellipse
+    // (the grid itself when nothing was traced); an outer level that runs
+    // far along a valley is clipped rather than allowed to shrink the rest.
+    let inner = c.lines.len().min(2);
+    let mut pts: Vec<[f64; 2]> = c.lines[..inner]
         .iter()
         .chain(c.ellipse.iter())
         .flat_map(|l| l.paths.iter().flatten())
         .copied()
-        .chain(c.grid.x.iter().filter_map(|&x| c.grid.y.first().map(|&y| [x, y])))
-        .chain(c.grid.y.iter().filter_map(|&y| c.grid.x.first().map(|&x| [x, y])));
-    let pts: Vec<[f64; 2]> = frame_pts.collect();
+        .filter(|p| p[0].is_finite() && p[1].is_finite())
+        .collect();
+    if pts.is_empty() {
+        pts = c
+            .grid
+            .x
+            .iter()
+            .flat_map(|&x| c.grid.y.iter().map(move |&y| [x, y]))
+            .collect();
+    }
     let xr = svg::extent(pts.iter().map(|p| p[0]));
     let yr = svg::extent(pts.iter().map(|p| p[1]));
     let (Some(xr), Some(yr)) = (xr, yr) else {
         return Ok(None);
     };
+    let in_frame = |p: &[f64; 2]| svg::inside((p[0], p[1]), (xr, yr));
+    let clipped: Vec<f64> = c
+        .lines
+        .iter()
+        .filter(|l| l.paths.iter().flatten().any(|p| p[0].is_finite() && !in_frame(p)))
+        .map(|l| l.level)
+        .collect();
     let fit = &results.fit;
     let value = |n: &str| fit.parameters.iter().find(|p| p.name == n).map(|p| p.value);
     let centre = value(a).zip(value(b));
@@ -106,7 +123,7 @@ pub(crate) fn figure(
         if !cloud.is_empty() {
             ch.points(
                 &cloud,
-                Mark::new(Shape::Circle, 1, 175, true),
+                Mark::new(Shape::Circle, 1, 110, true),
                 Some("bootstrap estimates"),
             )?;
         }
@@ -134,6 +151,13 @@ pub(crate) fn figure(
             caption.push_str(&format!(" ({outside} outside the frame)"));
         }
         caption.push('.');
+    }
+    if !clipped.is_empty() {
+        let lv: Vec<String> = clipped.iter().map(|l| format::sig(*l, 3)).collect();
+        caption.push_str(&format!(
+            " The contour at \u{394}\u{3c7}\u{b2} = {} runs beyond the frame.",
+            lv.join(" and ")
+        ));
     }
     if c.failed > 0 {
         caption.push_str(&format!(" {} grid nodes failed to refit.", c.failed));

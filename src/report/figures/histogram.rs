@@ -14,21 +14,35 @@ pub(crate) fn bins(n: usize) -> usize {
     ((2.0 * (n as f64).cbrt()).ceil() as usize).clamp(8, 50)
 }
 
-/// Densities of `values` over `k` equal bins from `lo` to `hi`: count / (n width).
+/// Densities of `values` over `k` equal bins from `lo` to `hi`: count / (n
+/// width), with n all the values, so that values outside `[lo, hi]` (not
+/// counted in any bin) keep the scale comparable with a density curve.
 pub(crate) fn densities(values: &[f64], lo: f64, hi: f64, k: usize) -> Vec<f64> {
     let mut counts = vec![0usize; k];
     let w = (hi - lo) / k as f64;
     if values.is_empty() || w.is_nan() || w <= 0.0 {
         return vec![0.0; k];
     }
-    for &v in values {
-        let b = (((v - lo) / w).floor() as isize).clamp(0, k as isize - 1) as usize;
+    for &v in values.iter().filter(|v| **v >= lo && **v <= hi) {
+        let b = (((v - lo) / w).floor() as usize).min(k - 1);
         counts[b] += 1;
     }
     counts
         .iter()
         .map(|&c| c as f64 / (values.len() as f64 * w))
         .collect()
+}
+
+/// The `[q, 1 - q]` quantile range of sorted values holding `share` of them
+/// in the middle (order statistics, no interpolation).
+pub(crate) fn central_range(sorted: &[f64], share: f64) -> (f64, f64) {
+    let n = sorted.len();
+    if n == 0 {
+        return (f64::NAN, f64::NAN);
+    }
+    let cut = (((1.0 - share) / 2.0) * n as f64).floor() as usize;
+    let cut = cut.min((n - 1) / 2);
+    (sorted[cut], sorted[n - 1 - cut])
 }
 
 struct Marker {
@@ -117,17 +131,20 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         m.ends.retain(|v| v.is_finite());
     }
 
-    let all: Vec<f64> = boot
-        .iter()
-        .chain(mc.iter())
-        .flatten()
-        .copied()
-        .chain(markers.iter().flat_map(|m| m.ends.iter().copied()))
-        .collect();
-    let Some(xr) = svg::extent(all.iter().copied()) else {
+    // The frame: the central 99 % of the estimates (a few runaway replicates
+    // would squash the histogram), widened to every interval end.
+    let mut pooled: Vec<f64> = boot.iter().chain(mc.iter()).flatten().copied().collect();
+    pooled.sort_by(f64::total_cmp);
+    let (q_lo, q_hi) = central_range(&pooled, 0.99);
+    let (lo, hi) = svg::pad(q_lo, q_hi, 0.02);
+    let Some(xr) = svg::extent(
+        [lo, hi]
+            .into_iter()
+            .chain(markers.iter().flat_map(|m| m.ends.iter().copied())),
+    ) else {
         return Ok(None);
     };
-    let (lo, hi) = svg::extent(boot.iter().chain(mc.iter()).flatten().copied()).unwrap_or(xr);
+    let outside = pooled.iter().filter(|v| **v < lo || **v > hi).count();
     let nb = bins(
         boot.as_ref()
             .map_or(0, Vec::len)
@@ -209,6 +226,11 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
     })?;
 
     let mut parts = Vec::new();
+    let beyond = if outside > 0 {
+        format!(" {outside} estimates lie beyond the frame (the central 99 % is shown) and are not drawn.")
+    } else {
+        String::new()
+    };
     if let Some(b) = &boot {
         parts.push(format!("{} bootstrap replicates (grey bars)", b.len()));
     }
@@ -221,7 +243,7 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         caption: format!(
             "Estimates of {name} from {} as densities{}. Vertical lines mark the ends of every interval \
              at the {} level: analytic value \u{b1} {}\u{b7}u, bootstrap percentile and BCa, Monte Carlo \
-             and profile, labelled at the top.",
+             and profile, labelled at the top.{beyond}",
             parts.join(" and "),
             if se.is_some() {
                 ", with the normal density of the analytic value and standard error (solid curve)"
@@ -253,5 +275,12 @@ mod tests {
         assert!((total - 1.0).abs() < 1e-12);
         // The maximum lands in the last bin.
         assert!(d[10] > 0.0);
+        // Values outside the range count in n but in no bin.
+        let d = densities(&[0.5, 1.5, 99.0, -5.0], 0.0, 2.0, 2);
+        assert_eq!(d, vec![0.25, 0.25]);
+        // 1000 values 0..999: 99 % central range cuts 5 at each end.
+        let v: Vec<f64> = (0..1000).map(f64::from).collect();
+        assert_eq!(central_range(&v, 0.99), (5.0, 994.0));
+        assert_eq!(central_range(&[3.0], 0.99), (3.0, 3.0));
     }
 }

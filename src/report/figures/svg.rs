@@ -196,6 +196,73 @@ impl<C, DB: DrawingBackend> Drawable<DB> for MarkerElement<C> {
     }
 }
 
+/// Whether a finite point lies in the frame.
+pub(crate) fn inside(p: (f64, f64), frame: ((f64, f64), (f64, f64))) -> bool {
+    let ((x0, x1), (y0, y1)) = frame;
+    p.0.is_finite() && p.1.is_finite() && p.0 >= x0 && p.0 <= x1 && p.1 >= y0 && p.1 <= y1
+}
+
+/// The part of segment `a`-`b` inside the rectangle, as parameters
+/// `(t0, t1)` along it (Liang-Barsky), or None when it misses.
+fn clip_segment(a: (f64, f64), b: (f64, f64), x: (f64, f64), y: (f64, f64)) -> Option<(f64, f64)> {
+    let (dx, dy) = (b.0 - a.0, b.1 - a.1);
+    let (mut t0, mut t1) = (0.0f64, 1.0f64);
+    for (p, q) in [
+        (-dx, a.0 - x.0),
+        (dx, x.1 - a.0),
+        (-dy, a.1 - y.0),
+        (dy, y.1 - a.1),
+    ] {
+        if p == 0.0 {
+            if q < 0.0 {
+                return None;
+            }
+        } else {
+            let r = q / p;
+            if p < 0.0 {
+                t0 = t0.max(r);
+            } else {
+                t1 = t1.min(r);
+            }
+        }
+    }
+    (t0 <= t1).then_some((t0, t1))
+}
+
+/// A polyline clipped to the rectangle: the pieces inside it.
+pub(crate) fn clip(points: &[(f64, f64)], x: (f64, f64), y: (f64, f64)) -> Vec<Vec<(f64, f64)>> {
+    let at = |a: (f64, f64), b: (f64, f64), t: f64| (a.0 + t * (b.0 - a.0), a.1 + t * (b.1 - a.1));
+    let mut out = Vec::new();
+    let mut cur: Vec<(f64, f64)> = Vec::new();
+    for w in points.windows(2) {
+        let (a, b) = (w[0], w[1]);
+        match clip_segment(a, b, x, y) {
+            None => {
+                if cur.len() >= 2 {
+                    out.push(std::mem::take(&mut cur));
+                }
+                cur.clear();
+            }
+            Some((t0, t1)) => {
+                if cur.is_empty() || t0 > 0.0 {
+                    if cur.len() >= 2 {
+                        out.push(std::mem::take(&mut cur));
+                    }
+                    cur = vec![at(a, b, t0)];
+                }
+                cur.push(at(a, b, t1));
+                if t1 < 1.0 {
+                    out.push(std::mem::take(&mut cur));
+                }
+            }
+        }
+    }
+    if cur.len() >= 2 {
+        out.push(cur);
+    }
+    out
+}
+
 /// The maximal runs of finite points of a polyline.
 pub(crate) fn finite_runs(points: &[(f64, f64)]) -> Vec<Vec<(f64, f64)>> {
     let mut out = Vec::new();
@@ -230,6 +297,9 @@ pub(crate) struct Plot<'a, 'b> {
     pub chart: Chart<'a, 'b>,
     /// Legend entries in drawing order.
     pub legend: Vec<(String, Key)>,
+    /// The frame `(x range, y range)`: lines are clipped to it, markers
+    /// outside it are not drawn.
+    pub frame: ((f64, f64), (f64, f64)),
 }
 
 impl<'a, 'b: 'a> Plot<'a, 'b> {
@@ -240,9 +310,11 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
         stroke: Stroke,
         label: Option<&str>,
     ) -> DrawResult {
+        let (fx, fy) = self.frame;
         let segs: Vec<Vec<(f64, f64)>> = polylines
             .iter()
             .flat_map(|l| finite_runs(l))
+            .flat_map(|l| clip(&l, fx, fy))
             .filter(|s| s.len() >= 2)
             .collect();
         if segs.is_empty() {
@@ -258,11 +330,7 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
 
     /// Draws markers at the finite points, with one legend entry.
     pub fn points(&mut self, pts: &[(f64, f64)], mark: Mark, label: Option<&str>) -> DrawResult {
-        let pts: Vec<(f64, f64)> = pts
-            .iter()
-            .copied()
-            .filter(|(x, y)| x.is_finite() && y.is_finite())
-            .collect();
+        let pts: Vec<(f64, f64)> = pts.iter().copied().filter(|&p| inside(p, self.frame)).collect();
         if pts.is_empty() {
             return Ok(());
         }
@@ -446,6 +514,7 @@ pub(crate) fn chart<'a, 'b>(
     Ok(Plot {
         chart,
         legend: Vec::new(),
+        frame: (x, y),
     })
 }
 
@@ -508,6 +577,17 @@ mod tests {
         assert_eq!(pad(0.0, 0.0, 0.05), (-1.0, 1.0));
         assert_eq!(extent([f64::NAN, 0.0, 10.0]), Some((-0.5, 10.5)));
         assert_eq!(extent([f64::NAN]), None);
+        // Clipping to the unit square: a line crossing it twice leaves two pieces.
+        let path = [(-1.0, 0.5), (0.5, 0.5), (0.5, 2.0), (0.8, 0.5), (0.9, 0.5)];
+        let pieces = clip(&path, (0.0, 1.0), (0.0, 1.0));
+        assert_eq!(
+            pieces,
+            vec![
+                vec![(0.0, 0.5), (0.5, 0.5), (0.5, 1.0)],
+                vec![(0.7, 1.0), (0.8, 0.5), (0.9, 0.5)]
+            ]
+        );
+        assert!(clip(&[(2.0, 2.0), (3.0, 3.0)], (0.0, 1.0), (0.0, 1.0)).is_empty());
     }
 
     #[test]
