@@ -114,8 +114,17 @@ fn fit_table_and_check_describe_the_study() {
     let out = fitaudit().arg("fit").arg(&study).output().unwrap();
     assert!(out.status.success());
     let text = String::from_utf8_lossy(&out.stdout);
-    // NIST certified b1 = 2.3894212918E+02, sd 2.7070075241E+00.
-    assert!(text.contains("b1") && text.contains("238.94"), "{text}");
+    // NIST certified b1 = 2.3894212918E+02, sd 2.7070075241E+00: printed
+    // with two significant digits of the uncertainty, 238.9 and 2.7.
+    assert!(
+        text.contains("b1") && text.contains("238.9 ") && text.contains("2.7 "),
+        "{text}"
+    );
+    // Certified RSS 1.2455138894E-01, 14 points - 2 parameters = 12 dof.
+    assert!(
+        text.contains("chi2 = 0.124551") && text.contains("dof = 12"),
+        "{text}"
+    );
     assert!(text.contains("b2"), "{text}");
     let out = fitaudit().arg("check").arg(&study).output().unwrap();
     assert!(out.status.success());
