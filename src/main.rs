@@ -213,7 +213,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
     let out = args
         .out
         .clone()
-        .unwrap_or_else(|| Path::new("out").join(&study.name));
+        .unwrap_or_else(|| Path::new("out").join(output_name(&study.name)));
     fitaudit::output::preflight(&out)?;
     let options = AuditOptions {
         only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
@@ -239,6 +239,20 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
             ExitCode::SUCCESS
         })
     })
+}
+
+/// The folder name of the default output `out/<study name>/`: the study
+/// name, unless it could leave `out/` or name `out/` itself (`.` or `..`,
+/// the names of study files called `..toml` and `...toml`; a separator or
+/// a control character), then `study`.
+fn output_name(name: &str) -> String {
+    let unsafe_name =
+        name.chars().all(|c| c == '.') || name.chars().any(|c| c == '/' || c == '\\' || c.is_control());
+    if unsafe_name {
+        "study".to_string()
+    } else {
+        name.to_string()
+    }
 }
 
 /// Writes to stdout; a closed pipe (e.g. `| head`) ends the program quietly.
