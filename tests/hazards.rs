@@ -510,6 +510,103 @@ fn value_only_and_jacobian_programs_agree_on_a_fused_product() {
     }
 }
 
+/// A positive expression over a, b, c and x: sums, products, quotients and
+/// exponentials of positive terms, so that every printed formula has a
+/// value free of cancellation and rounding stays within a few units in the
+/// last place.
+#[derive(Debug, Clone)]
+enum Pos {
+    Num(f64),
+    P(usize),
+    X,
+    Add(Box<Pos>, Box<Pos>),
+    Mul(Box<Pos>, Box<Pos>),
+    Div(Box<Pos>, Box<Pos>),
+    Exp(Box<Pos>),
+}
+
+fn pos_tree() -> impl proptest::strategy::Strategy<Value = Pos> {
+    use proptest::prelude::*;
+    let leaf = prop_oneof![
+        (1u32..4000).prop_map(|k| Pos::Num(k as f64 / 1000.0)),
+        (0..3usize).prop_map(Pos::P),
+        Just(Pos::X),
+    ];
+    leaf.prop_recursive(6, 40, 2, |inner| {
+        prop_oneof![
+            (inner.clone(), inner.clone()).prop_map(|(a, b)| Pos::Add(Box::new(a), Box::new(b))),
+            (inner.clone(), inner.clone()).prop_map(|(a, b)| Pos::Mul(Box::new(a), Box::new(b))),
+            (inner.clone(), inner.clone()).prop_map(|(a, b)| Pos::Div(Box::new(a), Box::new(b))),
+            inner.prop_map(|a| Pos::Exp(Box::new(Pos::Mul(Box::new(Pos::Num(0.1)), Box::new(a))))),
+        ]
+    })
+}
+
+/// The formula, fully parenthesised.
+fn pos_text(e: &Pos) -> String {
+    match e {
+        Pos::Num(v) => format!("{v}"),
+        Pos::P(j) => ["a", "b", "c"][*j].to_string(),
+        Pos::X => "x".to_string(),
+        Pos::Add(a, b) => format!("({} + {})", pos_text(a), pos_text(b)),
+        Pos::Mul(a, b) => format!("({} * {})", pos_text(a), pos_text(b)),
+        Pos::Div(a, b) => format!("({} / {})", pos_text(a), pos_text(b)),
+        Pos::Exp(a) => format!("exp({})", pos_text(a)),
+    }
+}
+
+/// Reference interpreter: the tree evaluated as written.
+fn pos_eval(e: &Pos, p: &[f64; 3], x: f64) -> f64 {
+    match e {
+        Pos::Num(v) => *v,
+        Pos::P(j) => p[*j],
+        Pos::X => x,
+        Pos::Add(a, b) => pos_eval(a, p, x) + pos_eval(b, p, x),
+        Pos::Mul(a, b) => pos_eval(a, p, x) * pos_eval(b, p, x),
+        Pos::Div(a, b) => pos_eval(a, p, x) / pos_eval(b, p, x),
+        Pos::Exp(a) => pos_eval(a, p, x).exp(),
+    }
+}
+
+proptest::proptest! {
+    #![proptest_config(proptest::test_runner::Config {
+        cases: 400,
+        rng_seed: proptest::test_runner::RngSeed::Fixed(10),
+        failure_persistence: None,
+        ..proptest::test_runner::Config::default()
+    })]
+
+    /// The value-only program (what a fit evaluates for trial steps) and the
+    /// value-and-Jacobian program agree with a reference interpreter of the
+    /// formula as written, over 130 points (more than one evaluation block).
+    /// tests/model_props.rs checks only the value-and-Jacobian program.
+    #[test]
+    fn value_only_program_matches_the_reference_interpreter(
+        e in pos_tree(),
+        params in proptest::array::uniform3(0.5f64..2.0),
+    ) {
+        let formula = pos_text(&e);
+        let model = tape(&formula, &["a", "b", "c"], &["x"]);
+        let x: Vec<f64> = (0..130).map(|i| 0.5 + i as f64 / 86.0).collect();
+        let mut plain = vec![0.0; x.len()];
+        let mut full = vec![0.0; x.len()];
+        let mut jac = vec![0.0; 3 * x.len()];
+        let mut scratch = Vec::new();
+        let cols: [&[f64]; 1] = [&x];
+        let r1 = model.eval(&params, &cols, &mut plain, None, &mut scratch);
+        let r2 = model.eval(&params, &cols, &mut full, Some(&mut jac), &mut scratch);
+        proptest::prop_assert_eq!(r1, r2);
+        for i in 0..x.len() {
+            let want = pos_eval(&e, &params, x[i]);
+            proptest::prop_assume!(want.is_finite() && want < 1e300);
+            for (what, got) in [("value only", plain[i]), ("with Jacobian", full[i])] {
+                proptest::prop_assert!(rel(got, want) < 1e-12,
+                    "{} at x = {}: {} gives {}, reference {}", formula, x[i], what, got, want);
+            }
+        }
+    }
+}
+
 // ---------------------------------------------------------------------------
 // Through the command line
 // ---------------------------------------------------------------------------
@@ -879,4 +976,21 @@ fn data_paths_with_parent_components_only_read() {
     let new = added(&before, &after);
     assert!(new.iter().all(|p| inside(p, "run/out/up")), "{new:?}");
     assert!(run.join("out/up/results.json").is_file());
+}
+
+/// An error that quotes its cause is printed once, not followed by the same
+/// cause again ("Is a directory (os error 21): Is a directory (os error 21)").
+#[test]
+fn error_messages_do_not_repeat_their_cause() {
+    let tmp = tempfile::tempdir().unwrap();
+    let study = line_study(tmp.path(), "line");
+    let text_of_study = std::fs::read_to_string(&study)
+        .unwrap()
+        .replace("file = \"line.csv\"", "file = \".\"");
+    std::fs::write(&study, text_of_study).unwrap();
+    let out = fitaudit().arg("check").arg(&study).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("data.file"), "{err}");
+    assert_eq!(err.matches("os error").count(), 1, "{err}");
 }
