@@ -28,7 +28,8 @@ pub fn classify(err: &anyhow::Error) -> u8 {
 }
 
 /// A safe folder name for a study name: letters, digits, `-`, `_` and `.`
-/// kept, anything else replaced by `_`, and never `.`, `..` or empty, so a
+/// kept, anything else replaced by `_`; a name of dots only (or empty)
+/// becomes `study`, so a
 /// hostile study file name cannot move the default output folder.
 pub fn folder_name(name: &str) -> String {
     let clean: String = name
@@ -42,7 +43,7 @@ pub fn folder_name(name: &str) -> String {
         })
         .collect();
     if clean.chars().all(|c| c == '.') {
-        format!("study{}", "_".repeat(clean.len()))
+        "study".to_string()
     } else {
         clean
     }
@@ -205,8 +206,8 @@ mod tests {
     #[test]
     fn folder_names_cannot_escape() {
         assert_eq!(folder_name("cooling"), "cooling");
-        assert_eq!(folder_name(".."), "study__");
-        assert_eq!(folder_name("."), "study_");
+        assert_eq!(folder_name(".."), "study");
+        assert_eq!(folder_name("."), "study");
         assert_eq!(folder_name(""), "study");
         assert_eq!(folder_name("a/../b"), "a_.._b");
         assert_eq!(folder_name("Temp (°C)"), "Temp___C_");

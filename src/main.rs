@@ -138,7 +138,7 @@ fn main() -> ExitCode {
         Ok(code) => code,
         Err(err) => {
             let code = classify(&err);
-            eprintln!("error: {err:#}");
+            eprintln!("error: {}", message(&err));
             ExitCode::from(code)
         }
     }
@@ -239,6 +239,24 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
             ExitCode::SUCCESS
         })
     })
+}
+
+/// The error and its causes joined by ": ", leaving out a cause whose text
+/// is already shown (most errors quote their cause in their own message,
+/// which `{:#}` would print twice).
+fn message(err: &anyhow::Error) -> String {
+    let mut text = String::new();
+    for cause in err.chain() {
+        let part = cause.to_string();
+        if text.contains(&part) {
+            continue;
+        }
+        if !text.is_empty() {
+            text.push_str(": ");
+        }
+        text.push_str(&part);
+    }
+    text
 }
 
 /// Writes to stdout; a closed pipe (e.g. `| head`) ends the program quietly.

@@ -23,6 +23,9 @@ pub enum OutputError {
     /// The destination exists but is a file.
     #[error("output path {0} exists and is not a folder")]
     NotAFolder(PathBuf),
+    /// The destination does not end in a folder name (`.`, `..`, a root).
+    #[error("output path {0} does not end in a folder name; name the folder itself (not `.` or `..`)")]
+    NotAName(PathBuf),
     /// A file name that would leave the output folder.
     #[error("refusing to write {0}: output file names must stay inside the output folder")]
     Escapes(String),
@@ -147,8 +150,22 @@ pub fn preflight(dest: &Path) -> Result<(), OutputError> {
     Ok(())
 }
 
-/// Refuses destinations that exist and are not fitaudit output folders.
+/// True when the last component of `dest` is a plain folder name. `a/.`,
+/// `.`, `..` and `/` are not: their staging folder would land beside the
+/// wrong folder and replacing them would replace a parent.
+fn ends_in_a_name(dest: &Path) -> bool {
+    let text = dest.as_os_str().to_string_lossy();
+    let text = text.trim_end_matches(std::path::is_separator);
+    let last = text.rsplit(std::path::is_separator).next().unwrap_or("");
+    !last.is_empty() && last != "." && last != ".." && dest.file_name().is_some()
+}
+
+/// Refuses destinations that do not end in a folder name, and those that
+/// exist and are not fitaudit output folders.
 pub fn check_destination(dest: &Path) -> Result<(), OutputError> {
+    if !ends_in_a_name(dest) {
+        return Err(OutputError::NotAName(dest.to_path_buf()));
+    }
     if !dest.exists() {
         return Ok(());
     }
@@ -224,6 +241,20 @@ mod tests {
         let s = Staging::new(&ok).unwrap();
         for bad in ["../x", "/etc/x", "", "a/../../x"] {
             assert!(matches!(s.write(bad, b""), Err(OutputError::Escapes(_))), "{bad}");
+        }
+    }
+
+    #[test]
+    fn destinations_must_end_in_a_folder_name() {
+        for bad in [".", "..", "a/.", "a/..", "a/./", "/", ""] {
+            assert!(
+                matches!(check_destination(Path::new(bad)), Err(OutputError::NotAName(_))),
+                "{bad}"
+            );
+        }
+        let root = tempfile::tempdir().unwrap();
+        for ok in ["run", "run/", "a/b", ".hidden", "a.b"] {
+            assert!(check_destination(&root.path().join(ok)).is_ok(), "{ok}");
         }
     }
 }

@@ -402,7 +402,188 @@ fn cases() -> Vec<Case> {
             code: 2,
             expect: &["cannot read"],
         },
+        Case {
+            name: "million-digit number",
+            study: None,
+            csv: csv_with(|l| l[2] = format!("0.5,{},0.01", "1".repeat(1_000_000))),
+            args: AUDIT,
+            code: 2,
+            expect: &["line 3", "column 2", "too large"],
+        },
+        Case {
+            name: "duplicate header of the y column",
+            study: None,
+            csv: csv_with(|l| l[0] = "t,y,y".into()),
+            args: AUDIT,
+            code: 2,
+            expect: &["line 1", "`y`", "columns 2 and 3"],
+        },
+        Case {
+            name: "every x value the same",
+            study: None,
+            csv: csv_with(|l| {
+                for r in l.iter_mut().skip(1) {
+                    let rest: Vec<&str> = r.split(',').skip(1).collect();
+                    *r = format!("1.0,{}", rest.join(","));
+                }
+            }),
+            args: AUDIT,
+            code: 2,
+            expect: &["d.csv", "`t`", "constant"],
+        },
+        Case {
+            name: "quoted decimal comma in a comma-separated file",
+            study: None,
+            csv: csv_with(|l| l[3] = "1.0,\"4,5\",0.01".into()),
+            args: AUDIT,
+            code: 2,
+            expect: &["line 4", "column 2", "4,5"],
+        },
+        Case {
+            name: "empty data file",
+            study: None,
+            csv: Some(Vec::new()),
+            args: AUDIT,
+            code: 2,
+            expect: &["d.csv", "empty"],
+        },
+        Case {
+            name: "data file is a folder",
+            study: replace("file = \"d.csv\"", "file = \".\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["data.file", "cannot read"],
+        },
+        Case {
+            name: "empty study file",
+            study: Some(String::new()),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["study.toml", "data"],
+        },
+        Case {
+            name: "study file not UTF-8",
+            study: None,
+            csv: None,
+            args: &["check", "STUDY_RAW_LATIN1"],
+            code: 2,
+            expect: &["latin1.toml", "UTF-8"],
+        },
+        Case {
+            name: "empty formula",
+            study: replace("a + b*exp(-t/tau)", ""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["model.formula", "empty"],
+        },
+        Case {
+            name: "y column is the x column",
+            study: replace("y = \"y\"", "y = \"t\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["data.y", "x column"],
+        },
+        Case {
+            name: "sigma column is the y column",
+            study: replace("sigma = \"u\"", "sigma = \"y\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["data.sigma"],
+        },
+        Case {
+            name: "negative sigma number",
+            study: replace("sigma = \"u\"", "sigma = -0.01"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["data.sigma", "positive"],
+        },
+        Case {
+            name: "starts zero",
+            study: None,
+            csv: None,
+            args: &["audit", "STUDY", "--out", "OUT", "--starts", "0"],
+            code: 2,
+            expect: &["--starts", "at least 1"],
+        },
+        Case {
+            name: "replicates not a number",
+            study: None,
+            csv: None,
+            args: &["audit", "STUDY", "--out", "OUT", "--replicates", "1e3"],
+            code: 2,
+            expect: &["--replicates", "1e3"],
+        },
+        Case {
+            name: "negative seed",
+            study: None,
+            csv: None,
+            args: &["audit", "STUDY", "--out", "OUT", "--seed", "-1"],
+            code: 2,
+            expect: &["-1"],
+        },
+        Case {
+            name: "output path is a file",
+            study: None,
+            csv: None,
+            args: &[
+                "audit", "STUDY", "--out", "FILEOUT", "--quiet", "--only", "profile",
+            ],
+            code: 2,
+            expect: &["blocker", "not a folder"],
+        },
+        Case {
+            name: "output path ends in a dot",
+            study: None,
+            csv: None,
+            args: &[
+                "audit", "STUDY", "--out", "DOTOUT", "--quiet", "--only", "profile",
+            ],
+            code: 2,
+            expect: &["does not end in a folder name"],
+        },
         // Inputs that must work.
+        Case {
+            name: "million-digit number that fits",
+            study: None,
+            csv: csv_with(|l| l[2] = format!("0.5,4.5{}1,0.01", "0".repeat(1_000_000))),
+            args: FIT,
+            code: 0,
+            expect: &["\"converged\": true"],
+        },
+        Case {
+            name: "byte-order mark, semicolons and Windows line ends together",
+            study: None,
+            csv: {
+                let mut b = vec![0xEF, 0xBB, 0xBF];
+                b.extend(csv_rows().replace(',', ";").replace('\n', "\r\n").into_bytes());
+                Some(b)
+            },
+            args: FIT,
+            code: 0,
+            expect: &["\"converged\": true"],
+        },
+        Case {
+            name: "100000 columns",
+            study: None,
+            csv: csv_with(|l| {
+                for (k, r) in l.iter_mut().enumerate() {
+                    let extra: Vec<String> = (0..100_000)
+                        .map(|c| if k == 0 { format!("c{c}") } else { "0".into() })
+                        .collect();
+                    r.push(',');
+                    r.push_str(&extra.join(","));
+                }
+            }),
+            args: FIT,
+            code: 0,
+            expect: &["\"converged\": true"],
+        },
         Case {
             name: "byte-order mark",
             study: None,
@@ -478,6 +659,14 @@ fn every_bad_input_exits_2_names_the_culprit_and_leaves_no_output() {
                 "OUT" => out.display().to_string(),
                 "FOREIGN" => dir.join("foreign").display().to_string(),
                 "BLOCKED" => dir.join("blocker").join("sub").display().to_string(),
+                "FILEOUT" => dir.join("blocker").display().to_string(),
+                "DOTOUT" => format!("{}/.", out.display()),
+                "STUDY_RAW_LATIN1" => {
+                    // A study file saved as Latin-1: `é` is the single byte 0xE9.
+                    let p = dir.join("latin1.toml");
+                    std::fs::write(&p, b"title = \"caf\xe9\"\n").unwrap();
+                    p.display().to_string()
+                }
                 "DIR" => dir.display().to_string(),
                 other => other.to_string(),
             })
