@@ -400,7 +400,21 @@ pub(crate) fn eval_into(
     if chi2.is_finite() {
         Ok(chi2)
     } else {
-        let point = resid.iter().position(|r| !r.is_finite()).unwrap_or(0);
+        // A non-finite residual, or else the first point whose square
+        // overflows (finite residuals whose squares sum past f64::MAX).
+        let point = resid
+            .iter()
+            .position(|r| !(r * r).is_finite())
+            .unwrap_or_else(|| {
+                let mut sum = 0.0;
+                resid
+                    .iter()
+                    .position(|r| {
+                        sum += r * r;
+                        !sum.is_finite()
+                    })
+                    .unwrap_or(0)
+            });
         Err(NonFinite { point })
     }
 }

@@ -104,7 +104,7 @@ impl RawTable {
                         at,
                         column,
                         name,
-                        text: text.clone(),
+                        text: quoted_cell(text),
                         why,
                     })
                 }
@@ -113,7 +113,7 @@ impl RawTable {
                         at,
                         column,
                         name,
-                        text: text.clone(),
+                        text: quoted_cell(text),
                     })
                 }
                 Err(NumberProblem::NotANumber(why)) => {
@@ -121,13 +121,25 @@ impl RawTable {
                         at,
                         column,
                         name,
-                        text: text.clone(),
+                        text: quoted_cell(text),
                         why,
                     })
                 }
             }
         }
         Ok(out)
+    }
+}
+
+/// A cell as quoted in an error message: at most 40 characters, so a
+/// runaway cell (a megabyte of digits) cannot flood the terminal.
+fn quoted_cell(text: &str) -> String {
+    const KEEP: usize = 40;
+    if text.chars().count() <= KEEP {
+        text.to_string()
+    } else {
+        let head: String = text.chars().take(KEEP).collect();
+        format!("{head}... ({} characters)", text.chars().count())
     }
 }
 
