@@ -125,11 +125,7 @@ pub fn replicates(
     let n = data.len();
     let seed = ctx.settings.seed;
     let sigma = data.sigma_or_ones();
-    // Fitted values, one per point (NaN if the fit gave too few: those
-    // replicates then fail visibly as non-finite).
-    let fitted: Vec<f64> = (0..n)
-        .map(|i| ctx.fit.fitted.get(i).copied().unwrap_or(f64::NAN))
-        .collect();
+    let fitted = ctx.fitted_values();
     match settings.scheme {
         BootstrapScheme::Case => resample::refit_replicates(ctx, indices, n, true, progress, |k, s| {
             let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);

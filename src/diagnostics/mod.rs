@@ -37,6 +37,15 @@ impl Fitted<'_> {
         self.fit.parameters.iter().map(|p| p.value).collect()
     }
 
+    /// The base fit's model value at every point, NaN where the fit gave
+    /// none (replicates built on such a point then fail visibly as
+    /// non-finite instead of being silently wrong).
+    pub fn fitted_values(&self) -> Vec<f64> {
+        (0..self.data.len())
+            .map(|i| self.fit.fitted.get(i).copied().unwrap_or(f64::NAN))
+            .collect()
+    }
+
     /// Which parameters the optimiser may move (not fixed in the study).
     pub fn free_mask(&self) -> Vec<bool> {
         self.problem.params.iter().map(|p| !p.fixed).collect()

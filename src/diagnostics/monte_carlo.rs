@@ -187,9 +187,7 @@ pub fn trials(
     let s = noise_scale(ctx);
     let sigma: Vec<f64> = data.sigma_or_ones().iter().map(|v| v * s).collect();
     let given_sigma = data.sigma_or_ones();
-    let fitted: Vec<f64> = (0..n)
-        .map(|i| ctx.fit.fitted.get(i).copied().unwrap_or(f64::NAN))
-        .collect();
+    let fitted = ctx.fitted_values();
     let t = settings
         .student_t_dof
         .and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt())));
