@@ -23,6 +23,10 @@ pub fn classify(err: &anyhow::Error) -> u8 {
         if cause.is::<crate::output::OutputError>() {
             return 2;
         }
+        // Transparent wrappers hide the output error from the chain.
+        if let Some(crate::report::ReportError::Output(_)) = cause.downcast_ref() {
+            return 2;
+        }
     }
     1
 }
