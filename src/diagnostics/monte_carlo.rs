@@ -69,7 +69,7 @@ pub fn batch_size(level: f64) -> usize {
 }
 
 /// Runs the Monte Carlo refits with the given settings; `bca = false`
-/// skips the jackknife refits (no BCa interval).
+/// skips the linearised jackknife (no BCa interval).
 pub fn run_with(
     ctx: &Fitted,
     settings: &MonteCarloSettings,
@@ -77,23 +77,19 @@ pub fn run_with(
     progress: &dyn Progress,
 ) -> ResampleResult {
     let max = settings.replicates;
-    let n = ctx.data.len();
     let scheme = if settings.student_t_dof.is_some() {
         "student-t"
     } else {
         "normal"
     };
-    progress.start(
-        &format!("Monte Carlo ({scheme})"),
-        (max + if bca { n } else { 0 }) as u64,
-    );
+    progress.start(&format!("Monte Carlo ({scheme})"), max as u64);
     let (outcomes, adaptive_stable) = if settings.adaptive {
         let (o, stable) = adaptive(ctx, settings, progress);
         (o, Some(stable))
     } else {
         (trials(ctx, settings, 0..max, progress), None)
     };
-    let jackknife = bca.then(|| resample::jackknife(ctx, progress));
+    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     progress.finish();
     resample::assemble(
         ctx,

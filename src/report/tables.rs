@@ -418,7 +418,7 @@ pub fn failures(results: &AuditResults) -> Table {
         }
         if rs.jackknife_refits > 0 {
             details.push(format!(
-                "BCa jackknife: {} of {} refits failed{}",
+                "BCa acceleration from {1} linearised leave-one-out values, {0} failed{2}",
                 rs.jackknife_failures.len(),
                 rs.jackknife_refits,
                 if rs.jackknife_failures.is_empty() {
