@@ -862,6 +862,10 @@ pub fn summarise(
 pub struct EndFacts<'a> {
     /// Whether the refit converged with a finite chi-squared.
     pub converged: bool,
+    /// The refit's end-point test found a parameter that ran away.
+    pub runaway: bool,
+    /// The refit's end-point test found a vanished Jacobian column.
+    pub plateau: bool,
     /// The end point.
     pub end: &'a [f64],
     /// Which parameters were free.
@@ -878,21 +882,30 @@ pub struct EndFacts<'a> {
 }
 
 /// Why an end point is no minimum, apart from the rank drop (which needs
-/// the other ends and is judged in [`summarise`]): not converged, else a
-/// runaway free parameter (farther outside its box than [`RUNAWAY_WIDTHS`]
-/// box widths), else a vanished column (a free parameter not on a bound
-/// whose column norm times its box width is at most [`VANISHED_COLUMN`]
-/// times the data norm). None for an end that may be a minimum.
+/// the other ends and is judged in [`summarise`]), in this order: a
+/// non-finite end is not converged; a runaway (the refit's end-point test
+/// says so, or a free parameter lies farther outside its box than
+/// [`RUNAWAY_WIDTHS`] box widths); a vanished column (the refit's
+/// end-point test found a plateau, or a free parameter not on a bound has a
+/// column norm times its box width of at most [`VANISHED_COLUMN`] times the
+/// data norm); any other refit that did not converge. None for an end
+/// that may be a minimum.
 pub fn classify_end(f: &EndFacts) -> Option<EndKind> {
-    if !f.converged || f.end.iter().any(|v| !v.is_finite()) {
+    if f.end.iter().any(|v| !v.is_finite()) {
         return Some(EndKind::NotConverged);
     }
     let free = |j: usize| f.free.get(j).copied().unwrap_or(false);
+    if f.runaway {
+        return Some(EndKind::Runaway);
+    }
     for (j, &v) in f.end.iter().enumerate() {
         let Some(&[lo, hi]) = f.boxes.get(j) else { continue };
         if free(j) && hi > lo && (v - v.clamp(lo, hi)).abs() > RUNAWAY_WIDTHS * (hi - lo) {
             return Some(EndKind::Runaway);
         }
+    }
+    if f.plateau {
+        return Some(EndKind::VanishedColumn);
     }
     if f.column_norms.len() < f.end.len() {
         return Some(EndKind::NotConverged);
@@ -908,6 +921,9 @@ pub fn classify_end(f: &EndFacts) -> Option<EndKind> {
         if free(j) && !on_bound && hi > lo && f.column_norms[j] * (hi - lo) <= VANISHED_COLUMN * scale {
             return Some(EndKind::VanishedColumn);
         }
+    }
+    if !f.converged {
+        return Some(EndKind::NotConverged);
     }
     None
 }
@@ -957,6 +973,8 @@ fn finish_run(
     let converged = out.converged && out.chi2.is_finite();
     let degenerate = classify_end(&EndFacts {
         converged,
+        runaway: out.end.runaway.is_some(),
+        plateau: out.end.plateau.is_some(),
         end: &end,
         free: &free,
         at_bound: &at_bound,
@@ -964,14 +982,10 @@ fn finish_run(
         column_norms: &column_norms,
         data_norm,
     });
+    // The refit's end-point test: rank of the active (varying, not held on
+    // a bound) parameters' weighted Jacobian.
     let rank_deficiency = if degenerate.is_none() {
-        match crate::fit::analyse(&ctx.problem, ctx.data, &end, out) {
-            Ok(a) => {
-                let estimated = a.parameters.iter().filter(|p| !p.fixed && !p.at_bound).count();
-                estimated.saturating_sub(a.rank)
-            }
-            Err(_) => 0,
-        }
+        out.end.active.saturating_sub(out.end.rank)
     } else {
         0
     };

@@ -216,6 +216,9 @@ fn stop_words(s: crate::fit::StopReason) -> &'static str {
         Step => "step below tolerance",
         IterationLimit => "iteration limit reached",
         NonFinite => "model not finite",
+        Stalled => "stalled short of a minimum",
+        Plateau => "on a plateau (the model no longer depends on a parameter)",
+        Runaway => "a parameter ran away",
     }
 }
 
@@ -511,6 +514,7 @@ mod tests {
             name: name.to_string(),
             value,
             std_error: se,
+            expanded_uncertainty: se,
             at_bound: false,
             fixed: false,
         }
@@ -526,7 +530,13 @@ mod tests {
             chi2: 412.7,
             dof: 20,
             reduced_chi2: 412.7 / 20.0,
-            p_value: 0.0,
+            p_value: Some(0.0),
+            sigma_given: true,
+            level: crate::fit::DEFAULT_LEVEL,
+            coverage_factor: 1.0,
+            coverage_basis: crate::fit::CoverageBasis::Normal,
+            end: Default::default(),
+            end_issues: Vec::new(),
             parameters,
             covariance: vec![vec![0.0; m]; m],
             correlation: vec![vec![0.0; m]; m],
