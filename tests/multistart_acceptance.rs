@@ -240,8 +240,9 @@ fn peak_global_minimum_is_found_and_audited_for_every_seed() {
         degenerate.vanished_column += d.vanished_column;
         degenerate.rank_drop += d.rank_drop;
     }
-    // Measured: 158 not converged, 503 runaway, 1863 vanished column over
-    // the 20 searches (384 starts each).
+    // Measured: 25 not converged, 606 runaway, 1912 vanished column, 0 rank
+    // drop over the 20 searches (384 starts each).
+    eprintln!("peak, 20 searches: {degenerate:?}");
     assert!(
         degenerate.runaway > 0 && degenerate.vanished_column > 0,
         "{degenerate:?}"
