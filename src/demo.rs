@@ -48,7 +48,7 @@ pub const SCENARIOS: [Scenario; 3] = [
     },
     Scenario {
         name: "vibration",
-        purpose: "a poor frequency guess: the base fit sits in a local minimum",
+        purpose: "a poor frequency guess: the start reaches a local minimum, the audit is re-based",
         study: include_str!("../demo-data/vibration.toml"),
         data_file: "vibration.csv",
         data: include_str!("../demo-data/vibration.csv"),

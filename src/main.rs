@@ -80,7 +80,8 @@ struct AuditArgs {
     /// Replicates of both bootstrap and Monte Carlo (overrides the study).
     #[arg(long, value_parser = parse_positive)]
     replicates: Option<usize>,
-    /// Number of multi-start starts (overrides the study).
+    /// Starts of the first multi-start batch (overrides the study; batches
+    /// are added up to audit.multistart.max_starts).
     #[arg(long, value_parser = parse_positive)]
     starts: Option<usize>,
     /// Seed of every random stream (overrides the study).

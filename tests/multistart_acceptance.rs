@@ -163,9 +163,10 @@ fn sine(seed: u64) -> Case {
 }
 
 fn settings(seed: u64) -> AuditSettings {
-    let mut s = AuditSettings::default();
-    s.seed = seed;
-    s
+    AuditSettings {
+        seed,
+        ..AuditSettings::default()
+    }
 }
 
 fn rel(a: f64, b: f64) -> f64 {

@@ -1,36 +1,73 @@
 //! Multi-start search for competing minima.
 //!
 //! The search refits the problem from many starting points spread over a box
-//! around the base fit, groups the endpoints into distinct minima and tells
-//! whether the base fit is the best of them.
+//! that fits the problem, in batches until enough starts have run, sets
+//! aside the degenerate ends, groups the others into distinct minima and
+//! tells whether the fit from the study's start is the best of them.
 //!
 //! # Rules
 //!
-//! **Sampling box** (per parameter, see [`sampling_box`]). A fixed parameter
-//! stays at its value. A parameter with two finite bounds is sampled over its
-//! bounds. Otherwise the default box is the hull of the study's start and the
-//! base-fit value, widened on each side by
-//! `h = max(3 * max(|start|, |value|), 3 * SE, 1)` (scaled by the magnitude of
-//! the start; `SE` is the base fit's standard error, left out when missing)
-//! and then cut at the one finite bound, if any. When
-//! `settings.multistart.log_uniform` is on, a box that is positive
-//! (`low >= 0`, `high > 0`) and spans more than a decade is sampled
-//! uniformly in the logarithm; a positive box that starts at 0 is sampled over
-//! its top three decades (`[high * 1e-3, high]`, lowered to the smallest
-//! positive start or value when that is smaller), and `box_bounds` reports
-//! the range actually sampled.
+//! **Sampling box** (per parameter, see [`sampling_box`]; built from what the
+//! study says about scale, never from the standard errors of a fit that may
+//! be local or degenerate). A fixed parameter stays at its value. A
+//! parameter with two finite bounds is sampled over its bounds. Otherwise:
 //!
-//! **Design.** One Latin hypercube over the free parameters
+//! - a *position* on an x axis (read from the formula: the parameter is
+//!   subtracted from or compared with a data column, e.g. `wl - mu`) gets
+//!   that column's data range widened by [`POSITION_MARGIN`] of the range
+//!   on each side;
+//! - a *sign-definite* parameter (a bound at or beyond 0: `min >= 0` or
+//!   `max <= 0`) gets [`DECADES`] decades on each side of its start's
+//!   magnitude (the data's largest `|y|` for a start of 0);
+//! - any other parameter gets `start +- 3 |start|` ([`BOX_FACTOR`]; the
+//!   data's largest `|y|` for a start of 0).
+//!
+//! The study's start always lies in the box; the value of the fit from the
+//! start joins it only when it lies within the box's half-width of the
+//! start (a fit that ran off does not stretch the box); the one finite
+//! bound, if any, cuts it. When `settings.multistart.log_uniform` is on, a
+//! positive box (`low >= 0`, `high > 0`) that is not a position and spans
+//! more than a decade is sampled uniformly in the logarithm; a positive box
+//! that starts at 0 is sampled over its top three decades (`[high * 1e-3,
+//! high]`, lowered to the smallest positive start or value when that is
+//! smaller), and `box_bounds` reports the range actually sampled.
+//!
+//! **Design and batches.** Batch `b` is one Latin hypercube of
+//! `settings.multistart.starts` points over the free parameters
 //! ([`super::sampling::latin_hypercube`]), drawn in full from
-//! `rng::stream(seed, Stream::Multistart, 0)` before any refit. Start `k` is
-//! row `k` of that design, so the starts do not depend on the thread count
-//! and the fits (deterministic refits, collected in start order) do not
-//! either. A different seed gives a different design.
+//! `rng::stream(seed, Stream::Multistart, b)` before any refit of the
+//! batch. After each batch the endpoints so far are summarised; the search
+//! stops when the estimated probability of a missed minimum (below) is at
+//! most `settings.multistart.missed_target` (`stopped = "estimate-small"`),
+//! or when one more batch would exceed `settings.multistart.max_starts`
+//! (`stopped = "cap-reached"`; the cap is never below the first batch).
+//! Starts do not depend on the thread count and the fits (deterministic
+//! refits, collected in start order) do not either.
 //!
 //! **Refits.** Every start is refitted by [`crate::fit::Refitter::refit`]
-//! with the free mask of the study (one workspace per rayon worker). A start
-//! whose refit did not converge, or ended on a non-finite chi-squared, is
-//! counted in `failed` and not clustered.
+//! with the free mask of the study (one workspace per rayon worker).
+//!
+//! **Early merging** (`settings.multistart.merge_early`, off by default).
+//! From the second batch on, each start is first polished for
+//! [`POLISH_ITERATIONS`] iterations; if the polished point already matches
+//! a minimum found in the earlier batches (the same-minimum rule below) it
+//! is counted for that minimum (`merged_early`) without finishing its refit;
+//! otherwise the refit continues from the polished point. The minima known
+//! to a batch come only from earlier batches, so the result stays
+//! independent of the thread count.
+//!
+//! **Degenerate ends** are no minima: they get no basin share, are never
+//! the best minimum and are counted by kind in `degenerate` (their total is
+//! `failed`). In order ([`classify_end`]): a non-finite end (not converged);
+//! a *runaway* (the refit's end-point test says a parameter ran away, or a
+//! free parameter lies more than [`RUNAWAY_WIDTHS`] box widths outside its
+//! box); a *vanished column* (the end-point test found a plateau, or a free
+//! parameter not on a bound changes the weighted model by at most
+//! [`VANISHED_COLUMN`] times the norm of the weighted data over its box
+//! width); any other refit that did not converge; a *rank drop* (the
+//! active parameters' weighted Jacobian is more rank-deficient than at the
+//! least deficient other end, so a structural deficiency shared by every
+//! end does not count). Merged-early starts are not degenerate.
 //!
 //! **Same minimum.** Two endpoints are the same minimum when their
 //! chi-squared values agree within
@@ -78,7 +115,12 @@
 //!
 //! **Missed minima.** Boender & Rinnooy Kan (1987), "Bayesian stopping rules
 //! for multistart global optimization methods", Math. Programming 37:59-80,
-//! see [`boender_rinnooy_kan`].
+//! see [`boender_rinnooy_kan`], with `n` the starts that ended at a minimum
+//! (degenerate ends left out, merged-early ones counted) and `w` the
+//! distinct minima: `missed_minimum_estimate` is the posterior probability
+//! that some minimum was not found, `unseen_share` the expected share of
+//! the box in basins not found, `expected_minima` the expected number of
+//! minima.
 
 use super::sampling::{latin_hypercube, Interval, Scale};
 use super::{Fitted, Progress};
@@ -929,6 +971,7 @@ pub fn classify_end(f: &EndFacts) -> Option<EndKind> {
 }
 
 /// What one start's refit gives: the run, classified apart from the rank drop.
+#[allow(clippy::too_many_arguments)] // one start's facts, passed apart to keep the closure small
 fn finish_run(
     ctx: &Fitted,
     view: &DataView,
