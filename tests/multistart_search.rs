@@ -392,3 +392,51 @@ fn straight_line_has_one_minimum() {
     assert_eq!(r.box_bounds[0], [-3.0 * 16.8, 3.0 * 16.8]);
     assert_eq!(r.box_bounds[1], [1.0 - 3.0, 1.0 + 3.0]);
 }
+
+/// Early merging: starts of later batches that reach a minimum already found
+/// after the short polish are counted there (merged_early) without
+/// finishing their refit; the minima found and the best one do not change,
+/// and the result does not depend on the thread count.
+#[test]
+fn early_merging_counts_polished_starts_for_known_minima() {
+    let model = NativeModel::new(4, sinusoid as PointFn);
+    let params = sine_params();
+    let data = sine_data();
+    let problem = Problem {
+        model: &model,
+        params: params.clone(),
+        options: FitOptions::default(),
+    };
+    let base = fit(&problem, &data).unwrap();
+    let mut plain = settings(32, 9);
+    plain.multistart.max_starts = 128;
+    plain.multistart.log_uniform = false;
+    let mut merging = plain.clone();
+    merging.multistart.merge_early = true;
+    let a = search(&model, &params, &data, &base, &plain, &NoProgress);
+    let in_pool = |threads: usize| {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap()
+            .install(|| search(&model, &params, &data, &base, &merging, &NoProgress))
+    };
+    let b = in_pool(2);
+    assert_eq!(a.starts, b.starts);
+    assert_eq!(a.merged_early, 0);
+    assert!(b.merged_early > 0, "nothing merged early");
+    // Merged starts are of later batches only, and each is a minimum's member.
+    for r in b.runs.iter().filter(|r| r.merged_early) {
+        assert!(r.batch > 0 && r.minimum.is_some() && r.degenerate.is_none());
+    }
+    assert_eq!(b.merged_early, b.runs.iter().filter(|r| r.merged_early).count());
+    // Same best minimum (chi2 0 at the generating values).
+    assert!(a.minima[0].chi2 < 1e-6 && b.minima[0].chi2 < 1e-6);
+    assert!((a.minima[0].parameters[1].value - b.minima[0].parameters[1].value).abs() < 1e-6);
+    assert!(!b.base_is_best);
+    let one = in_pool(1);
+    assert_eq!(
+        serde_json::to_string(&one).unwrap(),
+        serde_json::to_string(&b).unwrap()
+    );
+}

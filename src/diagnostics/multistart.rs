@@ -23,9 +23,10 @@
 //!   data's largest `|y|` for a start of 0).
 //!
 //! The study's start always lies in the box; the value of the fit from the
-//! start joins it only when it lies within the box's half-width of the
-//! start (a fit that ran off does not stretch the box); the one finite
-//! bound, if any, cuts it. When `settings.multistart.log_uniform` is on, a
+//! start joins a position or default box only when it lies within the box's
+//! half-width of the start, and never widens the decades of a sign-definite
+//! one (a fit that ran off does not stretch the box); the one finite bound,
+//! if any, cuts it. When `settings.multistart.log_uniform` is on, a
 //! positive box (`low >= 0`, `high > 0`) that is not a position and spans
 //! more than a decade is sampled uniformly in the logarithm; a positive box
 //! that starts at 0 is sampled over its top three decades (`[high * 1e-3,
@@ -385,14 +386,14 @@ pub fn sampling_box(spec: &ParamSpec, value: f64, hint: &ScaleHint, log_uniform:
             hint.magnitude.abs().max(f64::MIN_POSITIVE)
         };
         let (near, far) = (a * 10f64.powi(-DECADES), a * 10f64.powi(DECADES));
-        // A start of 0 on the bound does not pull the box onto 0.
+        // The decades already hold the start (a start of 0 on the bound
+        // does not pull the box onto 0), and the fit's value never widens
+        // them: a value decades away is a fit that slid off.
         if lo_bound >= 0.0 {
-            let (l, h) = hull(near, far);
-            (if start == 0.0 { l.max(near) } else { l }, h)
+            (near.max(lo_bound), far.min(hi_bound))
         } else {
             log_ok = false;
-            let (l, h) = hull(-far, -near);
-            (l, if start == 0.0 { h.min(-near) } else { h })
+            ((-far).max(lo_bound), (-near).min(hi_bound))
         }
     } else {
         log_ok = false;
