@@ -212,10 +212,11 @@ pub fn fit_params(fit: &FitResult) -> Table {
     }
 }
 
-/// The expanded uncertainty at the precision of the standard error.
+/// The expanded uncertainty, to two significant digits like the standard
+/// uncertainty.
 pub fn expanded(p: &ParamResult) -> String {
     match p.expanded_uncertainty {
-        Some(u) => format::at_precision_of(u, p.std_error),
+        Some(u) => format::value_and_uncertainty(0.0, Some(u)).1,
         None => s(format::ABSENT),
     }
 }
