@@ -143,7 +143,7 @@ pub fn decide(inputs: &VerdictInputs) -> Vec<Verdict> {
             };
             base_rules(fit, p, &mut f);
             if let Some(ms) = inputs.multistart {
-                multistart_rule(ms, p, &mut f);
+                multistart_rule(ms, fit, p, &mut f);
             }
             if let Some(pr) = inputs.profile {
                 profile_rule(pr, index, p, tol, &mut f);
@@ -222,12 +222,20 @@ fn stop_words(s: crate::fit::StopReason) -> &'static str {
     }
 }
 
-fn multistart_rule(ms: &MultistartResult, p: &ParamResult, f: &mut Findings) {
-    if ms.base_is_best {
+fn multistart_rule(ms: &MultistartResult, fit: &FitResult, p: &ParamResult, f: &mut Findings) {
+    if ms.audited_is_best {
+        let rebased = if ms.base_is_best {
+            String::new()
+        } else {
+            format!(
+                " (the audit is re-based there; the study's start reaches chi2 = {})",
+                num(ms.base_chi2)
+            )
+        };
         f.agreements.push(format!(
-            "the multi-start search ({} starts) found no better minimum than the base fit (chi2 = {})",
+            "the multi-start search ({} starts) found no better minimum than the audited fit (chi2 = {}){rebased}",
             ms.starts,
-            num(ms.base_chi2)
+            num(fit.chi2)
         ));
         return;
     }
@@ -628,9 +636,14 @@ mod tests {
     fn multistart_of(base_is_best: bool, best: Vec<(&str, f64)>) -> MultistartResult {
         MultistartResult {
             starts: 64,
+            batches: 1,
+            stopped: crate::diagnostics::multistart::StopRule::EstimateSmall,
             failed: 0,
+            degenerate: Default::default(),
+            merged_early: 0,
             base_chi2: 412.7,
             base_is_best,
+            audited_is_best: base_is_best,
             minima: vec![Minimum {
                 chi2: if base_is_best { 412.7 } else { 80.1 },
                 delta_chi2: 0.0,
@@ -647,6 +660,7 @@ mod tests {
                     .collect(),
             }],
             missed_minimum_estimate: 0.01,
+            unseen_share: 0.001,
             expected_minima: 2.0,
             box_bounds: Vec::new(),
             runs: Vec::new(),
