@@ -500,6 +500,7 @@ pub fn cooling() -> AuditResults {
         data,
         fit,
         curve: Some(curve),
+        reduction: None,
     }
 }
 
