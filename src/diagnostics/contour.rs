@@ -430,11 +430,27 @@ fn profile_grid(
             let right: Vec<usize> = (c0 + 1..xs.len()).collect();
             let left: Vec<usize> = (0..c0).rev().collect();
             for order in [right, left] {
+                // Warm start: the last node's solution, moved on by the
+                // change between the last two nodes (the profiled
+                // parameters vary smoothly along a row; a secant step
+                // saves about one iteration per node).
+                let mut last = seed.clone();
+                let mut before: Option<Vec<f64>> = None;
                 let mut start = seed.clone();
                 for c in order {
-                    if let Some(nd) = sc.at(&[(i, xs[c]), (k, ys[r])], &start) {
-                        row[c] = nd.chi2;
-                        start.copy_from_slice(&nd.params);
+                    if let Some(prev) = &before {
+                        for ((s, l), p) in start.iter_mut().zip(&last).zip(prev) {
+                            *s = 2.0 * l - p;
+                        }
+                    } else {
+                        start.copy_from_slice(&last);
+                    }
+                    match sc.at(&[(i, xs[c]), (k, ys[r])], &start) {
+                        Some(nd) => {
+                            row[c] = nd.chi2;
+                            before = Some(std::mem::replace(&mut last, nd.params));
+                        }
+                        None => before = None,
                     }
                 }
             }

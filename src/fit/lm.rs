@@ -230,10 +230,92 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
     }
 }
 
-/// QR of the scaled active columns of the Jacobian, SVD of `R` and the
-/// coefficients `c = U^T Q^T r`. Returns the number of active columns and
-/// the largest singular value.
+/// The factorisation of the scaled active columns `J_s = J D^-1` that
+/// every step needs: singular values `s`, right singular vectors `v` and
+/// the coefficients `c = U^T Q^T r` (so that the damped step for any
+/// Levenberg parameter follows from them alone). Returns the number of
+/// active columns and the largest singular value.
+///
+/// Two paths give the same quantities. For a well-conditioned `J_s`
+/// (`cond(J_s) < 1e4`) the normal equations: `A = J_s^T J_s` and
+/// `b = J_s^T r` in one blocked pass over the data (the columns of a block
+/// stay in the first-level cache, so a large data set is streamed once,
+/// not once per Householder reflection), then the symmetric eigenproblem
+/// `A = V S^2 V^T` by Jacobi rotations and `c = S^-1 V^T b`; eigenvalues
+/// of `A` resolve singular values of `J_s` down to about `sqrt(eps)` of the
+/// largest, hence the condition bound (rounding in `A` then perturbs the
+/// step by about 1e-8 of itself, and never the fixed point, which only
+/// depends on `b`). Otherwise, and whenever the geodesic term needs
+/// `Q` and `U`, Householder QR of `J_s` and the SVD of `R`.
 pub(crate) fn factor(rf: &mut Refitter) -> (usize, f64) {
+    if !rf.need_qr {
+        if let Some(out) = factor_normal(rf) {
+            return out;
+        }
+    }
+    factor_qr(rf)
+}
+
+/// Points per block of the normal-equations pass.
+const BLOCK: usize = 256;
+
+/// Smallest ratio of the extreme eigenvalues of `J_s^T J_s` for which the
+/// normal equations are used (`cond(J_s) < 1e4`).
+const NORMAL_EIGEN_RATIO: f64 = 1e-8;
+
+fn factor_normal(rf: &mut Refitter) -> Option<(usize, f64)> {
+    let n = rf.n;
+    let k = rf.active.len();
+    if k == 0 {
+        return None;
+    }
+    // The gradient `J^T r` and the column norms are current (every caller
+    // runs `gradient_and_active` at this point first): they give `b` and
+    // the diagonal of `A`; one blocked pass adds the off-diagonal terms.
+    let (w, b) = (&mut rf.w[..k * k], &mut rf.c2[..k]);
+    w.iter_mut().for_each(|x| *x = 0.0);
+    let mut start = 0;
+    while start < n && k > 1 {
+        let end = (start + BLOCK).min(n);
+        for (a, &ja) in rf.active.iter().enumerate() {
+            let ca = &rf.jac[ja * n + start..ja * n + end];
+            for (bb, &jb) in rf.active.iter().enumerate().skip(a + 1) {
+                let cb = &rf.jac[jb * n + start..jb * n + end];
+                w[bb * k + a] += dot(ca, cb);
+            }
+        }
+        start = end;
+    }
+    for (a, &ja) in rf.active.iter().enumerate() {
+        let da = rf.diag[ja];
+        b[a] = rf.grad[ja] / da;
+        w[a * k + a] = (rf.colnorm[ja] / da).powi(2);
+        for (bb, &jb) in rf.active.iter().enumerate().skip(a + 1) {
+            let v = w[bb * k + a] / (da * rf.diag[jb]);
+            w[bb * k + a] = v;
+            w[a * k + bb] = v;
+        }
+    }
+    if !w.iter().chain(b.iter()).all(|v| v.is_finite()) {
+        return None;
+    }
+    jacobi_svd(w, k, &mut rf.v[..k * k], &mut rf.s[..k]);
+    let lmax = rf.s[..k].iter().fold(0.0f64, |a, &x| a.max(x));
+    let lmin = rf.s[..k].iter().fold(f64::INFINITY, |a, &x| a.min(x));
+    if !(lmax > 0.0 && lmin > NORMAL_EIGEN_RATIO * lmax) {
+        return None;
+    }
+    for i in 0..k {
+        let si = rf.s[i].sqrt();
+        rf.s[i] = si;
+        rf.c[i] = dot(&rf.v[i * k..(i + 1) * k], &rf.c2[..k]) / si;
+    }
+    Some((k, lmax.sqrt()))
+}
+
+/// The Householder path of [`factor`]: QR of the scaled active columns,
+/// SVD of `R` and `c = U^T Q^T r`.
+fn factor_qr(rf: &mut Refitter) -> (usize, f64) {
     let n = rf.n;
     let k = rf.active.len();
     for (c, &j) in rf.active.iter().enumerate() {

@@ -76,6 +76,8 @@ pub struct Refitter {
     pub(crate) end_flags: Vec<u8>,
     /// Diagonal scaling of steepest descent (m).
     pub(crate) sd_scale: Vec<f64>,
+    /// The factorisation must keep `Q` and `U` (geodesic acceleration).
+    pub(crate) need_qr: bool,
     /// The method already ran the end-point test at its end point (the
     /// result is in the returned [`Refit`]).
     pub(crate) end_ready: bool,
@@ -126,6 +128,7 @@ impl Refitter {
             end_flags: Vec::new(),
             sd_scale: Vec::new(),
             end_ready: false,
+            need_qr: false,
             evaluations: 0,
         };
         r.resize(n_points, m);
@@ -243,6 +246,7 @@ impl Refitter {
         self.colnorm0.iter_mut().for_each(|c| *c = 0.0);
         self.end_flags.iter_mut().for_each(|f| *f = 0);
         self.end_ready = false;
+        self.need_qr = problem.options.geodesic && problem.options.method == Method::Lm;
         let mut out = match problem.options.method {
             Method::Lm => super::lm::run(self, problem, data),
             Method::Steepest => super::steepest::run(self, problem, data),
