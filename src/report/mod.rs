@@ -21,6 +21,7 @@ use crate::output::{OutputError, Staging};
 
 pub mod csv;
 pub mod figures;
+pub mod findings;
 pub mod format;
 pub mod html;
 pub mod json;
