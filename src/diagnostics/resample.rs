@@ -571,7 +571,7 @@ pub fn checked_bca(
         return (None, Some(BcaWithheld::ExtremeQuantile));
     }
     let (lo, hi) = (quantile_sorted(sorted, pl), quantile_sorted(sorted, pu));
-    if !(hi > lo) {
+    if hi.is_nan() || lo.is_nan() || hi <= lo {
         return (None, Some(BcaWithheld::ZeroWidth));
     }
     if estimate < lo || estimate > hi {
