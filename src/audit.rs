@@ -149,12 +149,14 @@ pub struct AuditInput<'a> {
 }
 
 impl AuditInput<'_> {
-    /// The fitting problem.
+    /// The fitting problem (its analytic interval at the audit's level).
     pub fn problem(&self) -> Problem<'_> {
+        let mut options = self.fit_options.clone();
+        options.level = self.settings.level;
         Problem {
             model: self.model,
             params: self.params.clone(),
-            options: self.fit_options.clone(),
+            options,
         }
     }
 }

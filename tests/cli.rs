@@ -93,12 +93,18 @@ fn fit_json_reproduces_nist_certified_values() {
                 "stop_reason",
                 "iterations",
                 "reduced_chi2",
-                "p_value",
+                "coverage_factor",
                 "covariance",
                 "correlation",
             ] {
                 assert!(!fit[key].is_null(), "fit.{key} present");
             }
+            // No sigma: chi2 is a sum of squares, so there is no p-value, and
+            // the analytic interval uses Student's t with the fit's dof.
+            assert!(fit["p_value"].is_null(), "{}", fit["p_value"]);
+            assert_eq!(fit["sigma_given"], false);
+            assert_eq!(fit["coverage_basis"], "student-t");
+            assert_eq!(fit["converged"], true);
         }
     }
 }
@@ -120,11 +126,16 @@ fn fit_table_and_check_describe_the_study() {
         text.contains("b1") && text.contains("238.9 ") && text.contains("2.7 "),
         "{text}"
     );
-    // Certified RSS 1.2455138894E-01, 14 points - 2 parameters = 12 dof.
+    // Certified RSS 1.2455138894E-01, 14 points - 2 parameters = 12 dof;
+    // no sigma, so a sum of squares, its residual variance and no p-value.
     assert!(
-        text.contains("chi2 = 0.124551") && text.contains("dof = 12"),
+        text.contains("sum of squares = 0.124551") && text.contains("dof = 12"),
         "{text}"
     );
+    // s^2 = 0.12455138894 / 12 = 0.010379.
+    assert!(text.contains("residual variance s^2 = 0.01038"), "{text}");
+    assert!(text.contains("p-value: none (no sigma given"), "{text}");
+    assert!(text.contains("Student's t, 12 dof"), "{text}");
     assert!(text.contains("b2"), "{text}");
     let out = fitaudit().arg("check").arg(&study).output().unwrap();
     assert!(out.status.success());
@@ -155,4 +166,33 @@ fn steepest_descent_is_selectable() {
         "steepest descent chi2 {chi2} vs certified {}",
         p.rss
     );
+}
+
+/// Without sigma at the 95 % level the analytic interval uses Student's t
+/// with the fit's 12 degrees of freedom: k = 2.179 (NIST/SEMATECH
+/// e-Handbook 1.3.6.7.2, upper-tail 0.025, 12 dof), not the normal 1.960;
+/// the expanded uncertainty is k times the standard error, and the NIST
+/// certified standard error of b1 (2.7070075241E+00) gives U = 5.899.
+#[test]
+fn no_sigma_fit_uses_the_student_t_factor() {
+    let tmp = tempfile::tempdir().unwrap();
+    let Some((study, _)) = nist_study(tmp.path(), "Misra1a", "b1*(1-exp(-b2*x))", 1) else {
+        return;
+    };
+    let mut text = std::fs::read_to_string(&study).unwrap();
+    text.push_str("[audit]\nlevel = 0.95\n");
+    std::fs::write(&study, text).unwrap();
+    let out = fitaudit().arg("fit").arg("--json").arg(&study).output().unwrap();
+    assert!(out.status.success());
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let fit = &v["fit"];
+    let k = fit["coverage_factor"].as_f64().unwrap();
+    assert!((k - 2.179).abs() < 5e-4, "k = {k}");
+    assert_eq!(fit["coverage_basis"], "student-t");
+    assert!(fit["p_value"].is_null());
+    let b1 = &fit["parameters"][0];
+    let u = b1["std_error"].as_f64().unwrap();
+    let big_u = b1["expanded_uncertainty"].as_f64().unwrap();
+    assert!((big_u - k * u).abs() <= 1e-12 * big_u);
+    assert!((big_u - 2.179 * 2.707_007_524_1).abs() < 2e-3, "U = {big_u}");
 }

@@ -74,7 +74,10 @@ fn values(r: &FitResult) -> Vec<f64> {
 /// Every number of a fit result is finite (a NaN would reach the report).
 fn assert_all_finite(r: &FitResult, what: &str) {
     assert!(r.chi2.is_finite(), "{what}: chi2 {}", r.chi2);
-    assert!(r.reduced_chi2.is_finite() && r.p_value.is_finite(), "{what}");
+    assert!(
+        r.reduced_chi2.is_finite() && r.p_value.map_or(true, f64::is_finite),
+        "{what}"
+    );
     for p in &r.parameters {
         assert!(p.value.is_finite(), "{what}: {} = {}", p.name, p.value);
         if let Some(s) = p.std_error {
@@ -343,7 +346,7 @@ fn overflowing_exponential_converges_from_a_start_whose_steps_overflow() {
         .all(|(a, b)| rel(*a, b) < 1e-6);
     if !right {
         assert!(
-            !stuck.converged || stuck.rank < 2 || stuck.p_value < 1e-10,
+            !stuck.converged || stuck.rank < 2 || stuck.p_value.is_some_and(|p| p < 1e-10),
             "a wrong answer without any warning sign: {stuck:?}"
         );
         assert!(stuck.chi2 > 1e3 * good.chi2);

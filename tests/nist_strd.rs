@@ -61,13 +61,18 @@ term costs one extra evaluation per step).
 const STEEPEST: &str = "
 ## Steepest descent
 
-`Method::Steepest` (the simple method: a step along the negative gradient of
-chi2 with a backtracking Armijo rule and doubling after success), default
-tolerances, iteration cap 100 000, on two easy problems, next to the
-Levenberg-Marquardt iteration count from the same start. The test asserts
-RSS LRE >= 6 and more iterations than LM. On badly scaled problems such as
-Misra1a (parameters 240 and 5e-4) the unscaled gradient step does not get
-anywhere near the solution in that budget; that is the nature of the method.
+`Method::Steepest` on all 54 runs: descent in coordinates scaled by the
+weighted Jacobian's column norms, a Cauchy-step line search with Armijo
+backtracking and step growth, the stops gradient (first-order optimality
+verified), chi2 no longer changing, iteration cap; the cap is 100 000
+iterations (what `fitaudit fit --method steepest` uses), through
+`fit_from` (restarts included, at most 8). A run is honest when it either
+reaches the certified RSS (LRE >= 6, i.e. 1e-6 relative) or reports
+`converged = false`; the test asserts that for every run, that Misra1a
+start 2 is reached, and that a reported convergence is never a miss.
+Outcome: `reached` (certified RSS, converged), `reached, not verified`
+(certified RSS but the optimality test did not pass within the cap),
+`not converged` (short of the certified RSS and says so).
 ";
 
 fn dataset(p: &NistProblem, m: &NistModel) -> Dataset {
@@ -243,27 +248,39 @@ fn nist_strd_all_problems_both_starts() {
         }
     }
 
-    // Steepest descent on two easy problems, next to LM.
-    let mut sd_rows = Vec::new();
-    for (name, s) in [("DanWood", 1usize), ("Eckerle4", 1usize)] {
-        let m = nist::models().into_iter().find(|m| m.name == name).unwrap();
-        let p = load(&m);
-        let lm = run_fit(&p, &m, &p.starts[s], FitOptions::default(), Impl::Compiled);
-        let opts = FitOptions {
-            method: Method::Steepest,
-            max_iterations: 100_000,
-            ..FitOptions::default()
-        };
-        let sd = run_fit(&p, &m, &p.starts[s], opts, Impl::Compiled);
-        sd_rows.push((
-            name,
-            s + 1,
-            lre(sd.chi2, p.rss),
-            sd.iterations,
-            sd.converged,
-            lm.iterations,
-        ));
-    }
+    // Steepest descent on all 54 runs, two at a time.
+    let sd_jobs: Vec<(NistModel, NistProblem, usize)> = nist::models()
+        .into_iter()
+        .flat_map(|m| {
+            let p = load(&m);
+            (0..2).map(move |s| (m.clone(), p.clone(), s))
+        })
+        .collect();
+    let sd_rows: Vec<SdRow> = {
+        use rayon::prelude::*;
+        sd_jobs
+            .par_iter()
+            .map(|(m, p, s)| {
+                let opts = FitOptions {
+                    method: Method::Steepest,
+                    max_iterations: 100_000,
+                    ..FitOptions::default()
+                };
+                let sd = run_fit(p, m, &p.starts[*s], opts, Impl::Compiled);
+                SdRow {
+                    problem: p.name.clone(),
+                    start: s + 1,
+                    lre_rss: lre(sd.chi2, p.rss),
+                    iterations: sd.iterations,
+                    evaluations: sd.evaluations,
+                    converged: sd.converged,
+                    stop: format!("{:?}", sd.stop_reason),
+                    full_check: p.name != "Lanczos1",
+                    lre_param: score(p, &sd).0,
+                }
+            })
+            .collect()
+    };
 
     let count = |f: &dyn Fn(&Run) -> bool| runs.iter().filter(|r| f(r)).count();
     let pass_compiled = count(&|r| r.passes(&r.compiled));
@@ -342,14 +359,35 @@ fn nist_strd_all_problems_both_starts() {
         .unwrap();
     }
     doc.push_str(STEEPEST);
+    let reached = sd_rows.iter().filter(|r| r.reached()).count();
+    let honest = sd_rows.iter().filter(|r| r.reached() || !r.converged).count();
     writeln!(
         doc,
-        "\n| problem | start | LRE RSS (steepest) | iterations (steepest) | converged | iterations (LM) |"
+        "\nResult: certified RSS reached on **{reached}/{total}** runs; honest (reached, or \
+         `converged = false`) on **{honest}/{total}**.\n"
     )
     .unwrap();
-    writeln!(doc, "|---|---|---|---|---|---|").unwrap();
-    for (name, s, l, it, conv, lm_it) in &sd_rows {
-        writeln!(doc, "| {name} | {s} | {l:.1} | {it} | {conv} | {lm_it} |").unwrap();
+    writeln!(
+        doc,
+        "| problem | start | iterations | evaluations | LRE RSS | min LRE params | converged | stop | outcome |"
+    )
+    .unwrap();
+    writeln!(doc, "|---|---|---|---|---|---|---|---|---|").unwrap();
+    for r in &sd_rows {
+        writeln!(
+            doc,
+            "| {} | {} | {} | {} | {:.1} | {:.1} | {} | {} | {} |",
+            r.problem,
+            r.start,
+            r.iterations,
+            r.evaluations,
+            r.lre_rss,
+            r.lre_param,
+            if r.converged { "yes" } else { "no" },
+            r.stop,
+            r.outcome()
+        )
+        .unwrap();
     }
     println!("{doc}");
     let out = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("docs/VALIDATION.md");
@@ -375,11 +413,58 @@ fn nist_strd_all_problems_both_starts() {
         pass_geo + 1 >= total,
         "geodesic acceleration passes only {pass_geo}/{total}"
     );
-    for (name, s, l, it, _conv, lm_it) in &sd_rows {
+    for r in &runs {
         assert!(
-            *l >= MIN_LRE_RSS,
-            "steepest descent on {name} start {s}: LRE RSS {l:.1}"
+            r.compiled.converged,
+            "LM on {} start {} reaches the certified values but does not report convergence",
+            r.problem, r.start
         );
-        assert!(it > lm_it);
+    }
+    for r in &sd_rows {
+        assert!(
+            r.reached() || !r.converged,
+            "steepest descent on {} start {} claims convergence at LRE RSS {:.1}",
+            r.problem,
+            r.start,
+            r.lre_rss
+        );
+    }
+    let misra = sd_rows
+        .iter()
+        .find(|r| r.problem == "Misra1a" && r.start == 2)
+        .unwrap();
+    assert!(misra.reached(), "Misra1a start 2: LRE RSS {:.1}", misra.lre_rss);
+}
+
+/// One steepest-descent run of the table.
+struct SdRow {
+    problem: String,
+    start: usize,
+    lre_rss: f64,
+    lre_param: f64,
+    iterations: usize,
+    evaluations: usize,
+    converged: bool,
+    stop: String,
+    full_check: bool,
+}
+
+impl SdRow {
+    /// The certified RSS to 1e-6 relative (Lanczos1, whose certified RSS
+    /// is below rounding: the parameters to LRE 6 instead).
+    fn reached(&self) -> bool {
+        if self.full_check {
+            self.lre_rss >= MIN_LRE_RSS
+        } else {
+            self.lre_param >= MIN_LRE_PARAM
+        }
+    }
+    fn outcome(&self) -> &'static str {
+        match (self.reached(), self.converged) {
+            (true, true) => "reached",
+            (true, false) => "reached, not verified",
+            (false, false) => "not converged",
+            (false, true) => "WRONG CLAIM",
+        }
     }
 }

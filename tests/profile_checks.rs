@@ -218,6 +218,7 @@ fn profile_below_the_base_fit_is_noted() {
         stop: fitaudit::fit::StopReason::Gradient,
         iterations: 0,
         evaluations: 0,
+        end: Default::default(),
     };
     let moved = analyse(&problem, &data, &off, &refit).unwrap();
     assert!((moved.chi2 - best.chi2 - 1.0).abs() < 1e-9);

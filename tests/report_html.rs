@@ -88,7 +88,8 @@ fn tables_hold_the_numbers_of_the_results() {
     };
     // Fit table: tau = 340.0 +- 1.3 (two significant digits of the standard error, GUM 7.2.6).
     let tau = row("tau", Some("340.0"));
-    assert_eq!(tau, vec!["tau", "340.0", "1.3", "0.39 %", ""]);
+    // U = k u with the fixture's k = 1.
+    assert_eq!(tau, vec!["tau", "340.0", "1.3", "1.3", "0.39 %", ""]);
     // Goodness of fit.
     assert_eq!(row("Degrees of freedom", None)[1], "33");
     assert_eq!(row("Chi-squared", None)[1], format::chi2(r.fit.chi2));

@@ -11,6 +11,7 @@ fn param(name: &str, value: f64, se: Option<f64>, at_bound: bool, fixed: bool) -
         name: name.into(),
         value,
         std_error: se,
+        expanded_uncertainty: se.map(|u| 2.228 * u),
         at_bound,
         fixed,
     }
@@ -27,7 +28,14 @@ fn fit_table_rounds_values_at_the_uncertainty_and_flags_bounds() {
         chi2: 12.5,
         dof: 10,
         reduced_chi2: 1.25,
-        p_value: 0.253,
+        p_value: Some(0.253),
+        sigma_given: true,
+        level: 0.95,
+        // Student's t, 10 dof, 95 %: 2.228 (NIST/SEMATECH e-Handbook 1.3.6.7.2).
+        coverage_factor: 2.228,
+        coverage_basis: fitaudit::fit::CoverageBasis::StudentT,
+        end: Default::default(),
+        end_issues: vec![],
         parameters: vec![
             param("m_s", 100.021_473, Some(0.000_354), false, false),
             param("k", 0.0, None, true, false),
@@ -55,13 +63,15 @@ fn fit_table_rounds_values_at_the_uncertainty_and_flags_bounds() {
         },
     ];
     let t = text::fit_table(Some("Mass"), &specs, &fit);
+    // U = 2.228 * 0.000354 = 0.000789, rounded at the standard error's precision.
     let want = "Mass\n\n\
-                parameter      value  std error  rel. error  note\n\
-                m_s        100.02147    0.00035   0.00035 %\n\
-                k                  0          \u{2014}           \u{2014}  at lower bound 0\n\
-                c                2.5          \u{2014}           \u{2014}  fixed\n\
+                parameter      value  std error  U (k = 2.228)  rel. error  note\n\
+                m_s        100.02147    0.00035        0.00079   0.00035 %\n\
+                k                  0          \u{2014}              \u{2014}           \u{2014}  at lower bound 0\n\
+                c                2.5          \u{2014}              \u{2014}           \u{2014}  fixed\n\
                 \n\
                 chi2 = 12.5000   dof = 10   reduced chi2 = 1.250   p-value = 0.25\n\
+                coverage factor k = 2.228 (Student's t, 10 dof, 95.00 % level)\n\
                 stopped: iteration limit reached after 1000 iterations; NOT converged\n";
     assert_eq!(t, want);
 }

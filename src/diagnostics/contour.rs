@@ -132,6 +132,26 @@ pub fn delta_chi2_2dof(p: f64) -> f64 {
     }
 }
 
+/// The delta chi-squared of a joint 2-parameter region at probability `p`
+/// for a fit: the 2-dof chi-squared quantile with stated sigma; with a
+/// scaled covariance `2 F(2, dof)` at `p` (the likelihood region with an
+/// estimated variance, Bates & Watts 1988, section 6.1), in units of
+/// `chi2/dof`.
+pub fn level_for(fit: &crate::fit::FitResult, p: f64) -> f64 {
+    use statrs::distribution::FisherSnedecor;
+    if fit.covariance_scaled && fit.dof > 0 {
+        if !(p > 0.0 && p < 1.0) {
+            return f64::NAN;
+        }
+        match FisherSnedecor::new(2.0, fit.dof as f64) {
+            Ok(d) => 2.0 * d.inverse_cdf(p),
+            Err(_) => f64::NAN,
+        }
+    } else {
+        delta_chi2_2dof(p)
+    }
+}
+
 /// Margin (in delta chi-squared) by which the grid extends beyond the
 /// largest level (common practice: room for the outer line to close).
 const RANGE_MARGIN: f64 = 3.0;
@@ -227,7 +247,7 @@ pub fn choose_pairs(ctx: &Fitted) -> Vec<PairChoice> {
 /// Computes the contour maps.
 pub fn run(ctx: &Fitted, progress: &dyn Progress) -> Vec<ContourResult> {
     let probabilities = level_probabilities();
-    let levels: Vec<f64> = probabilities.iter().map(|&p| delta_chi2_2dof(p)).collect();
+    let levels: Vec<f64> = probabilities.iter().map(|&p| level_for(ctx.fit, p)).collect();
     let l_max = levels.iter().copied().fold(0.0, f64::max);
     let scale = chi2_scale(ctx.fit);
     let n = ctx.settings.contours.grid.max(2);

@@ -146,10 +146,26 @@ pub fn threshold_1dof(level: f64) -> f64 {
     }
 }
 
+/// The rise of a profile (in units of the chi-squared scale) at the ends
+/// of its interval for a fit: the 1-dof chi-squared quantile with stated
+/// sigma; with a scaled covariance the square of Student's t quantile with
+/// the fit's dof, so that a linear model's profile interval is exactly
+/// `value +- k u` with the fit's coverage factor `k`.
+pub fn threshold_for(fit: &crate::fit::FitResult, level: f64) -> f64 {
+    if fit.covariance_scaled && fit.dof > 0 {
+        if !(level > 0.0 && level < 1.0) {
+            return f64::NAN;
+        }
+        crate::fit::coverage_factor(level, Some(fit.dof)).powi(2)
+    } else {
+        threshold_1dof(level)
+    }
+}
+
 /// Runs the profile scans, one per free parameter, in parallel.
 pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ProfileResult {
     let level = ctx.settings.level;
-    let q = threshold_1dof(level);
+    let q = threshold_for(ctx.fit, level);
     let scale = chi2_scale(ctx.fit);
     let chi2_min = ctx.fit.chi2;
     let points = ctx.settings.profile.points.max(3);

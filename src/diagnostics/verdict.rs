@@ -73,7 +73,7 @@
 use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
-use statrs::distribution::{ChiSquared, ContinuousCDF, Normal};
+use statrs::distribution::{ChiSquared, ContinuousCDF};
 
 use super::multistart::MultistartResult;
 use super::profile::{EndStatus, ProfileResult};
@@ -261,12 +261,16 @@ pub struct VerdictInputs<'a> {
 }
 
 /// The coverage factor `k` of the analytic interval `value +- k u` at
-/// `level`: the normal quantile at `(1 + level) / 2`.
-pub fn coverage_factor(_fit: &FitResult, level: f64) -> f64 {
-    match Normal::new(0.0, 1.0) {
-        Ok(n) if level > 0.0 && level < 1.0 => n.inverse_cdf(0.5 + level / 2.0),
-        _ => f64::NAN,
+/// `level`: the fit's own ([`FitResult::coverage_factor`]: normal with
+/// stated sigma, Student's t with the fit's dof when the covariance is
+/// scaled) when the fit was made at that level, else the same rule at
+/// `level`.
+pub fn coverage_factor(fit: &FitResult, level: f64) -> f64 {
+    if (fit.level - level).abs() <= 1e-12 {
+        return fit.coverage_factor;
     }
+    let dof = (fit.covariance_scaled && fit.dof > 0).then_some(fit.dof);
+    crate::fit::coverage_factor(level, dof)
 }
 
 /// Two-tailed p-value of `x` under the chi-squared law with `dof` degrees
@@ -718,6 +722,7 @@ mod tests {
             name: name.to_string(),
             value,
             std_error: se,
+            expanded_uncertainty: se,
             at_bound: false,
             fixed: false,
         }
@@ -733,7 +738,13 @@ mod tests {
             chi2: 412.7,
             dof: 20,
             reduced_chi2: 412.7 / 20.0,
-            p_value: 0.0,
+            p_value: Some(0.0),
+            sigma_given: true,
+            level: crate::fit::DEFAULT_LEVEL,
+            coverage_factor: 1.0,
+            coverage_basis: crate::fit::CoverageBasis::Normal,
+            end: Default::default(),
+            end_issues: Vec::new(),
             parameters,
             covariance: vec![vec![0.0; m]; m],
             correlation: vec![vec![0.0; m]; m],

@@ -44,6 +44,7 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
         Ok(c) => c,
         Err(_) => return finish(rf, f64::INFINITY, false, StopReason::NonFinite, 0),
     };
+    rf.note_start_columns();
     let mut iterations = 0usize;
     let mut delta = 0.0f64;
     let mut lambda = 0.0f64;
@@ -220,7 +221,7 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
 /// QR of the scaled active columns of the Jacobian, SVD of `R` and the
 /// coefficients `c = U^T Q^T r`. Returns the number of active columns and
 /// the largest singular value.
-fn factor(rf: &mut Refitter) -> (usize, f64) {
+pub(crate) fn factor(rf: &mut Refitter) -> (usize, f64) {
     let n = rf.n;
     let k = rf.active.len();
     for (c, &j) in rf.active.iter().enumerate() {
@@ -305,6 +306,7 @@ fn finish(rf: &mut Refitter, chi2: f64, converged: bool, stop: StopReason, itera
         stop,
         iterations,
         evaluations: rf.evaluations,
+        end: super::EndCheck::default(),
     }
 }
 

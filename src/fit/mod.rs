@@ -25,7 +25,10 @@ mod steepest;
 
 pub use covariance::{RANK_TOLERANCE, UNDETERMINED_WEIGHT};
 pub use refitter::Refitter;
-pub use result::{analyse, fit, fit_from, FitError, FitResult, ParamResult, MAX_RESTARTS};
+pub use result::{
+    analyse, coverage_factor, fit, fit_from, CoverageBasis, EndIssue, FitError, FitResult, ParamResult,
+    MAX_RESTARTS,
+};
 
 /// Minimisation method.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
@@ -96,7 +99,20 @@ pub struct FitOptions {
     pub geodesic: bool,
     /// Covariance scaling.
     pub covariance: CovarianceScaling,
+    /// Confidence level of the analytic interval `value +- k u` (the
+    /// coverage factor `k` of [`FitResult::coverage_factor`]); the audit's
+    /// `level`.
+    #[serde(default = "default_level")]
+    pub level: f64,
 }
+
+fn default_level() -> f64 {
+    DEFAULT_LEVEL
+}
+
+/// The default confidence level, one standard deviation of a normal
+/// distribution (68.27 %).
+pub const DEFAULT_LEVEL: f64 = 0.6827;
 
 impl Default for FitOptions {
     fn default() -> Self {
@@ -108,6 +124,7 @@ impl Default for FitOptions {
             gtol: 1e-15,
             geodesic: false,
             covariance: CovarianceScaling::Auto,
+            level: DEFAULT_LEVEL,
         }
     }
 }
@@ -137,27 +154,84 @@ pub struct DataView<'a> {
 }
 
 /// Why the optimiser stopped.
+///
+/// `Gradient`, `ChiSquaredChange` and `Step` are the stops of a converged
+/// run: whichever rule fired, the end point then passed the first-order
+/// optimality test of [`EndCheck`]. Every other reason means
+/// `converged = false`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum StopReason {
-    /// The scaled gradient fell below `gtol`.
+    /// The scaled gradient fell below `gtol` (converged).
     Gradient,
-    /// The relative chi-squared change fell below `ftol`.
+    /// The relative chi-squared change fell below `ftol` (converged).
     ChiSquaredChange,
-    /// The relative step fell below `xtol`.
+    /// The relative step fell below `xtol` (converged).
     Step,
     /// The iteration cap was reached (not converged).
     IterationLimit,
     /// The model was not finite and no step could avoid it (not converged).
     NonFinite,
+    /// Steps or chi-squared changes became negligible, but the end point
+    /// fails the optimality test: the search stalled short of a minimum
+    /// (not converged).
+    Stalled,
+    /// The model no longer depends on a parameter at the end point: its
+    /// Jacobian column vanished (not converged).
+    Plateau,
+    /// A parameter ran off by many orders of magnitude and is not
+    /// determined at the end point (not converged).
+    Runaway,
 }
+
+impl StopReason {
+    /// True for the stops of a converged run.
+    pub fn is_convergence(self) -> bool {
+        matches!(
+            self,
+            StopReason::Gradient | StopReason::ChiSquaredChange | StopReason::Step
+        )
+    }
+}
+
+/// What the end-point test found (first-order optimality, vanished
+/// columns, runaway parameters, rank). Computed after every refit from the
+/// weighted Jacobian at the end point.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize, Default)]
+pub struct EndCheck {
+    /// The reduction of chi2 that a full Gauss-Newton step from the end
+    /// point predicts, over the directions the data determine
+    /// (`|P_J r|^2`); 0 at an exact minimum.
+    pub gn_decrease: f64,
+    /// The bound it was compared with: [`OPTIMALITY_TOLERANCE`] squared
+    /// times the chi2 unit (1, or `chi2 / dof` when that is smaller),
+    /// or a multiple of the rounding noise of chi2 when that is larger.
+    pub tolerance: f64,
+    /// `gn_decrease <= tolerance`.
+    pub optimal: bool,
+    /// First parameter (index) whose Jacobian column vanished.
+    pub plateau: Option<usize>,
+    /// First parameter (index) that ran away.
+    pub runaway: Option<usize>,
+    /// Numerical rank of the weighted Jacobian of the active parameters.
+    pub rank: usize,
+    /// Number of active parameters (varying and not held on a bound).
+    pub active: usize,
+}
+
+/// Tolerance of the first-order optimality test: the Gauss-Newton step
+/// from a converged end point moves the parameters by less than this many
+/// standard errors (in the Mahalanobis metric of the covariance), i.e.
+/// promises a chi2 reduction below its square times the chi2 unit.
+pub const OPTIMALITY_TOLERANCE: f64 = 1e-3;
 
 /// Outcome of one refit; the solution itself is [`Refitter::params`].
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Refit {
     /// Chi-squared at the solution.
     pub chi2: f64,
-    /// False for the iteration cap or non-finite model values.
+    /// True only when the end point passed the optimality test
+    /// ([`EndCheck`]) and no parameter is on a plateau or ran away.
     pub converged: bool,
     /// Why it stopped.
     pub stop: StopReason,
@@ -165,4 +239,6 @@ pub struct Refit {
     pub iterations: usize,
     /// Model evaluations (values, with or without Jacobian).
     pub evaluations: usize,
+    /// The end-point test.
+    pub end: EndCheck,
 }

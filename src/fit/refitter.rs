@@ -1,7 +1,7 @@
 //! The reusable refit workspace and the evaluation helpers shared by the
 //! two methods.
 
-use super::{DataView, Method, Problem, Refit, StopReason};
+use super::{DataView, EndCheck, Method, Problem, Refit, StopReason, OPTIMALITY_TOLERANCE};
 use crate::model::{ModelFn, NonFinite};
 
 /// Reusable workspace (Send). Allocation-free refits after construction for
@@ -66,6 +66,16 @@ pub struct Refitter {
     pub(crate) inv_sigma: Vec<f64>,
     /// The model's scratch buffer.
     pub(crate) scratch: Vec<f64>,
+    /// Start of the current refit (after projection into the bounds) and
+    /// the weighted Jacobian's column norms there relative to the norm of
+    /// the weighted residuals (m each).
+    pub(crate) a0: Vec<f64>,
+    pub(crate) colnorm0: Vec<f64>,
+    /// Per parameter after the end-point test: 0 fine, 1 plateau (column
+    /// vanished), 2 runaway (m).
+    pub(crate) end_flags: Vec<u8>,
+    /// Diagonal scaling of steepest descent (m).
+    pub(crate) sd_scale: Vec<f64>,
     /// Evaluations in the current refit.
     pub(crate) evaluations: usize,
 }
@@ -108,6 +118,10 @@ impl Refitter {
             jd: Vec::new(),
             inv_sigma: Vec::new(),
             scratch: Vec::new(),
+            a0: Vec::new(),
+            colnorm0: Vec::new(),
+            end_flags: Vec::new(),
+            sd_scale: Vec::new(),
             evaluations: 0,
         };
         r.resize(n_points, m);
@@ -156,9 +170,13 @@ impl Refitter {
             &mut self.diag,
             &mut self.grad,
             &mut self.colnorm,
+            &mut self.a0,
+            &mut self.colnorm0,
+            &mut self.sd_scale,
         ] {
             b.resize(m, 0.0);
         }
+        self.end_flags.resize(m, 0);
     }
 
     /// Solution of the last refit (all parameters, held ones included).
@@ -197,6 +215,7 @@ impl Refitter {
                 stop: StopReason::NonFinite,
                 iterations: 0,
                 evaluations: 0,
+                end: EndCheck::default(),
             };
         }
         self.resize(n, m);
@@ -216,10 +235,191 @@ impl Refitter {
                 self.a[j] = start[j].max(spec.min).min(spec.max);
             }
         }
-        match problem.options.method {
+        self.a0.copy_from_slice(&self.a);
+        self.colnorm0.iter_mut().for_each(|c| *c = 0.0);
+        self.end_flags.iter_mut().for_each(|f| *f = 0);
+        let mut out = match problem.options.method {
             Method::Lm => super::lm::run(self, problem, data),
             Method::Steepest => super::steepest::run(self, problem, data),
+        };
+        if out.chi2.is_finite() {
+            out.end = self.end_check(data.y);
+            judge(&mut out);
         }
+        out
+    }
+
+    /// Records the column norms of the weighted Jacobian at the start (the
+    /// methods call it after their first evaluation).
+    pub(crate) fn note_start_columns(&mut self) {
+        let n = self.n;
+        let rnorm = super::linalg::norm2(&self.resid);
+        for j in 0..self.m {
+            let cn = super::linalg::norm2(&self.jac[j * n..(j + 1) * n]);
+            self.colnorm0[j] = if rnorm > 0.0 && rnorm.is_finite() {
+                cn / rnorm
+            } else {
+                0.0
+            };
+        }
+    }
+
+    /// Start of the last refit (projected into the bounds).
+    pub(crate) fn start_point(&self) -> &[f64] {
+        &self.a0
+    }
+
+    /// The end-point test at `params` against the start `start` with
+    /// column norms `start_columns` (one evaluation with the Jacobian).
+    pub(crate) fn check_at(
+        &mut self,
+        problem: &Problem,
+        data: &DataView,
+        params: &[f64],
+        start: &[f64],
+        start_columns: &[f64],
+    ) -> Result<EndCheck, NonFinite> {
+        let m = self.m;
+        if params.len() != m || start.len() != m || start_columns.len() != m {
+            return Ok(EndCheck::default());
+        }
+        self.a.copy_from_slice(params);
+        self.eval_current(problem.model, data, true)?;
+        self.a0.copy_from_slice(start);
+        self.colnorm0.copy_from_slice(start_columns);
+        Ok(self.end_check(data.y))
+    }
+
+    /// Column norms of the weighted Jacobian at the start of the last
+    /// refit, relative to the norm of the weighted residuals there (0 when
+    /// that norm is 0).
+    pub(crate) fn start_columns(&self) -> &[f64] {
+        &self.colnorm0
+    }
+
+    /// The end-point test at the current point, whose weighted Jacobian
+    /// must be in `jac` (it is after every method's run): first-order
+    /// optimality, vanished columns and runaway parameters against the
+    /// start in `a0` / `colnorm0`, and the rank. Fills `end_flags`.
+    ///
+    /// Optimality: with the active columns scaled to unit norm,
+    /// `J_s = Q R`, `R = U S V^T`, the Gauss-Newton step predicts the chi2
+    /// reduction `sum c_i^2`, `c = U^T Q^T r`, over the singular values
+    /// above the rank cut. It must not exceed [`OPTIMALITY_TOLERANCE`]^2
+    /// times the chi2 unit (`min(1, chi2 / dof)`: one unit of chi2 moves a
+    /// parameter by one standard error), nor, near a perfect fit, sixteen
+    /// times the rounding noise of chi2.
+    pub(crate) fn end_check(&mut self, y: &[f64]) -> EndCheck {
+        let n = self.n;
+        let m = self.m;
+        self.gradient_and_active();
+        let chi2: f64 = super::linalg::dot(&self.resid, &self.resid);
+        let varying = self.varies.iter().filter(|v| **v).count();
+        let dof = n.saturating_sub(varying);
+        let unit = if dof > 0 {
+            (chi2 / dof as f64).min(1.0)
+        } else {
+            1.0
+        };
+        let noise = self.chi2_noise(y);
+        let tolerance = (OPTIMALITY_TOLERANCE * OPTIMALITY_TOLERANCE * unit).max(16.0 * noise);
+        // Unit-column scaling of the active columns, then QR and SVD.
+        for j in 0..m {
+            self.diag[j] = if self.colnorm[j] > 0.0 {
+                self.colnorm[j]
+            } else {
+                1.0
+            };
+        }
+        let (k, smax) = super::lm::factor(self);
+        let cut = crate::fit::RANK_TOLERANCE * smax;
+        let mut rank = 0;
+        let mut gn_decrease = 0.0;
+        for i in 0..k {
+            if self.s[i] > cut && smax > 0.0 {
+                rank += 1;
+                gn_decrease += self.c[i] * self.c[i];
+            }
+        }
+        if chi2 == 0.0 {
+            gn_decrease = 0.0;
+        }
+        // Size of the data, for the absolute plateau test.
+        let mut ynorm = 0.0;
+        for (v, w) in y.iter().zip(&self.inv_sigma) {
+            ynorm += (v * w) * (v * w);
+        }
+        let ynorm = ynorm.sqrt();
+        let s2 = if dof > 0 {
+            (chi2 / dof as f64).max(1.0)
+        } else {
+            1.0
+        };
+        let rnorm = chi2.sqrt();
+        let mut plateau = None;
+        let mut runaway = None;
+        for j in 0..m {
+            self.end_flags[j] = 0;
+            if !self.varies[j] {
+                continue;
+            }
+            let cn = self.colnorm[j];
+            let scale = self.a[j].abs().max(self.a0[j].abs());
+            let vanished = cn == 0.0
+                || (self.colnorm0[j] > 0.0 && rnorm > 0.0 && cn / rnorm <= VANISHED_RATIO * self.colnorm0[j])
+                || (scale > 0.0 && cn * scale <= NEGLIGIBLE_EFFECT * ynorm);
+            if vanished {
+                self.end_flags[j] = 1;
+                plateau.get_or_insert(j);
+                continue;
+            }
+            let far = if self.a0[j] != 0.0 {
+                self.a[j].abs() > RUNAWAY_FACTOR * self.a0[j].abs()
+            } else {
+                false
+            } || self.a[j].abs() > RUNAWAY_MAGNITUDE;
+            if !far {
+                continue;
+            }
+            // Determined at the end point? Relative standard error from the
+            // SVD (held-on-bound parameters count as determined).
+            let undetermined = match self.active.iter().position(|&a| a == j) {
+                None => false,
+                Some(c) => {
+                    let mut v2 = 0.0;
+                    let mut lost = false;
+                    for i in 0..k {
+                        let vc = self.v[i * k + c];
+                        if self.s[i] > cut && smax > 0.0 {
+                            v2 += (vc / self.s[i]).powi(2);
+                        } else if vc.abs() > 1e-6 {
+                            lost = true;
+                        }
+                    }
+                    let se = (s2 * v2).sqrt() / self.diag[j];
+                    lost || se.is_nan() || se >= self.a[j].abs()
+                }
+            };
+            if undetermined || self.a[j].abs() > RUNAWAY_MAGNITUDE {
+                self.end_flags[j] = 2;
+                runaway.get_or_insert(j);
+            }
+        }
+        EndCheck {
+            gn_decrease,
+            tolerance,
+            optimal: gn_decrease <= tolerance,
+            plateau,
+            runaway,
+            rank,
+            active: k,
+        }
+    }
+
+    /// Per-parameter flags of the last end-point test: 0 fine, 1 the
+    /// column vanished, 2 ran away.
+    pub(crate) fn end_flags(&self) -> &[u8] {
+        &self.end_flags
     }
 
     /// Evaluates the model at `self.a` into `values`, `resid` and (when
@@ -362,6 +562,46 @@ impl Refitter {
                 }
             }
         }
+    }
+}
+
+/// A column counts as vanished when its norm, relative to the norm of the
+/// weighted residuals, fell below this fraction of the same ratio at the
+/// start (relative, so that a start where the model is huge, and with it
+/// every column and residual, does not count).
+pub(crate) const VANISHED_RATIO: f64 = 1e-8;
+
+/// ... or when changing the parameter by its own magnitude moves the
+/// weighted model by less than this fraction of the weighted data's norm.
+pub(crate) const NEGLIGIBLE_EFFECT: f64 = 1e-30;
+
+/// A parameter ran away when its magnitude grew by more than this factor
+/// over the start and it is not determined at the end point ...
+pub(crate) const RUNAWAY_FACTOR: f64 = 1e10;
+
+/// ... or when its magnitude exceeds this, whatever the start.
+pub(crate) const RUNAWAY_MAGNITUDE: f64 = 1e100;
+
+/// Turns the method's stop into the honest outcome: a convergence stop
+/// stands only when the end point passed the optimality test and no
+/// parameter is on a plateau or ran away.
+pub(crate) fn judge(out: &mut Refit) {
+    let claimed = out.converged || out.stop.is_convergence();
+    if !claimed {
+        out.converged = false;
+        return;
+    }
+    if out.end.plateau.is_some() {
+        out.converged = false;
+        out.stop = StopReason::Plateau;
+    } else if out.end.runaway.is_some() {
+        out.converged = false;
+        out.stop = StopReason::Runaway;
+    } else if !out.end.optimal {
+        out.converged = false;
+        out.stop = StopReason::Stalled;
+    } else {
+        out.converged = true;
     }
 }
 

@@ -3,16 +3,91 @@
 
 use super::covariance::{analyse_jacobian, significant};
 use super::refitter::{eval_into, Refitter};
-use super::{CovarianceScaling, DataView, Problem, Refit, StopReason};
+use super::{CovarianceScaling, DataView, EndCheck, Problem, Refit, StopReason};
 use crate::data::Dataset;
 use serde::{Deserialize, Serialize};
-use statrs::distribution::{ChiSquared, ContinuousCDF};
+use statrs::distribution::{ChiSquared, ContinuousCDF, Normal, StudentsT};
+
+/// Which distribution the coverage factor of the analytic interval
+/// `value +- k u` comes from (JCGM 100:2008, section 6 and annex G).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum CoverageBasis {
+    /// Stated sigma, absolute covariance: the normal quantile.
+    Normal,
+    /// Covariance scaled by `s^2 = chi2 / dof`: Student's t with the fit's
+    /// degrees of freedom.
+    StudentT,
+}
+
+/// Coverage factor `k` of the two-sided interval `value +- k u` at
+/// `level`: the normal quantile `z_{(1+level)/2}`, or Student's t quantile
+/// with `dof` degrees of freedom when `dof` is given (estimated sigma).
+pub fn coverage_factor(level: f64, dof: Option<usize>) -> f64 {
+    if !(level > 0.0 && level < 1.0) {
+        return f64::NAN;
+    }
+    let p = 0.5 * (1.0 + level);
+    match dof {
+        Some(d) if d > 0 => StudentsT::new(0.0, 1.0, d as f64)
+            .map(|t| t.inverse_cdf(p))
+            .unwrap_or(f64::NAN),
+        _ => Normal::new(0.0, 1.0)
+            .map(|z| z.inverse_cdf(p))
+            .unwrap_or(f64::NAN),
+    }
+}
+
+/// Something at the end point that the user must know: why a fit did not
+/// converge, or why its minimum is not an ordinary one.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "kebab-case")]
+pub enum EndIssue {
+    /// Steps or chi2 changes became negligible short of a minimum: the
+    /// Gauss-Newton step still promises a reduction of chi2 above the
+    /// optimality tolerance.
+    Stalled {
+        /// Predicted reduction of chi2.
+        gn_decrease: f64,
+        /// The tolerance it exceeds.
+        tolerance: f64,
+    },
+    /// The model no longer depends on the parameter at the end point
+    /// (its Jacobian column vanished).
+    Plateau {
+        /// The parameter.
+        parameter: String,
+        /// Its value at the end point.
+        value: f64,
+    },
+    /// The parameter ran off by many orders of magnitude and the data do
+    /// not determine it there.
+    Runaway {
+        /// The parameter.
+        parameter: String,
+        /// Its start value.
+        start: f64,
+        /// Its value at the end point.
+        value: f64,
+    },
+    /// The weighted Jacobian of the estimated parameters is rank-deficient
+    /// at the end point: the minimum is not unique (see `undetermined`).
+    RankDeficient {
+        /// Numerical rank.
+        rank: usize,
+        /// Estimated parameters (columns).
+        estimated: usize,
+    },
+}
 
 /// Result of a full fit: the solution, its uncertainties and the
 /// diagnostics of the linearised problem at the solution.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct FitResult {
-    /// False for the iteration cap or non-finite model values.
+    /// True only when the end point passed the first-order optimality test
+    /// (the Gauss-Newton step promises no chi2 reduction above
+    /// [`super::OPTIMALITY_TOLERANCE`]^2 chi2 units) and no parameter is on
+    /// a plateau or ran away.
     pub converged: bool,
     /// Why the optimiser stopped.
     pub stop_reason: StopReason,
@@ -24,10 +99,26 @@ pub struct FitResult {
     pub chi2: f64,
     /// Degrees of freedom: points minus parameters not fixed.
     pub dof: usize,
-    /// `chi2 / dof` (0 when `dof` is 0).
+    /// `chi2 / dof` (0 when `dof` is 0); without sigma this is the
+    /// residual variance `s^2` in the squared units of y.
     pub reduced_chi2: f64,
-    /// `P(chi2_dof > chi2)` (1 when `dof` is 0).
-    pub p_value: f64,
+    /// `P(chi2_dof > chi2)` (1 when `dof` is 0); `None` without sigma,
+    /// where chi2 is a plain sum of squares and has no chi-squared
+    /// distribution in known units.
+    pub p_value: Option<f64>,
+    /// Whether the data state sigma.
+    pub sigma_given: bool,
+    /// Confidence level of the analytic interval.
+    pub level: f64,
+    /// Coverage factor `k` of `value +- k u` at `level`.
+    pub coverage_factor: f64,
+    /// Where `k` comes from: normal with stated sigma, Student's t with
+    /// `dof` degrees of freedom when the covariance is scaled.
+    pub coverage_basis: CoverageBasis,
+    /// The end-point test of the optimiser's last run.
+    pub end: EndCheck,
+    /// What is unusual at the end point (empty for an ordinary minimum).
+    pub end_issues: Vec<EndIssue>,
     /// One entry per parameter, in the problem's order.
     pub parameters: Vec<ParamResult>,
     /// `m x m` over all parameters; rows and columns of fixed, at-bound or
@@ -66,6 +157,9 @@ pub struct ParamResult {
     pub value: f64,
     /// Standard error; `None` when fixed, on a bound or undetermined.
     pub std_error: Option<f64>,
+    /// `k * std_error` with `k` the fit's coverage factor (JCGM 100:2008,
+    /// section 6).
+    pub expanded_uncertainty: Option<f64>,
     /// The value lies on its lower or upper bound.
     pub at_bound: bool,
     /// The parameter was fixed.
@@ -195,6 +289,10 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     let free = vec![true; m];
     let mut rf = Refitter::new(problem, data.len());
     let mut total = rf.refit(problem, &view, start, &free);
+    // The start of the whole fit, for the plateau and runaway tests at
+    // the very end (restarts see only their own starts).
+    let start_point = rf.start_point().to_vec();
+    let start_columns = rf.start_columns().to_vec();
     let mut current = rf.params().to_vec();
     let mut holds_current = true;
     for _ in 0..MAX_RESTARTS {
@@ -214,12 +312,8 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
         }
         let improved = again.chi2 < before - rf.chi2_noise(&data.y);
         if !improved {
-            // No progress from a fresh start: the endpoint is the answer; it
-            // counts as converged unless the last run hit the cap without
-            // any decrease to show for it.
-            if again.converged {
-                total.converged = true;
-            }
+            // No progress from a fresh start: the endpoint is the answer
+            // (the end-point test below decides whether it converged).
             break;
         }
     }
@@ -242,7 +336,94 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
             total.chi2 = chi2;
         }
     }
-    analyse(problem, data, &current, &total)
+    // The end-point test of the whole fit, at the answer, against the
+    // original start: converged means a verified minimum, whichever stop
+    // rule fired last.
+    if total.chi2.is_finite() {
+        if let Ok(end) = rf.check_at(problem, &view, &current, &start_point, &start_columns) {
+            total.end = end;
+            let verified = end.optimal && end.plateau.is_none() && end.runaway.is_none();
+            if verified && total.stop != StopReason::NonFinite {
+                total.converged = true;
+                if !total.stop.is_convergence() {
+                    total.stop = StopReason::Gradient;
+                }
+            } else {
+                total.converged = false;
+                if total.stop.is_convergence() || total.stop == StopReason::Stalled {
+                    total.stop = if end.plateau.is_some() {
+                        StopReason::Plateau
+                    } else if end.runaway.is_some() {
+                        StopReason::Runaway
+                    } else {
+                        StopReason::Stalled
+                    };
+                }
+            }
+        }
+    }
+    let flags = rf.end_flags().to_vec();
+    let mut result = analyse(problem, data, &current, &total)?;
+    result.end_issues = end_issues(problem, &total.end, Some(&flags), &start_point, &current, &result);
+    Ok(result)
+}
+
+/// The end issues of a fit from its end-point test; `flags` (per
+/// parameter: 1 plateau, 2 runaway) lists every parameter, otherwise the
+/// test's first of each kind is named.
+fn end_issues(
+    problem: &Problem,
+    end: &EndCheck,
+    flags: Option<&[u8]>,
+    start: &[f64],
+    params: &[f64],
+    fit: &FitResult,
+) -> Vec<EndIssue> {
+    let mut out = Vec::new();
+    let m = problem.params.len();
+    let flag_of = |j: usize| -> u8 {
+        match flags {
+            Some(f) if f.len() == m => f[j],
+            _ => {
+                if end.plateau == Some(j) {
+                    1
+                } else if end.runaway == Some(j) {
+                    2
+                } else {
+                    0
+                }
+            }
+        }
+    };
+    let has_test = end.active > 0 || end.gn_decrease > 0.0 || end.tolerance > 0.0;
+    if has_test && !end.optimal {
+        out.push(EndIssue::Stalled {
+            gn_decrease: end.gn_decrease,
+            tolerance: end.tolerance,
+        });
+    }
+    for (j, (spec, &value)) in problem.params.iter().zip(params).enumerate() {
+        match flag_of(j) {
+            1 => out.push(EndIssue::Plateau {
+                parameter: spec.name.clone(),
+                value,
+            }),
+            2 => out.push(EndIssue::Runaway {
+                parameter: spec.name.clone(),
+                start: start.get(j).copied().unwrap_or(f64::NAN),
+                value,
+            }),
+            _ => {}
+        }
+    }
+    let estimated = fit.parameters.iter().filter(|p| !p.fixed && !p.at_bound).count();
+    if fit.rank < estimated {
+        out.push(EndIssue::RankDeficient {
+            rank: fit.rank,
+            estimated,
+        });
+    }
+    out
 }
 
 fn check(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<(), FitError> {
@@ -383,17 +564,29 @@ pub fn analyse(
     let n_free = problem.params.iter().filter(|p| !p.fixed).count();
     let dof = n.saturating_sub(n_free);
     let reduced_chi2 = if dof > 0 { chi2 / dof as f64 } else { 0.0 };
-    let p_value = if dof > 0 {
-        ChiSquared::new(dof as f64).map(|d| d.sf(chi2)).unwrap_or(1.0)
+    let sigma_given = data.has_sigma();
+    let p_value = if !sigma_given {
+        None
+    } else if dof > 0 {
+        Some(ChiSquared::new(dof as f64).map(|d| d.sf(chi2)).unwrap_or(1.0))
     } else {
-        1.0
+        Some(1.0)
     };
     let scaled = match problem.options.covariance {
-        CovarianceScaling::Auto => !data.has_sigma(),
+        CovarianceScaling::Auto => !sigma_given,
         CovarianceScaling::Scaled => true,
         CovarianceScaling::Absolute => false,
     };
     let factor = if scaled { reduced_chi2 } else { 1.0 };
+    // With a scaled covariance and no degrees of freedom there is no
+    // estimate of sigma, hence no uncertainty.
+    let no_scale = scaled && dof == 0;
+    let level = problem.options.level;
+    let (coverage_factor_k, coverage_basis) = if scaled && dof > 0 {
+        (coverage_factor(level, Some(dof)), CoverageBasis::StudentT)
+    } else {
+        (coverage_factor(level, None), CoverageBasis::Normal)
+    };
 
     let mut covariance = vec![vec![0.0; m]; m];
     let mut correlation = vec![vec![0.0; m]; m];
@@ -420,7 +613,7 @@ pub fn analyse(
     for (j, spec) in problem.params.iter().enumerate() {
         let est = estimated.iter().position(|&e| e == j);
         let std_error = match est {
-            Some(a) if !an.undetermined[a] => {
+            Some(a) if !an.undetermined[a] && !no_scale => {
                 let v = covariance[j][j];
                 if v.is_finite() && v >= 0.0 {
                     Some(v.sqrt())
@@ -434,6 +627,7 @@ pub fn analyse(
             name: spec.name.clone(),
             value: params[j],
             std_error,
+            expanded_uncertainty: std_error.map(|u| coverage_factor_k * u),
             at_bound: at_bound[j],
             fixed: spec.fixed,
         });
@@ -447,7 +641,7 @@ pub fn analyse(
                 .collect()
         })
         .collect();
-    Ok(FitResult {
+    let mut result = FitResult {
         converged: refit.converged,
         stop_reason: refit.stop,
         iterations: refit.iterations,
@@ -456,6 +650,12 @@ pub fn analyse(
         dof,
         reduced_chi2,
         p_value,
+        sigma_given,
+        level,
+        coverage_factor: coverage_factor_k,
+        coverage_basis,
+        end: refit.end,
+        end_issues: Vec::new(),
         parameters,
         covariance,
         correlation,
@@ -466,5 +666,46 @@ pub fn analyse(
         fitted: values,
         residuals: resid.iter().map(|r| -r).collect(),
         leverage: an.leverage,
-    })
+    };
+    let start: Vec<f64> = problem.params.iter().map(|p| p.start).collect();
+    result.end_issues = end_issues(problem, &refit.end, None, &start, params, &result);
+    Ok(result)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::coverage_factor;
+
+    #[test]
+    fn coverage_factors_of_the_normal_table() {
+        // GUM (JCGM 100:2008) table G.1: p = 95 % -> k = 1.960, p = 99 % ->
+        // k = 2.576, p = 68.27 % -> k = 1.
+        assert!((coverage_factor(0.95, None) - 1.959_964).abs() < 1e-5);
+        assert!((coverage_factor(0.99, None) - 2.575_829).abs() < 1e-5);
+        assert!((coverage_factor(0.6827, None) - 1.0).abs() < 1e-3);
+        assert!(coverage_factor(1.0, None).is_nan());
+        assert!(coverage_factor(0.0, Some(5)).is_nan());
+    }
+
+    #[test]
+    fn student_t_quantiles_of_the_e_handbook_table() {
+        // NIST/SEMATECH e-Handbook of Statistical Methods, 1.3.6.7.2
+        // "Critical values of the Student's t distribution" (upper-tail
+        // probabilities 0.10, 0.05, 0.025, 0.01, 0.005 = two-sided levels
+        // 0.80, 0.90, 0.95, 0.98, 0.99), three decimals as printed there.
+        let table: [(usize, [f64; 5]); 5] = [
+            (1, [3.078, 6.314, 12.706, 31.821, 63.657]),
+            (5, [1.476, 2.015, 2.571, 3.365, 4.032]),
+            (10, [1.372, 1.812, 2.228, 2.764, 3.169]),
+            (30, [1.310, 1.697, 2.042, 2.457, 2.750]),
+            (100, [1.290, 1.660, 1.984, 2.364, 2.626]),
+        ];
+        let levels = [0.80, 0.90, 0.95, 0.98, 0.99];
+        for (dof, row) in table {
+            for (level, want) in levels.iter().zip(row) {
+                let k = coverage_factor(*level, Some(dof));
+                assert!((k - want).abs() <= 5.1e-4, "t({dof}) at {level}: {k} vs {want}");
+            }
+        }
+    }
 }

@@ -65,15 +65,10 @@ pub fn source_words(s: Source) -> &'static str {
     }
 }
 
-fn stop_words(code: &str) -> &str {
-    match code {
-        "gradient" => "gradient below tolerance",
-        "chi-squared-change" => "chi-squared change below tolerance",
-        "step" => "step below tolerance",
-        "iteration-limit" => "iteration limit reached",
-        "non-finite" => "model not finite",
-        other => other,
-    }
+fn stop_words(code: &str) -> String {
+    serde_json::from_value::<crate::fit::StopReason>(serde_json::Value::String(code.to_string()))
+        .map(|r| crate::report::tables::stop_words(r).to_string())
+        .unwrap_or_else(|_| code.to_string())
 }
 
 /// One finding as one sentence.

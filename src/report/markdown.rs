@@ -91,15 +91,22 @@ pub fn summary(results: &AuditResults) -> String {
     o.push_str("\n## Fit\n\n");
     o.push_str(&table(&tables::fit_params(&results.fit)));
     let f = &results.fit;
+    let (disp_label, disp) = tables::dispersion(f);
     let _ = writeln!(
         o,
-        "\nChi-squared {} with {} degrees of freedom (reduced {}, p-value {}); covariance {}.",
+        "\n{} {} with {} degrees of freedom; {} {}; p-value {}; covariance {}; coverage factor k = {}.",
+        tables::chi2_label(f),
         format::chi2(f.chi2),
         f.dof,
-        format::sig(f.reduced_chi2, 4),
-        format::p_value(f.p_value),
-        if f.covariance_scaled { "scaled" } else { "absolute" }
+        disp_label.to_lowercase(),
+        disp,
+        escape(&tables::p_value_text(f)),
+        if f.covariance_scaled { "scaled" } else { "absolute" },
+        escape(&tables::coverage_words(f))
     );
+    for line in tables::end_issue_words(f) {
+        let _ = writeln!(o, "\nAt the end point: {}.", escape(&line));
+    }
     let _ = writeln!(
         o,
         "\n## Interval comparison ({} level)\n",

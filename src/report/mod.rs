@@ -154,29 +154,3 @@ procedure and the applicable standards. The diagnostics in this report show how 
 uncertainties agree with resampling, simulation and the shape of the chi-squared surface for this \
 data set and this model; they do not establish that the model is right, that the data are free of \
 systematic error, or that the method is fit for its intended use.";
-
-/// Coverage factor of a two-sided normal interval at `level`: the
-/// standard-normal quantile at (1 + level) / 2 (1.96 at 95 %). The analytic
-/// interval at the study's level is value +- k u.
-pub fn coverage_factor(level: f64) -> f64 {
-    use statrs::distribution::{ContinuousCDF, Normal};
-    match Normal::new(0.0, 1.0) {
-        Ok(n) if level > 0.0 && level < 1.0 => n.inverse_cdf(0.5 + level / 2.0),
-        _ => f64::NAN,
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn coverage_factors_of_the_normal_table() {
-        // GUM (JCGM 100:2008) table G.1: p = 95 % -> k = 1.960, p = 99 % ->
-        // k = 2.576, p = 68.27 % -> k = 1.
-        assert!((coverage_factor(0.95) - 1.959_964).abs() < 1e-5);
-        assert!((coverage_factor(0.99) - 2.575_829).abs() < 1e-5);
-        assert!((coverage_factor(0.6827) - 1.0).abs() < 1e-3);
-        assert!(coverage_factor(1.0).is_nan());
-    }
-}

@@ -8,7 +8,7 @@ use crate::audit::AuditResults;
 use crate::diagnostics::profile::EndStatus;
 use crate::diagnostics::resample::{BcaWithheld, ResampleResult, ResampledParameter};
 use crate::diagnostics::verdict::Status;
-use crate::fit::{FitResult, ParamResult, StopReason};
+use crate::fit::{CoverageBasis, EndIssue, FitResult, ParamResult, StopReason};
 use crate::report::{findings, format};
 use crate::settings::{BootstrapScheme, WildWeights};
 
@@ -42,7 +42,97 @@ pub fn stop_words(r: StopReason) -> &'static str {
         StopReason::Step => "step below tolerance",
         StopReason::IterationLimit => "iteration limit reached",
         StopReason::NonFinite => "model not finite",
+        StopReason::Stalled => "stalled short of a minimum (steps negligible, gradient not zero)",
+        StopReason::Plateau => "on a plateau (the model no longer depends on a parameter)",
+        StopReason::Runaway => "a parameter ran away",
     }
+}
+
+/// The p-value of chi2, or why there is none.
+pub fn p_value_text(fit: &FitResult) -> String {
+    match fit.p_value {
+        Some(p) => format::p_value(p),
+        None => s(
+            "none (no sigma given: chi2 is a sum of squares in the units of y, not chi-squared distributed)",
+        ),
+    }
+}
+
+/// Label of chi2: a chi-squared with stated sigma, a sum of squares without.
+pub fn chi2_label(fit: &FitResult) -> &'static str {
+    if fit.sigma_given {
+        "Chi-squared"
+    } else {
+        "Sum of squared residuals (no sigma given)"
+    }
+}
+
+/// Label and value of `chi2 / dof`: the reduced chi-squared with stated
+/// sigma, the residual variance `s^2` without.
+pub fn dispersion(fit: &FitResult) -> (&'static str, String) {
+    if fit.sigma_given {
+        (
+            "Reduced chi-squared (chi-squared / dof)",
+            format::sig(fit.reduced_chi2, 4),
+        )
+    } else {
+        (
+            "Residual variance s^2 (sum of squares / dof)",
+            format::sig(fit.reduced_chi2, 4),
+        )
+    }
+}
+
+/// The coverage factor in words: `2.571 (Student's t, 5 dof, 95 % level)`.
+pub fn coverage_words(fit: &FitResult) -> String {
+    let basis = match fit.coverage_basis {
+        CoverageBasis::Normal => s("normal"),
+        CoverageBasis::StudentT => format!("Student's t, {} dof", fit.dof),
+    };
+    format!(
+        "{} ({basis}, {} level)",
+        format::sig(fit.coverage_factor, 4),
+        format::percent(fit.level, 4)
+    )
+}
+
+/// Header of the expanded-uncertainty column: `U (k = 2.571)`.
+pub fn expanded_header(fit: &FitResult) -> String {
+    format!("U (k = {})", format::sig(fit.coverage_factor, 4))
+}
+
+/// One sentence per end issue of the fit.
+pub fn end_issue_words(fit: &FitResult) -> Vec<String> {
+    fit.end_issues
+        .iter()
+        .map(|e| match e {
+            EndIssue::Stalled {
+                gn_decrease,
+                tolerance,
+            } => format!(
+                "not at a minimum: a Gauss-Newton step would still lower chi2 by {} (tolerance {})",
+                format::sig(*gn_decrease, 3),
+                format::sig(*tolerance, 3)
+            ),
+            EndIssue::Plateau { parameter, value } => format!(
+                "plateau: the model no longer depends on {parameter} (= {}) at the end point",
+                format::sig(*value, 6)
+            ),
+            EndIssue::Runaway {
+                parameter,
+                start,
+                value,
+            } => format!(
+                "runaway: {parameter} went from {} to {} and the data do not determine it there",
+                format::sig(*start, 6),
+                format::sig(*value, 6)
+            ),
+            EndIssue::RankDeficient { rank, estimated } => format!(
+                "the weighted Jacobian has rank {rank} of {estimated} at the end point: the minimum \
+                 is not unique"
+            ),
+        })
+        .collect()
 }
 
 /// The verdict table: parameter, the interval to quote, status, reasons
@@ -95,13 +185,15 @@ pub fn relative_error(p: &ParamResult) -> String {
     }
 }
 
-/// The fit table: parameter, value, standard error, relative error, note.
+/// The fit table: parameter, value, standard error, expanded
+/// uncertainty, relative error, note.
 pub fn fit_params(fit: &FitResult) -> Table {
     Table {
         header: vec![
             s("Parameter"),
             s("Value"),
             s("Standard error"),
+            expanded_header(fit),
             s("Relative error"),
             s("Note"),
         ],
@@ -110,25 +202,35 @@ pub fn fit_params(fit: &FitResult) -> Table {
             .iter()
             .map(|p| {
                 let (v, u) = format::value_and_uncertainty(p.value, p.std_error);
-                vec![p.name.clone(), v, u, relative_error(p), param_note(p)]
+                vec![
+                    p.name.clone(),
+                    v,
+                    u,
+                    expanded(p),
+                    relative_error(p),
+                    param_note(p),
+                ]
             })
             .collect(),
+    }
+}
+
+/// The expanded uncertainty at the precision of the standard error.
+pub fn expanded(p: &ParamResult) -> String {
+    match p.expanded_uncertainty {
+        Some(u) => format::at_precision_of(u, p.std_error),
+        None => s(format::ABSENT),
     }
 }
 
 /// Goodness of fit as (quantity, value) pairs.
 pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
     let mut out = vec![
-        (s("Chi-squared"), format::chi2(fit.chi2)),
+        (s(chi2_label(fit)), format::chi2(fit.chi2)),
         (s("Degrees of freedom"), fit.dof.to_string()),
-        (
-            s("Reduced chi-squared (chi-squared / dof)"),
-            format::sig(fit.reduced_chi2, 4),
-        ),
-        (
-            s("p-value, P(chi-squared_dof > observed)"),
-            format::p_value(fit.p_value),
-        ),
+        (s(dispersion(fit).0), dispersion(fit).1),
+        (s("p-value, P(chi-squared_dof > observed)"), p_value_text(fit)),
+        (s("Coverage factor k of value +- k u"), coverage_words(fit)),
         (
             s("Condition number of the weighted Jacobian"),
             if fit.condition_number == f64::MAX {
@@ -159,6 +261,9 @@ pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
             format!("{} / {}", fit.iterations, fit.evaluations),
         ),
     ];
+    for line in end_issue_words(fit) {
+        out.push((s("At the end point"), line));
+    }
     for (k, dir) in fit.undetermined.iter().enumerate() {
         let terms: Vec<String> = dir
             .iter()

@@ -8,7 +8,7 @@ use std::fmt::Write as _;
 use crate::audit::AuditResults;
 use crate::fit::{FitResult, ParamSpec};
 use crate::model::FunctionInfo;
-use crate::report::tables::{relative_error, status_word, stop_words};
+use crate::report::tables::{self, relative_error, status_word, stop_words};
 use crate::report::{better_minimum, findings, format, profile_below_base};
 
 /// Lays out rows in columns separated by two spaces; columns listed in
@@ -79,23 +79,47 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
         "parameter".to_string(),
         "value".into(),
         "std error".into(),
+        tables::expanded_header(fit),
         "rel. error".into(),
         "note".into(),
     ]];
     for (j, p) in fit.parameters.iter().enumerate() {
         let spec = params.iter().find(|s| s.name == p.name).or(params.get(j));
         let (v, u) = format::value_and_uncertainty(p.value, p.std_error);
-        rows.push(vec![p.name.clone(), v, u, relative_error(p), bound_note(spec, p)]);
+        rows.push(vec![
+            p.name.clone(),
+            v,
+            u,
+            tables::expanded(p),
+            relative_error(p),
+            bound_note(spec, p),
+        ]);
     }
-    out.push_str(&columns(&rows, &[1, 2, 3]));
-    let _ = writeln!(
-        out,
-        "\nchi2 = {}   dof = {}   reduced chi2 = {}   p-value = {}",
-        format::chi2(fit.chi2),
-        fit.dof,
-        format::sig(fit.reduced_chi2, 4),
-        format::p_value(fit.p_value)
-    );
+    out.push_str(&columns(&rows, &[1, 2, 3, 4]));
+    if fit.sigma_given {
+        let _ = writeln!(
+            out,
+            "\nchi2 = {}   dof = {}   reduced chi2 = {}   p-value = {}",
+            format::chi2(fit.chi2),
+            fit.dof,
+            format::sig(fit.reduced_chi2, 4),
+            tables::p_value_text(fit)
+        );
+    } else {
+        let _ = writeln!(
+            out,
+            "\nsum of squares = {}   dof = {}   residual variance s^2 = {}   (s = {})",
+            format::chi2(fit.chi2),
+            fit.dof,
+            format::sig(fit.reduced_chi2, 4),
+            format::sig(fit.reduced_chi2.sqrt(), 4),
+        );
+        let _ = writeln!(
+            out,
+            "p-value: none (no sigma given: the sum of squares is in the units of y, not chi-squared distributed)"
+        );
+    }
+    let _ = writeln!(out, "coverage factor k = {}", tables::coverage_words(fit));
     let _ = writeln!(
         out,
         "stopped: {} after {} iterations; {}",
@@ -107,6 +131,9 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
             "NOT converged"
         }
     );
+    for line in tables::end_issue_words(fit) {
+        let _ = writeln!(out, "at the end point: {line}");
+    }
     out
 }
 

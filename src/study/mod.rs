@@ -758,8 +758,11 @@ fn finish(
         parameters: params,
         constants: spec.constants,
         dataset,
+        fit_options: FitOptions {
+            level: spec.audit.level,
+            ..options
+        },
         audit: spec.audit,
-        fit_options: options,
         model: tape,
         study_sha256: None,
         data_sha256,

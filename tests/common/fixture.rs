@@ -383,12 +383,19 @@ pub fn cooling() -> AuditResults {
         chi2,
         dof,
         reduced_chi2: chi2 / dof as f64,
-        p_value,
+        p_value: Some(p_value),
+        sigma_given: true,
+        level: 0.6827,
+        coverage_factor: 1.0,
+        coverage_basis: fitaudit::fit::CoverageBasis::Normal,
+        end: Default::default(),
+        end_issues: vec![],
         parameters: (0..3)
             .map(|j| ParamResult {
                 name: NAMES[j].into(),
                 value: VALUES[j],
                 std_error: Some(se[j]),
+                expanded_uncertainty: Some(se[j]),
                 at_bound: false,
                 fixed: false,
             })

@@ -142,6 +142,7 @@ pub fn data_dir() -> PathBuf {
 pub type PointFn = fn(&[f64], &[f64], &mut [f64]) -> f64;
 
 /// One model of the suite.
+#[derive(Clone)]
 pub struct NistModel {
     /// Data set name.
     pub name: &'static str,

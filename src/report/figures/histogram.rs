@@ -6,7 +6,7 @@ use plotters::style::text_anchor::{HPos, Pos, VPos};
 use super::svg::{self, Dash, Stroke};
 use super::{column, estimate_column, Figure};
 use crate::audit::AuditResults;
-use crate::report::{coverage_factor, format, ReportError};
+use crate::report::{format, ReportError};
 
 /// Number of histogram bins for `n` values: the Rice rule 2 n^(1/3)
 /// (common practice), kept between 8 and 50.
@@ -69,7 +69,7 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         return Ok(None);
     }
     let level = results.settings.level;
-    let k = coverage_factor(level);
+    let k = results.fit.coverage_factor;
     let se = p.std_error.filter(|s| s.is_finite() && *s > 0.0);
 
     let mut markers = Vec::new();
