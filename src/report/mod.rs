@@ -28,6 +28,7 @@ pub mod json;
 pub mod markdown;
 pub mod tables;
 pub mod text;
+pub mod validation;
 
 pub use figures::{Figure, Figures};
 
