@@ -27,6 +27,9 @@ use crate::rng::{self, Stream};
 use crate::settings::Diagnostic;
 use crate::study::{ParamEntry, Study, StudySpec};
 
+/// One parameter of a case: name, true value, start, min, max.
+pub type CaseParameter = (&'static str, f64, f64, Option<f64>, Option<f64>);
+
 /// One invented measurement: model, truth, design, stated sigma, starts.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Case {
@@ -37,7 +40,7 @@ pub struct Case {
     /// The formula (independent variable `x`).
     pub formula: &'static str,
     /// Parameters: name, true value, start, min, max.
-    pub parameters: Vec<(&'static str, f64, f64, Option<f64>, Option<f64>)>,
+    pub parameters: Vec<CaseParameter>,
     /// The design points.
     pub x: Vec<f64>,
     /// Stated (and true) sigma of each point.
