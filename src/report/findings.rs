@@ -43,14 +43,15 @@ pub fn pct(share: f64) -> String {
     }
 }
 
-/// A p-value in words: "< 1e-16" below double precision, else 2 digits.
-fn pval(p: f64) -> String {
+/// A p-value as a phrase: "p < 1e-16" below double precision, else
+/// "p = " with 3 decimals or 2 significant digits below 0.001.
+fn p_phrase(p: f64) -> String {
     if p < 1e-16 {
-        "< 1e-16".to_string()
+        "p < 1e-16".to_string()
     } else if p < 1e-3 {
-        format!("{p:.1e}")
+        format!("p = {p:.1e}")
     } else {
-        format!("{p:.3}")
+        format!("p = {p:.3}")
     }
 }
 
@@ -176,10 +177,10 @@ pub fn sentence(f: &Finding) -> String {
         Rule::SpreadRatio => {
             let r = n("ratio");
             let figures = format!(
-                "robust SD {}, ratio {} to u, p = {} against a correct u",
+                "robust SD {}, ratio {} to u, {} against a correct u",
                 num(n("robust_std")),
                 fixed2(r),
-                pval(n("p_value"))
+                p_phrase(n("p_value"))
             );
             let tol = n("tolerance");
             let dev = (r - 1.0).abs();
@@ -234,10 +235,10 @@ pub fn sentence(f: &Finding) -> String {
         Rule::GoodnessOfFit => {
             let b = n("birge_ratio");
             let head = format!(
-                "chi2 = {} for {} degrees of freedom (two-tailed p = {}, Birge ratio sqrt(chi2/dof) = {})",
+                "chi2 = {} for {} degrees of freedom (two-tailed {}, Birge ratio sqrt(chi2/dof) = {})",
                 num(n("chi2")),
                 num(n("dof")),
-                pval(n("p_value")),
+                p_phrase(n("p_value")),
                 fixed2(b)
             );
             if f.status == Status::Holds {
