@@ -113,8 +113,16 @@ pub struct AuditResults {
     pub diagnostics_run: Vec<Diagnostic>,
     /// The data.
     pub data: Dataset,
-    /// The base fit.
+    /// The audited fit: the fit from the study's start, or, when the audit
+    /// was re-based, the fit at the best minimum the search found.
     pub fit: FitResult,
+    /// The fit from the study's start when the audit was re-based (a
+    /// different, worse minimum); absent otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub start_fit: Option<FitResult>,
+    /// Whether the audit was re-based at the best minimum of the search.
+    #[serde(default)]
+    pub rebased: bool,
     /// The fitted curve, for one independent variable.
     pub curve: Option<Curve>,
     /// Bootstrap.
@@ -162,6 +170,13 @@ impl AuditInput<'_> {
 }
 
 /// Runs the base fit and the chosen diagnostics in the current rayon pool.
+///
+/// The multi-start search, when chosen, runs first. When it finds a
+/// clearly better minimum than the fit from the study's start and
+/// `settings.multistart.rebase` is on, the problem is refitted from that
+/// minimum and every other diagnostic and the verdicts run at it: `fit` is
+/// then that fit, `start_fit` the fit from the study's start and `rebased`
+/// true.
 pub fn run(
     input: &AuditInput,
     options: &AuditOptions,
@@ -172,22 +187,49 @@ pub fn run(
         study: input.info.name.clone(),
         source,
     })?;
+    let wants = |d: Diagnostic| options.only.contains(&d);
+
+    let mut multistart = wants(Diagnostic::Multistart).then(|| {
+        let ctx = Fitted {
+            problem: input.problem(),
+            data: input.data,
+            fit: &base,
+            settings: &input.settings,
+        };
+        diagnostics::multistart::run(&ctx, progress)
+    });
+    let rebased_fit = match &multistart {
+        Some(ms) if input.settings.multistart.rebase && !ms.base_is_best => rebase(&problem, input.data, ms),
+        _ => None,
+    };
+    let (audited, start_fit, problem) = match rebased_fit {
+        Some(best) => {
+            if let Some(ms) = multistart.as_mut() {
+                ms.audited_is_best = true;
+            }
+            let mut problem = input.problem();
+            for (spec, p) in problem.params.iter_mut().zip(&best.parameters) {
+                spec.start = p.value;
+            }
+            (best, Some(base), problem)
+        }
+        None => (base, None, problem),
+    };
+    let rebased = start_fit.is_some();
     let ctx = Fitted {
         problem,
         data: input.data,
-        fit: &base,
+        fit: &audited,
         settings: &input.settings,
     };
-    let wants = |d: Diagnostic| options.only.contains(&d);
 
     let bootstrap = wants(Diagnostic::Bootstrap).then(|| diagnostics::bootstrap::run(&ctx, progress));
     let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| diagnostics::monte_carlo::run(&ctx, progress));
     let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
     let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
-    let multistart = wants(Diagnostic::Multistart).then(|| diagnostics::multistart::run(&ctx, progress));
 
     let verdicts = verdict::decide(&VerdictInputs {
-        fit: &base,
+        fit: &audited,
         bootstrap: bootstrap.as_ref(),
         monte_carlo: monte_carlo.as_ref(),
         profile: profile.as_ref(),
@@ -197,7 +239,7 @@ pub fn run(
         level: input.settings.level,
     });
 
-    let curve = model_curve(input.model, input.data, &base);
+    let curve = model_curve(input.model, input.data, &audited);
     Ok(AuditResults {
         schema_version: SCHEMA_VERSION,
         provenance: Provenance {
@@ -211,7 +253,9 @@ pub fn run(
         settings: input.settings.clone(),
         diagnostics_run: options.only.clone(),
         data: input.data.clone(),
-        fit: base,
+        fit: audited,
+        start_fit,
+        rebased,
         curve,
         bootstrap,
         monte_carlo,
@@ -220,6 +264,16 @@ pub fn run(
         multistart,
         verdicts,
     })
+}
+
+/// The full fit from the best minimum of the search, when it is a valid
+/// fit and keeps the lower chi-squared (it must not climb back above the
+/// study start's minimum).
+fn rebase(problem: &Problem, data: &Dataset, ms: &MultistartResult) -> Option<FitResult> {
+    let best = ms.minima.first()?;
+    let start: Vec<f64> = best.parameters.iter().map(|p| p.value).collect();
+    let f = fit::fit_from(problem, data, &start).ok()?;
+    (f.chi2.is_finite() && f.chi2 < ms.base_chi2).then_some(f)
 }
 
 /// The model on 400 points spanning the data, when there is one independent variable.

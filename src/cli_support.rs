@@ -185,8 +185,9 @@ pub fn demo_summary(summary: &crate::demo::DemoSummary) -> String {
     use std::fmt::Write as _;
     let mut s = format!("demo reports written under {}\n", summary.out.display());
     for sc in &summary.scenarios {
-        let best = match sc.base_is_best {
-            Some(false) => "; base fit is NOT the best minimum",
+        let best = match (sc.rebased, sc.base_is_best) {
+            (true, _) => "; the start reaches a local minimum: audited at the best minimum found",
+            (false, Some(false)) => "; base fit is NOT the best minimum",
             _ => "",
         };
         let _ = writeln!(

@@ -48,7 +48,7 @@ pub const SCENARIOS: [Scenario; 3] = [
     },
     Scenario {
         name: "vibration",
-        purpose: "a poor frequency guess: the base fit sits in a local minimum",
+        purpose: "a poor frequency guess: the start reaches a local minimum, the audit is re-based",
         study: include_str!("../demo-data/vibration.toml"),
         data_file: "vibration.csv",
         data: include_str!("../demo-data/vibration.csv"),
@@ -119,8 +119,11 @@ pub struct ScenarioOutcome {
     pub doubtful: usize,
     /// ... `fails`.
     pub fails: usize,
-    /// Whether the base fit was the best minimum found (None if not searched).
+    /// Whether the fit from the study's start was the best minimum found
+    /// (None if not searched).
     pub base_is_best: Option<bool>,
+    /// Whether the audit was re-based at the best minimum found.
+    pub rebased: bool,
 }
 
 /// What the demo did.
@@ -215,6 +218,7 @@ pub fn run_all(
                 doubtful: count(Status::Doubtful),
                 fails: count(Status::Fails),
                 base_is_best: results.multistart.as_ref().map(|m| m.base_is_best),
+                rebased: results.rebased,
             });
         }
         Ok(())

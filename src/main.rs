@@ -18,7 +18,8 @@ use fitaudit::study;
 /// `fit` fits it; `audit` runs the diagnostics battery (bootstrap, Monte
 /// Carlo, chi-squared profiles, contour maps, multi-start search), decides a
 /// verdict per parameter and writes a report. Exit status: 0 success, 1
-/// internal error, 2 bad input or usage, 3 with --strict when a verdict fails.
+/// internal error, 2 bad input or usage, 3 with --strict when a verdict fails
+/// or the audit was re-based at a better minimum than the study's start reaches.
 #[derive(Parser, Debug)]
 #[command(name = "fitaudit", version, about, long_about)]
 struct Cli {
@@ -79,7 +80,8 @@ struct AuditArgs {
     /// Replicates of both bootstrap and Monte Carlo (overrides the study).
     #[arg(long, value_parser = parse_positive)]
     replicates: Option<usize>,
-    /// Number of multi-start starts (overrides the study).
+    /// Starts of the first multi-start batch (overrides the study; batches
+    /// are added up to audit.multistart.max_starts).
     #[arg(long, value_parser = parse_positive)]
     starts: Option<usize>,
     /// Seed of every random stream (overrides the study).
@@ -91,9 +93,15 @@ struct AuditArgs {
     /// No progress output on stderr.
     #[arg(long)]
     quiet: bool,
-    /// Exit with status 3 when any verdict is `fails`.
+    /// Exit with status 3 when any verdict is `fails`, or when the study's
+    /// start reaches only a local minimum (the audit was re-based).
     #[arg(long)]
     strict: bool,
+    /// Audit the fit from the study's start even when the multi-start
+    /// search finds a clearly better minimum (by default the whole battery
+    /// is then re-based at the best minimum).
+    #[arg(long)]
+    keep_start: bool,
     /// Also write replicates.csv with every bootstrap and Monte Carlo estimate.
     #[arg(long)]
     replicates_csv: bool,
@@ -202,6 +210,9 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
     if let Some(s) = args.seed {
         study.audit.seed = s;
     }
+    if args.keep_start {
+        study.audit.multistart.rebase = false;
+    }
     study
         .audit
         .validate()
@@ -233,7 +244,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
             .verdicts
             .iter()
             .any(|v| v.status == fitaudit::diagnostics::verdict::Status::Fails);
-        Ok(if args.strict && fails {
+        Ok(if args.strict && (fails || results.rebased) {
             ExitCode::from(3)
         } else {
             ExitCode::SUCCESS

@@ -154,11 +154,26 @@ impl Default for ContourSettings {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
 pub struct MultistartSettings {
-    /// Number of starts.
+    /// Starts of the first batch (and of every later batch).
     pub starts: usize,
     /// Sample positive parameters whose box spans more than a decade
     /// log-uniformly.
     pub log_uniform: bool,
+    /// Cap on the starts of all batches together (never below `starts`);
+    /// batches are added while the estimated probability of a missed
+    /// minimum exceeds `missed_target` and another whole batch fits under
+    /// the cap.
+    pub max_starts: usize,
+    /// Estimated probability of a missed minimum (Boender & Rinnooy Kan)
+    /// at which the search stops adding batches (0 < target < 1).
+    pub missed_target: f64,
+    /// Polish every start of a later batch for a few iterations first and
+    /// count it for a minimum already found when it has reached it, without
+    /// finishing its refit.
+    pub merge_early: bool,
+    /// Audit at the best minimum when the search finds a clearly better one
+    /// than the study's start reaches (the search then runs first).
+    pub rebase: bool,
 }
 
 impl Default for MultistartSettings {
@@ -166,6 +181,10 @@ impl Default for MultistartSettings {
         MultistartSettings {
             starts: 128,
             log_uniform: true,
+            max_starts: 1024,
+            missed_target: 0.05,
+            merge_early: false,
+            rebase: true,
         }
     }
 }
@@ -243,6 +262,12 @@ impl AuditSettings {
         }
         if self.multistart.starts < 2 {
             return bad("audit.multistart.starts", "must be at least 2");
+        }
+        if !(self.multistart.missed_target > 0.0 && self.multistart.missed_target < 1.0) {
+            return bad(
+                "audit.multistart.missed_target",
+                "must lie strictly between 0 and 1",
+            );
         }
         if !(self.tolerance >= 0.0 && self.tolerance.is_finite()) {
             return bad("audit.tolerance", "must be a non-negative number");

@@ -72,7 +72,13 @@ fn audit_writes_consistent_files_independent_of_threads() {
     // The replicate counts of the command line reached the diagnostics.
     assert_eq!(j1["bootstrap"]["replicates"], 200);
     assert_eq!(j1["monte_carlo"]["replicates"], 200);
-    assert_eq!(j1["multistart"]["starts"], 24);
+    assert_eq!(j1["settings"]["multistart"]["starts"], 24);
+    let starts = j1["multistart"]["starts"].as_u64().unwrap();
+    let batches = j1["multistart"]["batches"].as_u64().unwrap();
+    assert_eq!(starts, 24 * batches, "whole batches of 24");
+    // The cooling curve has one minimum: no re-basing, no start_fit.
+    assert_eq!(j1["rebased"], false);
+    assert!(j1.get("start_fit").is_none());
 
     // Every verdict in results.json appears in the summary, the report and
     // on stdout, and every parameter has a figure.
@@ -117,8 +123,12 @@ fn audit_writes_consistent_files_independent_of_threads() {
     );
 }
 
+/// The vibration demo's start reaches a local minimum: the audit is
+/// re-based at the best minimum, `--strict` exits 3, and the report and the
+/// terminal lead with the notice and the start values; with `--keep-start`
+/// the audited fit is the start's, whose verdicts fail.
 #[test]
-fn strict_exits_3_when_a_verdict_fails_and_only_limits_the_battery() {
+fn strict_exits_3_when_rebased_or_a_verdict_fails_and_only_limits_the_battery() {
     let tmp = tempfile::tempdir().unwrap();
     let study = scenario(tmp.path(), "vibration");
     let out = tmp.path().join("vib");
@@ -127,12 +137,52 @@ fn strict_exits_3_when_a_verdict_fails_and_only_limits_the_battery() {
     let j: Value = serde_json::from_slice(&std::fs::read(out.join("results.json")).unwrap()).unwrap();
     assert!(j["bootstrap"].is_null() && j["monte_carlo"].is_null() && j["contours"].is_null());
     assert_eq!(j["multistart"]["base_is_best"], false);
+    assert_eq!(j["multistart"]["audited_is_best"], true);
+    assert_eq!(j["rebased"], true);
+    let start_chi2 = j["start_fit"]["chi2"].as_f64().unwrap();
+    let chi2 = j["fit"]["chi2"].as_f64().unwrap();
+    assert_eq!(j["multistart"]["base_chi2"].as_f64().unwrap(), start_chi2);
+    assert!(chi2 < start_chi2 / 10.0, "audited {chi2} start {start_chi2}");
+    // The audited fit is at the generating frequency, 3.3 Hz.
+    let f = j["fit"]["parameters"][1]["value"].as_f64().unwrap();
+    assert!((f - 3.3).abs() < 0.05, "f {f}");
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     let lead = html
-        .find("not the best minimum")
-        .expect("the report leads with the better minimum");
+        .find("re-based at the best minimum")
+        .expect("the report leads with the re-basing notice");
     let verdicts = html.find("Verdict summary").unwrap();
     assert!(lead < verdicts);
+    assert!(html.contains("f = { start = "), "start values in the notice");
+    let stdout = String::from_utf8_lossy(&r.stdout);
+    assert!(
+        stdout
+            .lines()
+            .next()
+            .unwrap()
+            .starts_with("NOTICE: The study's start reaches a local minimum"),
+        "{stdout}"
+    );
+
+    // Re-basing off: the start's fit is audited and the better minimum fails it.
+    let out2 = tmp.path().join("vib-keep");
+    let r = audit(
+        &study,
+        &out2,
+        &["--strict", "--keep-start", "--only", "multistart"],
+    );
+    assert_eq!(r.status.code(), Some(3));
+    let j: Value = serde_json::from_slice(&std::fs::read(out2.join("results.json")).unwrap()).unwrap();
+    assert_eq!(j["rebased"], false);
+    assert!(j.get("start_fit").is_none());
+    assert_eq!(j["multistart"]["audited_is_best"], false);
+    assert_eq!(j["fit"]["chi2"], j["multistart"]["base_chi2"]);
+    assert!(j["verdicts"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|v| v["status"] == "fails"));
+    let html = std::fs::read_to_string(out2.join("report.html")).unwrap();
+    assert!(html.contains("not the best minimum"));
 }
 
 #[test]
@@ -154,5 +204,8 @@ fn demo_writes_three_reports_and_names_them() {
         assert!(stdout.contains(name), "{stdout}");
     }
     assert!(stdout.contains("3 holds, 0 doubtful, 0 fails"), "{stdout}");
-    assert!(stdout.contains("NOT the best minimum"), "{stdout}");
+    assert!(
+        stdout.contains("vibration") && stdout.contains("audited at the best minimum found"),
+        "{stdout}"
+    );
 }

@@ -242,7 +242,11 @@ fn log_model_in_a_product_reaches_the_closed_form_or_multistart_flags_the_slope(
         },
         ..AuditSettings::default()
     };
-    let problem = problem(&model, &["a", "b"], &[1.0, 0.01]);
+    // The search box comes from the study, not from the slid fit: b is
+    // sign-definite (ln(b x) needs b > 0), which a study says with min = 0,
+    // and is then sampled over two decades on each side of its start.
+    let mut problem = problem(&model, &["a", "b"], &[1.0, 0.01]);
+    problem.params[1].min = 0.0;
     let ctx = Fitted {
         problem,
         data: &data,

@@ -4,7 +4,7 @@
 //! distinguishability threshold and the missed-minimum estimate.
 
 use fitaudit::diagnostics::multistart::{
-    boender_rinnooy_kan, design, sampling_box, summarise, threshold, Reference, StartRun,
+    boender_rinnooy_kan, design, sampling_box, summarise, threshold, Reference, ScaleHint, StartRun,
 };
 use fitaudit::diagnostics::sampling::{latin_hypercube, stratum, Interval, Scale};
 use fitaudit::fit::ParamSpec;
@@ -75,56 +75,138 @@ fn close(a: f64, b: f64) -> bool {
 #[test]
 fn sampling_boxes_follow_the_documented_rules() {
     let inf = f64::INFINITY;
+    let hint = ScaleHint {
+        position: None,
+        magnitude: 4.0,
+    };
     // Fixed: a single value.
     let mut fixed = spec(2.0, -inf, inf);
     fixed.fixed = true;
-    assert_eq!(sampling_box(&fixed, 2.0, None, true), Interval::point(2.0));
+    assert_eq!(sampling_box(&fixed, 2.0, &hint, true), Interval::point(2.0));
     // Two finite bounds: the bounds, linear within a decade...
-    let b = sampling_box(&spec(2.0, 1.0, 5.0), 2.2, Some(0.1), true);
+    let b = sampling_box(&spec(2.0, 1.0, 5.0), 2.2, &hint, true);
     assert_eq!((b.low, b.high, b.scale), (1.0, 5.0, Scale::Linear));
     // ... logarithmic over more than a decade, unless switched off.
-    let b = sampling_box(&spec(2.0, 0.1, 100.0), 2.2, Some(0.1), true);
+    let b = sampling_box(&spec(2.0, 0.1, 100.0), 2.2, &hint, true);
     assert_eq!((b.low, b.high, b.scale), (0.1, 100.0, Scale::Log));
-    let b = sampling_box(&spec(2.0, 0.1, 100.0), 2.2, Some(0.1), false);
+    let b = sampling_box(&spec(2.0, 0.1, 100.0), 2.2, &hint, false);
     assert_eq!(b.scale, Scale::Linear);
-    // Unbounded: hull of start and value +- max(3 max(|start|, |value|), 3 SE, 1).
-    let b = sampling_box(&spec(2.0, -inf, inf), 2.5, Some(0.1), true);
-    assert!(close(b.low, 2.0 - 7.5) && close(b.high, 2.5 + 7.5) && b.scale == Scale::Linear);
-    let b = sampling_box(&spec(0.0, -inf, inf), 0.01, Some(2.0), true);
-    assert!(close(b.low, -6.0) && close(b.high, 6.01));
-    let b = sampling_box(&spec(0.0, -inf, inf), 0.0, None, true);
-    assert_eq!((b.low, b.high), (-1.0, 1.0));
-    // One bound: the default box cut at it.
-    let b = sampling_box(&spec(2.0, 0.0, inf), 2.0, Some(0.1), false);
-    assert_eq!((b.low, b.high, b.scale), (0.0, 8.0, Scale::Linear));
-    let b = sampling_box(&spec(-2.0, -inf, 0.0), -2.0, Some(0.1), true);
-    assert_eq!((b.low, b.high, b.scale), (-8.0, 0.0, Scale::Linear));
-    let b = sampling_box(&spec(100.0, 1.0, inf), 100.0, Some(1.0), true);
-    assert_eq!((b.low, b.high, b.scale), (1.0, 400.0, Scale::Log));
-    // A positive box from 0, sampled in the logarithm: its top three decades...
-    let b = sampling_box(&spec(2.0, 0.0, inf), 2.0, Some(0.1), true);
-    assert!(close(b.low, 8e-3) && b.high == 8.0 && b.scale == Scale::Log);
-    // ... reaching down to a smaller positive value.
-    let b = sampling_box(&spec(1e-5, 0.0, inf), 1e-5, Some(1e-6), true);
-    assert!(close(b.low, 1e-5) && close(b.high, 1.0 + 1e-5) && b.scale == Scale::Log);
+    // Unbounded: start +- 3 |start|; the fit's value widens a box only
+    // when it lies within the box's half-width of the start (so never this
+    // symmetric one) ...
+    let b = sampling_box(&spec(2.0, -inf, inf), 2.5, &hint, true);
+    assert!(close(b.low, -4.0) && close(b.high, 8.0) && b.scale == Scale::Linear);
+    let b = sampling_box(&spec(2.0, -inf, inf), -5.0, &hint, true);
+    assert!(close(b.low, -4.0) && close(b.high, 8.0));
+    // ... and never to a value far away (a fit that ran off), whatever
+    // its standard error.
+    let b = sampling_box(&spec(2.0, -inf, inf), 3.5e297, &hint, true);
+    assert!(close(b.low, -4.0) && close(b.high, 8.0));
+    // A zero start takes the data's magnitude (largest |y|, here 4).
+    let b = sampling_box(&spec(0.0, -inf, inf), 0.0, &hint, true);
+    assert_eq!((b.low, b.high), (-12.0, 12.0));
+    // A bound that does not fix the sign: the same box cut at it.
+    let b = sampling_box(&spec(2.0, -1.0, inf), 2.0, &hint, true);
+    assert_eq!((b.low, b.high, b.scale), (-1.0, 8.0, Scale::Linear));
+    // Sign-definite (a bound at or beyond zero): two decades on each side
+    // of the start, cut at the bound, in the logarithm when positive.
+    let b = sampling_box(&spec(2.0, 0.0, inf), 2.0, &hint, true);
+    assert!(close(b.low, 0.02) && close(b.high, 200.0) && b.scale == Scale::Log);
+    let b = sampling_box(&spec(2.0, 0.0, inf), 2.0, &hint, false);
+    assert!(close(b.low, 0.02) && close(b.high, 200.0) && b.scale == Scale::Linear);
+    let b = sampling_box(&spec(100.0, 5.0, inf), 100.0, &hint, true);
+    assert!(close(b.low, 5.0) && close(b.high, 1e4) && b.scale == Scale::Log);
+    let b = sampling_box(&spec(-2.0, -inf, 0.0), -2.0, &hint, true);
+    assert!(close(b.low, -200.0) && close(b.high, -0.02) && b.scale == Scale::Linear);
+    // A zero start on a zero bound: decades around the data's magnitude.
+    let b = sampling_box(&spec(0.0, 0.0, inf), 0.0, &hint, true);
+    assert!(close(b.low, 0.04) && close(b.high, 400.0) && b.scale == Scale::Log);
+    // A position on an x axis (data 400 to 460): the data range widened by
+    // 10 % on each side, wherever the start and the fit are inside it.
+    let pos = ScaleHint {
+        position: Some([400.0, 460.0]),
+        magnitude: 1.0,
+    };
+    let b = sampling_box(&spec(445.0, -inf, inf), 445.3, &pos, true);
+    assert!(close(b.low, 394.0) && close(b.high, 466.0) && b.scale == Scale::Linear);
+    // A start outside the data joins the box, and so does a fit's value
+    // within the half-width of the start; a far-off value does not.
+    let b = sampling_box(&spec(500.0, -inf, inf), -918.0, &pos, true);
+    assert!(close(b.low, 394.0) && close(b.high, 500.0));
+    let b = sampling_box(&spec(445.0, -inf, inf), 475.0, &pos, true);
+    assert!(close(b.low, 394.0) && close(b.high, 475.0));
+    // A bound still cuts it.
+    let b = sampling_box(&spec(445.0, 420.0, inf), 445.0, &pos, true);
+    assert!(close(b.low, 420.0) && close(b.high, 466.0));
 }
 
 #[test]
 fn boender_rinnooy_kan_values() {
     // Boender & Rinnooy Kan (1987), Math. Programming 37:59-80 (from memory):
-    // expected minima w (N - 1)/(N - w - 2); share covered
-    // (N - w - 1)(N + w)/(N (N - 1)); missed = 1 - share.
-    let (m, e) = boender_rinnooy_kan(64, 1);
-    assert!((m - (1.0 - 62.0 * 65.0 / (64.0 * 63.0))).abs() < 1e-15);
-    assert!((m - 2.0 / 4032.0).abs() < 1e-15);
-    assert!((e - 63.0 / 61.0).abs() < 1e-12);
-    let (m, e) = boender_rinnooy_kan(10, 3);
-    assert!((m - (1.0 - 6.0 * 13.0 / 90.0)).abs() < 1e-15);
-    assert!((e - 5.4).abs() < 1e-12);
+    // expected minima w (N - 1)/(N - w - 2); unseen share w (w + 1)/(N (N - 1));
+    // P(all found) = prod_{i=1..w} (N - 1 - i)/(N - 1 + i).
+    let e = boender_rinnooy_kan(64, 1);
+    assert!((e.missed - 2.0 / 64.0).abs() < 1e-15);
+    assert!((e.unseen_share - 2.0 / 4032.0).abs() < 1e-15);
+    assert!((e.expected - 63.0 / 61.0).abs() < 1e-12);
+    let e = boender_rinnooy_kan(10, 3);
+    assert!((e.missed - (1.0 - (8.0 * 7.0 * 6.0) / (10.0 * 11.0 * 12.0))).abs() < 1e-15);
+    assert!((e.unseen_share - 12.0 / 90.0).abs() < 1e-15);
+    assert!((e.expected - 5.4).abs() < 1e-12);
     // Too few starts for the rule (N <= w + 2): certainly incomplete,
     // expected minima capped at N, everything finite.
-    assert_eq!(boender_rinnooy_kan(5, 3), (1.0, 5.0));
-    assert_eq!(boender_rinnooy_kan(0, 0), (1.0, 0.0));
+    let e = boender_rinnooy_kan(5, 3);
+    assert_eq!((e.missed, e.unseen_share, e.expected), (1.0, 1.0, 5.0));
+    let e = boender_rinnooy_kan(0, 0);
+    assert_eq!((e.missed, e.expected), (1.0, 0.0));
+}
+
+/// The closed forms against the posterior itself: P(K | N, w) proportional
+/// to K!/(K - w)! (K - 1)!/(N + K - 1)! for K >= w (the model of Boender &
+/// Rinnooy Kan: flat prior on K, uniform basin shares), summed in logs until
+/// the terms vanish. A mathematical identity, independent of the paper.
+#[test]
+fn boender_rinnooy_kan_closed_forms_are_the_posterior() {
+    for (n, w) in [(128usize, 1usize), (128, 2), (20, 3), (50, 5), (10, 2), (300, 7)] {
+        let terms: Vec<f64> = (w..w + 200_000)
+            .map(|k| {
+                // ln K!/(K-w)! + ln (K-1)! - ln (N+K-1)! by sums of logs of
+                // the ranges, so the loop stays linear.
+                let a: f64 = ((k - w + 1)..=k).map(|i| (i as f64).ln()).sum();
+                let b: f64 = (k..(n + k)).map(|i| (i as f64).ln()).sum();
+                a - b
+            })
+            .take_while({
+                let mut first = None;
+                move |t: &f64| {
+                    let f = *first.get_or_insert(*t);
+                    *t > f - 60.0
+                }
+            })
+            .collect();
+        let top = terms[0];
+        let ps: Vec<f64> = terms.iter().map(|t| (t - top).exp()).collect();
+        let total: f64 = ps.iter().sum();
+        let p_all = ps[0] / total;
+        let mean: f64 = ps
+            .iter()
+            .enumerate()
+            .map(|(i, p)| (w + i) as f64 * p)
+            .sum::<f64>()
+            / total;
+        let e = boender_rinnooy_kan(n, w);
+        assert!(
+            (e.missed - (1.0 - p_all)).abs() < 1e-9,
+            "n {n} w {w}: {} vs {}",
+            e.missed,
+            1.0 - p_all
+        );
+        assert!(
+            (e.expected - mean).abs() < 1e-6 * mean,
+            "n {n} w {w}: {} vs {mean}",
+            e.expected
+        );
+    }
 }
 
 #[test]
@@ -148,6 +230,7 @@ fn reference(names: &[&str], se: &[Option<f64>], base_chi2: f64) -> Reference {
         dof: 10,
         scaled: false,
         level: 0.6827,
+        missed_target: 0.05,
     }
 }
 
@@ -158,6 +241,10 @@ fn run(end: &[f64], chi2: f64, converged: bool) -> StartRun {
         chi2,
         converged,
         minimum: None,
+        degenerate: None,
+        rank_deficiency: 0,
+        batch: 0,
+        merged_early: false,
     }
 }
 

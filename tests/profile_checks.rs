@@ -49,7 +49,10 @@ fn run_profile(
     let problem = Problem {
         model,
         params,
-        options: FitOptions::default(),
+        options: FitOptions {
+            level: st.level,
+            ..FitOptions::default()
+        },
     };
     let base = fit(&problem, data).expect("base fit");
     assert!(base.converged);
@@ -161,8 +164,14 @@ fn linear_model_without_sigma_uses_the_scaled_threshold() {
     let (base, r) = run_profile(&model, params, &data, &settings(0.95, 11));
     assert!(base.covariance_scaled);
     assert!(rel(r.chi2_scale, base.chi2 / base.dof as f64) < 1e-12);
+    // 8 points, 2 parameters: Student's t with 6 dof at 95 %, 2.447
+    // (NIST/SEMATECH e-Handbook 1.3.6.7.2), squared, is the threshold, so
+    // the profile interval is exactly value +- k u with the fit's k.
+    assert!((r.threshold.sqrt() - 2.447).abs() < 5e-4, "{}", r.threshold);
+    assert!((base.coverage_factor - 2.447).abs() < 5e-4);
     for (j, p) in r.parameters.iter().enumerate() {
-        let half = base.parameters[j].std_error.unwrap() * r.threshold.sqrt();
+        let half = base.parameters[j].expanded_uncertainty.unwrap();
+        assert!(rel(half, base.parameters[j].std_error.unwrap() * r.threshold.sqrt()) < 1e-12);
         let est = base.parameters[j].value;
         assert!(
             rel(est - p.lower, half) < 1e-6 && rel(p.upper - est, half) < 1e-6,

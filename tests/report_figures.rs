@@ -225,3 +225,27 @@ fn non_finite_values_are_skipped_not_drawn() {
         .iter()
         .any(|t| t == "n/a"));
 }
+
+#[test]
+fn residuals_without_sigma_are_standardised_by_s_and_say_so() {
+    let mut r = fixture::cooling();
+    r.data.sigma = None;
+    let s = r.fit.reduced_chi2.sqrt();
+    let s_text = fitaudit::report::format::sig(s, 4);
+    let f = build(&r);
+    for file in ["fit.svg", "residuals_x.svg", "residuals_qq.svg"] {
+        let fig = f.get(file).unwrap();
+        assert!(
+            fig.caption.contains(&format!("s = {s_text}")) && fig.caption.contains("no \u{3c3} given"),
+            "{file}: {}",
+            fig.caption
+        );
+        let texts = svg_texts(&fig.svg).join(" ");
+        assert!(texts.contains("standardised residual"), "{file}: {texts}");
+        assert!(!texts.contains("normalised residual"), "{file}");
+    }
+    // With sigma the axis says normalised, as before.
+    let f = build(&fixture::cooling());
+    let texts = svg_texts(&f.get("fit.svg").unwrap().svg).join(" ");
+    assert!(texts.contains("normalised residual"));
+}

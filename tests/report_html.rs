@@ -122,7 +122,10 @@ fn tables_hold_the_numbers_of_the_results() {
     // Failures: one bootstrap replicate failed, its reason counted.
     let f = row("Bootstrap", None);
     assert_eq!(f[2], "1");
-    assert_eq!(f[3], "not-converged: 1; BCa jackknife: 0 of 36 refits failed");
+    assert_eq!(
+        f[3],
+        "not-converged: 1; BCa acceleration from 36 linearised leave-one-out values, 0 failed"
+    );
     // Provenance.
     assert_eq!(row("Seed", None)[1], "1");
     assert_eq!(row("Worker threads", None)[1], "2");

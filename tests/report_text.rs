@@ -63,7 +63,7 @@ fn fit_table_rounds_values_at_the_uncertainty_and_flags_bounds() {
         },
     ];
     let t = text::fit_table(Some("Mass"), &specs, &fit);
-    // U = 2.228 * 0.000354 = 0.000789, rounded at the standard error's precision.
+    // U = 2.228 * 0.000354 = 0.000789, to two significant digits (GUM 7.2.6).
     let want = "Mass\n\n\
                 parameter      value  std error  U (k = 2.228)  rel. error  note\n\
                 m_s        100.02147    0.00035        0.00079   0.00035 %\n\

@@ -37,7 +37,7 @@ pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ResampleResult {
 }
 
 /// Runs the bootstrap with the given settings; `bca = false` skips the
-/// jackknife refits (no BCa interval).
+/// linearised jackknife (no BCa interval).
 pub fn run_with(
     ctx: &Fitted,
     settings: &BootstrapSettings,
@@ -45,14 +45,9 @@ pub fn run_with(
     progress: &dyn Progress,
 ) -> ResampleResult {
     let b = settings.replicates;
-    let n = ctx.data.len();
-    let total = b + if bca { n } else { 0 };
-    progress.start(
-        &format!("bootstrap ({})", scheme_name(settings.scheme)),
-        total as u64,
-    );
+    progress.start(&format!("bootstrap ({})", scheme_name(settings.scheme)), b as u64);
     let outcomes = replicates(ctx, settings, 0..b, progress);
-    let jackknife = bca.then(|| resample::jackknife(ctx, progress));
+    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     progress.finish();
     resample::assemble(
         ctx,

@@ -9,6 +9,7 @@ use crate::settings::AuditSettings;
 
 pub mod bootstrap;
 pub mod contour;
+pub mod influence;
 pub mod marching;
 pub mod monte_carlo;
 pub mod multistart;

@@ -24,12 +24,13 @@
 //!   JASA 82:171): bias correction `z0 = Phi^-1(share of replicates below
 //!   the estimate)` (ties count half, common practice), acceleration from
 //!   the jackknife, `a = sum d_i^3 / (6 (sum d_i^2)^(3/2))` with
-//!   `d_i = mean(theta_(.)) - theta_(i)` over leave-one-point-out refits of
-//!   the base data (warm-started from the base fit), then the quantiles at
+//!   `d_i = mean(theta_(.)) - theta_(i)` over the leave-one-point-out
+//!   values of the linearised fit (`influence.rs`: one pass over the data,
+//!   no refits; [`jackknife`] keeps the refitted version), then the quantiles at
 //!   `Phi(z0 + (z0 + z_q) / (1 - a (z0 + z_q)))`. The same formula serves
 //!   the bootstrap only (the Monte Carlo has the intervals of JCGM 101).
 //!   BCa is withheld (`None`, with the reason in `bca_withheld`) when a
-//!   jackknife refit failed (listed in `jackknife_failures`), when every
+//!   leave-one-out value failed (listed in `jackknife_failures`), when every
 //!   replicate lies on one side of the estimate, when the bias correction
 //!   or the acceleration is degenerate (`|z0| >` [`BCA_Z0_LIMIT`], `|a| >`
 //!   [`BCA_ACCELERATION_LIMIT`] or `1 - a (z0 + z_q) <= 0`), when an end
@@ -295,10 +296,11 @@ pub struct ResampleResult {
     pub estimates: Vec<Vec<f64>>,
     /// Whether the adaptive rule (Monte Carlo) reached stability.
     pub adaptive_stable: Option<bool>,
-    /// Leave-one-point-out refits run for the BCa acceleration (0 when the
-    /// BCa interval was not requested).
+    /// Leave-one-point-out values computed for the BCa acceleration (one
+    /// per point, from the linearised fit; 0 when the BCa interval was not
+    /// requested).
     pub jackknife_refits: usize,
-    /// The jackknife refits that failed (index = left-out point); any
+    /// The leave-one-out values that failed (index = left-out point); any
     /// failure disables the BCa interval.
     pub jackknife_failures: Vec<FailedReplicate>,
     /// Monte Carlo only: the factor `s` of the simulated noise

@@ -358,7 +358,7 @@ pub fn decide(inputs: &VerdictInputs) -> Vec<Verdict> {
                 goodness_rule(fit, tol, &mut f);
             }
             if let Some(ms) = inputs.multistart {
-                multistart_rule(ms, p, &mut f);
+                multistart_rule(ms, fit, p, &mut f);
             }
             if let Some(pr) = inputs.profile {
                 profile_rule(pr, index, p, tol, &mut f);
@@ -495,13 +495,18 @@ fn goodness_rule(fit: &FitResult, tol: f64, f: &mut Findings) {
     );
 }
 
-fn multistart_rule(ms: &MultistartResult, p: &ParamResult, f: &mut Findings) {
-    if ms.base_is_best {
+fn multistart_rule(ms: &MultistartResult, fit: &FitResult, p: &ParamResult, f: &mut Findings) {
+    if ms.audited_is_best {
         f.add(
             Rule::BetterMinimum,
             Source::Multistart,
             Status::Holds,
-            numbers([("starts", ms.starts as f64), ("chi2_base", ms.base_chi2)]),
+            numbers([
+                ("starts", ms.starts as f64),
+                ("chi2_audited", fit.chi2),
+                ("chi2_base", ms.base_chi2),
+                ("rebased", if ms.base_is_best { 0.0 } else { 1.0 }),
+            ]),
         );
         return;
     }
@@ -861,9 +866,14 @@ mod tests {
     fn multistart_of(base_is_best: bool, best: Vec<(&str, f64)>) -> MultistartResult {
         MultistartResult {
             starts: 64,
+            batches: 1,
+            stopped: crate::diagnostics::multistart::StopRule::EstimateSmall,
             failed: 0,
+            degenerate: Default::default(),
+            merged_early: 0,
             base_chi2: 412.7,
             base_is_best,
+            audited_is_best: base_is_best,
             minima: vec![Minimum {
                 chi2: if base_is_best { 412.7 } else { 80.1 },
                 delta_chi2: 0.0,
@@ -880,6 +890,7 @@ mod tests {
                     .collect(),
             }],
             missed_minimum_estimate: 0.01,
+            unseen_share: 0.001,
             expected_minima: 2.0,
             box_bounds: Vec::new(),
             runs: Vec::new(),

@@ -577,7 +577,7 @@ pub(crate) const NEGLIGIBLE_EFFECT: f64 = 1e-30;
 
 /// A parameter ran away when its magnitude grew by more than this factor
 /// over the start and it is not determined at the end point ...
-pub(crate) const RUNAWAY_FACTOR: f64 = 1e10;
+pub(crate) const RUNAWAY_FACTOR: f64 = 1e6;
 
 /// ... or when its magnitude exceeds this, whatever the start.
 pub(crate) const RUNAWAY_MAGNITUDE: f64 = 1e100;

@@ -349,15 +349,15 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
                     total.stop = StopReason::Gradient;
                 }
             } else {
+                // Not a verified minimum. A plateau or a runaway is the
+                // most specific cause, whichever rule stopped the search.
                 total.converged = false;
-                if total.stop.is_convergence() || total.stop == StopReason::Stalled {
-                    total.stop = if end.plateau.is_some() {
-                        StopReason::Plateau
-                    } else if end.runaway.is_some() {
-                        StopReason::Runaway
-                    } else {
-                        StopReason::Stalled
-                    };
+                if end.plateau.is_some() {
+                    total.stop = StopReason::Plateau;
+                } else if end.runaway.is_some() {
+                    total.stop = StopReason::Runaway;
+                } else if total.stop.is_convergence() {
+                    total.stop = StopReason::Stalled;
                 }
             }
         }

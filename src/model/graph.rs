@@ -332,6 +332,53 @@ impl Graph {
         used
     }
 
+    /// For each parameter (of `n_params`), the data column it is a position
+    /// on: the one column `k` it is subtracted from, or compared with
+    /// (`x - p`, `p - x`, `min`/`max` of the two, a comparison), anywhere in
+    /// the expression of `root`. `None` when it never meets a column that
+    /// way or meets two different columns.
+    pub(crate) fn positions(&self, root: Id, n_params: usize) -> Vec<Option<usize>> {
+        let mark = self.reachable(&[root]);
+        // 0: not seen; k + 1: column k; usize::MAX: conflicting columns.
+        let mut role = vec![0usize; n_params];
+        let pair = |a: Id, b: Id| -> Option<(usize, usize)> {
+            match (self.nodes[a as usize], self.nodes[b as usize]) {
+                (Node::Var(k), Node::Param(j)) | (Node::Param(j), Node::Var(k)) => {
+                    Some((j as usize, k as usize))
+                }
+                _ => None,
+            }
+        };
+        for (id, &m) in mark.iter().enumerate() {
+            if !m {
+                continue;
+            }
+            let found = match self.nodes[id] {
+                Node::Bin(Bin::Sub | Bin::Min | Bin::Max, a, b) => pair(a, b),
+                Node::Select(p, q, _, _) => pair(p, q),
+                _ => None,
+            };
+            if let Some((j, k)) = found {
+                if j < n_params {
+                    role[j] = match role[j] {
+                        0 => k + 1,
+                        r if r == k + 1 => r,
+                        _ => usize::MAX,
+                    };
+                }
+            }
+        }
+        role.into_iter()
+            .map(|r| {
+                if r == 0 || r == usize::MAX {
+                    None
+                } else {
+                    Some(r - 1)
+                }
+            })
+            .collect()
+    }
+
     /// The derivative of `root` with respect to parameter `j`, as a node of
     /// the same graph (sharing subexpressions with the value).
     pub(crate) fn derivative(&mut self, root: Id, j: usize) -> Id {

@@ -99,6 +99,15 @@ pub trait ModelFn: Sync {
         jac: Option<&mut [f64]>,
         scratch: &mut Vec<f64>,
     ) -> Result<(), NonFinite>;
+
+    /// For each parameter, the independent variable (index of its `x`
+    /// column) it is a position on, when the model says so: the parameter
+    /// is subtracted from or compared with that column (`x - p`). Empty
+    /// when the model cannot tell (the default); the multi-start search
+    /// then falls back to the start's magnitude.
+    fn positions(&self) -> Vec<Option<usize>> {
+        Vec::new()
+    }
 }
 
 /// A model written as native Rust code: a closure that computes, for one
@@ -292,6 +301,7 @@ pub struct Tape {
     n_params: usize,
     n_vars: usize,
     used: Vec<bool>,
+    positions: Vec<Option<usize>>,
     value_prog: tape::Program,
     full_prog: tape::Program,
 }
@@ -381,6 +391,13 @@ impl ModelFn for Tape {
             None => self.value_prog.run(reserve, params, x, values, None, scratch),
         }
     }
+
+    /// Read from the expression graph: parameter `p` is a position on
+    /// column `x` when the formula contains `x - p`, `p - x`, `min`/`max`
+    /// of the two or compares them (e.g. `wl - mu` in a peak).
+    fn positions(&self) -> Vec<Option<usize>> {
+        self.positions.clone()
+    }
 }
 
 /// Compiles a formula against the given names.
@@ -397,6 +414,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
     })?;
     let n_params = symbols.parameters.len();
     let used = g.parameters_used(root, n_params);
+    let positions = g.positions(root, n_params);
     let mut roots = vec![root];
     for (j, &u) in used.iter().enumerate() {
         roots.push(if u { g.derivative(root, j) } else { g.konst(0.0) });
@@ -408,6 +426,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
         n_params,
         n_vars: symbols.variables.len(),
         used,
+        positions,
         value_prog,
         full_prog,
     })

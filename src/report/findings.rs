@@ -91,11 +91,21 @@ pub fn sentence(f: &Finding) -> String {
         Rule::Undetermined => "the standard error is undetermined: the data do not fix this parameter (the \
                                Jacobian is rank-deficient in its direction)"
             .to_string(),
-        Rule::BetterMinimum if f.status == Status::Holds => format!(
-            "the multi-start search ({} starts) found no better minimum than the base fit (chi2 = {})",
+        Rule::BetterMinimum if f.status == Status::Holds => {
+            format!(
+            "the multi-start search ({} starts) found no better minimum than the audited fit (chi2 = {}){}",
             num(n("starts")),
-            num(n("chi2_base"))
-        ),
+            num(if has("chi2_audited") { n("chi2_audited") } else { n("chi2_base") }),
+            if n("rebased") == 1.0 {
+                format!(
+                    " (the audit is re-based there; the study's start reaches chi2 = {})",
+                    num(n("chi2_base"))
+                )
+            } else {
+                String::new()
+            }
+        )
+        }
         Rule::BetterMinimum => {
             let lead = if f.diagnostic == Source::Profile {
                 "a profile passes through a better minimum"

@@ -18,7 +18,8 @@ use crate::diagnostics::verdict::Status;
 use crate::report::figures::svg::inline;
 use crate::report::tables::{self, Table};
 use crate::report::{
-    better_minimum, findings, format, profile_below_base, Figures, Renderer, ReportError, CAUTION,
+    better_minimum, findings, format, profile_below_base, rebased_notice, Figures, Renderer, ReportError,
+    CAUTION,
 };
 
 /// Section headings of the page, in order (the lead notice is not a section).
@@ -148,6 +149,18 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     let _ = writeln!(o, "<style>{CSS}</style>\n</head>\n<body>");
 
     // The lead notice comes before everything else.
+    if let Some(n) = rebased_notice(results) {
+        let _ = writeln!(
+            o,
+            "<div class=\"notice\" role=\"alert\"><p><strong>The study's start reaches a local minimum \
+             (chi-squared = {}); this audit is re-based at the best minimum found (chi-squared = {}).</strong></p>\
+             <p>Every diagnostic and verdict below describes the best minimum. Put these start values in the \
+             study to fit it directly:</p><p><code>{}</code></p></div>",
+            format::chi2(n.start_chi2),
+            format::chi2(n.audited_chi2),
+            escape(&n.start_lines())
+        );
+    }
     let mut lead = Vec::new();
     if let Some((base, best)) = better_minimum(results) {
         lead.push(format!(

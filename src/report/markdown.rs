@@ -9,7 +9,9 @@ use std::fmt::Write as _;
 
 use crate::audit::AuditResults;
 use crate::report::tables::{self, Table};
-use crate::report::{better_minimum, format, profile_below_base, Figures, Renderer, ReportError, CAUTION};
+use crate::report::{
+    better_minimum, format, profile_below_base, rebased_notice, Figures, Renderer, ReportError, CAUTION,
+};
 
 /// Escapes text for a Markdown table cell or paragraph.
 pub fn escape(s: &str) -> String {
@@ -54,6 +56,9 @@ pub fn summary(results: &AuditResults) -> String {
         .unwrap_or_else(|| format!("Study {}", results.study.name));
     let mut o = String::new();
     let _ = writeln!(o, "# Fit audit: {}\n", escape(&title));
+    if let Some(n) = rebased_notice(results) {
+        let _ = writeln!(o, "> **Re-based audit.** {}\n", escape(&n.sentence()));
+    }
     if let Some((base, best)) = better_minimum(results) {
         let _ = writeln!(
             o,

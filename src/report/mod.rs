@@ -120,7 +120,7 @@ pub fn write_with(
 /// clearly lower minimum than the base fit: `(base chi2, best chi2)`.
 pub fn better_minimum(results: &AuditResults) -> Option<(f64, f64)> {
     let ms = results.multistart.as_ref()?;
-    if ms.base_is_best {
+    if ms.audited_is_best {
         return None;
     }
     let best = ms
@@ -130,6 +130,57 @@ pub fn better_minimum(results: &AuditResults) -> Option<(f64, f64)> {
         .filter(|c| c.is_finite())
         .fold(f64::INFINITY, f64::min);
     Some((ms.base_chi2, best))
+}
+
+/// The notice that leads a re-based report: the study's start reaches a
+/// local minimum, the audit ran at the best minimum found.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RebasedNotice {
+    /// Chi-squared of the fit from the study's start.
+    pub start_chi2: f64,
+    /// Chi-squared of the audited fit.
+    pub audited_chi2: f64,
+    /// The start values to put in the study: `(name, value)` of every
+    /// parameter that is not fixed, at the audited fit.
+    pub starts: Vec<(String, f64)>,
+}
+
+/// The re-basing notice, when the audit was re-based.
+pub fn rebased_notice(results: &AuditResults) -> Option<RebasedNotice> {
+    let start = results.start_fit.as_ref().filter(|_| results.rebased)?;
+    Some(RebasedNotice {
+        start_chi2: start.chi2,
+        audited_chi2: results.fit.chi2,
+        starts: results
+            .fit
+            .parameters
+            .iter()
+            .filter(|p| !p.fixed)
+            .map(|p| (p.name.clone(), p.value))
+            .collect(),
+    })
+}
+
+impl RebasedNotice {
+    /// The start values as study-file lines, `name = value` with the
+    /// shortest exact decimal form.
+    pub fn start_lines(&self) -> String {
+        self.starts
+            .iter()
+            .map(|(n, v)| format!("{n} = {{ start = {v} }}"))
+            .collect::<Vec<_>>()
+            .join("; ")
+    }
+
+    /// The notice as one plain sentence group (terminal and Markdown).
+    pub fn sentence(&self) -> String {
+        format!(
+            "The study's start reaches a local minimum (chi2 = {}); audited at the best minimum found              by the multi-start search (chi2 = {}). Put these start values in the study: {}",
+            format::chi2(self.start_chi2),
+            format::chi2(self.audited_chi2),
+            self.start_lines()
+        )
+    }
 }
 
 /// The profile points that lie below the base fit's chi-squared:

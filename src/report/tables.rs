@@ -215,10 +215,11 @@ pub fn fit_params(fit: &FitResult) -> Table {
     }
 }
 
-/// The expanded uncertainty at the precision of the standard error.
+/// The expanded uncertainty, to two significant digits like the standard
+/// uncertainty.
 pub fn expanded(p: &ParamResult) -> String {
     match p.expanded_uncertainty {
-        Some(u) => format::at_precision_of(u, p.std_error),
+        Some(u) => format::value_and_uncertainty(0.0, Some(u)).1,
         None => s(format::ABSENT),
     }
 }
@@ -447,7 +448,7 @@ pub fn failures(results: &AuditResults) -> Table {
         }
         if rs.jackknife_refits > 0 {
             details.push(format!(
-                "BCa jackknife: {} of {} refits failed{}",
+                "BCa acceleration from {1} linearised leave-one-out values, {0} failed{2}",
                 rs.jackknife_failures.len(),
                 rs.jackknife_refits,
                 if rs.jackknife_failures.is_empty() {
@@ -563,16 +564,55 @@ pub fn failures(results: &AuditResults) -> Table {
         None => rows.push(not_run("Contours")),
     }
     match &results.multistart {
-        Some(m) => rows.push(vec![
-            s("Multi-start"),
-            format!("{} starts, {} distinct minima", m.starts, m.minima.len()),
-            m.failed.to_string(),
-            format!(
-                "estimated probability of a missed minimum {}; expected number of minima {}",
-                format::sig(m.missed_minimum_estimate, 2),
-                format::sig(m.expected_minima, 3)
-            ),
-        ]),
+        Some(m) => {
+            let d = &m.degenerate;
+            let stopped = match m.stopped {
+                crate::diagnostics::multistart::StopRule::EstimateSmall => format!(
+                    "stopped when the estimate fell to {} or below",
+                    format::sig(results.settings.multistart.missed_target, 2)
+                ),
+                crate::diagnostics::multistart::StopRule::CapReached => format!(
+                    "stopped at the cap of {} starts with the estimate above {}",
+                    results
+                        .settings
+                        .multistart
+                        .max_starts
+                        .max(results.settings.multistart.starts),
+                    format::sig(results.settings.multistart.missed_target, 2)
+                ),
+            };
+            let merged = if m.merged_early > 0 {
+                format!(
+                    "; {} starts merged early into a minimum already found",
+                    m.merged_early
+                )
+            } else {
+                String::new()
+            };
+            rows.push(vec![
+                s("Multi-start"),
+                format!(
+                    "{} starts in {} batch{}, {} distinct minima",
+                    m.starts,
+                    m.batches,
+                    if m.batches == 1 { "" } else { "es" },
+                    m.minima.len()
+                ),
+                m.failed.to_string(),
+                format!(
+                    "degenerate ends (no minimum): {} not converged, {} runaway, {} vanished Jacobian column, \
+                     {} rank drop; estimated probability of a missed minimum {}, unseen share of the box {}, \
+                     expected number of minima {}; {stopped}{merged}",
+                    d.not_converged,
+                    d.runaway,
+                    d.vanished_column,
+                    d.rank_drop,
+                    format::sig(m.missed_minimum_estimate, 2),
+                    format::sig(m.unseen_share, 2),
+                    format::sig(m.expected_minima, 3)
+                ),
+            ])
+        }
         None => rows.push(not_run("Multi-start")),
     }
     Table {
@@ -684,12 +724,25 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
         (
             s("Multi-start settings"),
             format!(
-                "{} starts{}",
+                "batches of {} starts up to {} until the estimated probability of a missed minimum is at \
+                 most {}{}{}{}",
                 st.multistart.starts,
+                st.multistart.max_starts.max(st.multistart.starts),
+                format::sig(st.multistart.missed_target, 2),
                 if st.multistart.log_uniform {
                     ", log-uniform sampling of wide positive ranges"
                 } else {
                     ""
+                },
+                if st.multistart.merge_early {
+                    ", early merging of starts into minima already found"
+                } else {
+                    ""
+                },
+                if st.multistart.rebase {
+                    ", re-based at a clearly better minimum"
+                } else {
+                    ", kept at the study's start"
                 }
             ),
         ),

@@ -9,7 +9,7 @@ use crate::audit::AuditResults;
 use crate::fit::{FitResult, ParamSpec};
 use crate::model::FunctionInfo;
 use crate::report::tables::{self, relative_error, status_word, stop_words};
-use crate::report::{better_minimum, findings, format, profile_below_base};
+use crate::report::{better_minimum, findings, format, profile_below_base, rebased_notice};
 
 /// Lays out rows in columns separated by two spaces; columns listed in
 /// `right` are right-aligned. Trailing spaces are trimmed.
@@ -142,6 +142,9 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
 /// line when the multi-start search found a better minimum than the base fit.
 pub fn verdict_lines(results: &AuditResults) -> String {
     let mut out = String::new();
+    if let Some(n) = rebased_notice(results) {
+        let _ = writeln!(out, "NOTICE: {}", n.sentence());
+    }
     if let Some((base, best)) = better_minimum(results) {
         let _ = writeln!(
             out,

@@ -15,7 +15,9 @@
 use fitaudit::audit::{AuditResults, Curve, Provenance, StudyInfo, SCHEMA_VERSION};
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::contour::{ContourGrid, ContourLine, ContourResult};
-use fitaudit::diagnostics::multistart::{Minimum, MultistartResult, NamedValue, StartRun};
+use fitaudit::diagnostics::multistart::{
+    DegenerateEnds, EndKind, Minimum, MultistartResult, NamedValue, StartRun, StopRule,
+};
 use fitaudit::diagnostics::profile::{EndStatus, ParameterProfile, ProfileResult};
 use fitaudit::diagnostics::resample::{FailedReplicate, ResampleResult, ResampledParameter};
 use fitaudit::diagnostics::verdict::{Finding, Quote, QuoteKind, Rule, Source, Status, Verdict};
@@ -311,6 +313,10 @@ fn multistart(chi2: f64, se: &[f64]) -> MultistartResult {
             chi2: c,
             converged,
             minimum,
+            degenerate: (!converged).then_some(EndKind::NotConverged),
+            rank_deficiency: 0,
+            batch: 0,
+            merged_early: false,
         });
     }
     let named = |v: &[f64]| {
@@ -325,9 +331,17 @@ fn multistart(chi2: f64, se: &[f64]) -> MultistartResult {
     };
     MultistartResult {
         starts: 24,
+        batches: 1,
+        stopped: StopRule::EstimateSmall,
         failed: 2,
+        degenerate: DegenerateEnds {
+            not_converged: 2,
+            ..DegenerateEnds::default()
+        },
+        merged_early: 0,
         base_chi2: chi2,
         base_is_best: true,
+        audited_is_best: true,
         minima: vec![
             Minimum {
                 chi2,
@@ -349,6 +363,7 @@ fn multistart(chi2: f64, se: &[f64]) -> MultistartResult {
             },
         ],
         missed_minimum_estimate: 0.013,
+        unseen_share: 0.0079,
         expected_minima: 2.1,
         box_bounds: vec![[0.0, 50.0], [0.0, 200.0], [1.0, 1e5]],
         runs,
@@ -440,6 +455,8 @@ pub fn cooling() -> AuditResults {
         },
         settings,
         diagnostics_run: Diagnostic::ALL.to_vec(),
+        start_fit: None,
+        rebased: false,
         bootstrap: Some(resample(
             "residual",
             Stream::Bootstrap,
@@ -640,8 +657,27 @@ pub fn hostile() -> AuditResults {
     r.data.y_name = "temp|&C".into();
     let ms = r.multistart.as_mut().unwrap();
     ms.base_is_best = false;
+    ms.audited_is_best = false;
     ms.minima.swap(0, 1);
     ms.minima[0].chi2 = ms.base_chi2 - 25.0;
+    ms.minima[1].delta_chi2 = 25.0;
+    r
+}
+
+/// The cooling audit re-based: the study's start reached a local minimum
+/// 25 above the audited fit, which is the best minimum the search found.
+pub fn rebased() -> AuditResults {
+    let mut r = cooling();
+    let mut start = r.fit.clone();
+    start.chi2 += 25.0;
+    start.parameters[2].value *= 3.0;
+    r.start_fit = Some(start);
+    r.rebased = true;
+    let ms = r.multistart.as_mut().unwrap();
+    ms.base_chi2 += 25.0;
+    ms.base_is_best = false;
+    ms.audited_is_best = true;
+    ms.minima[1].chi2 = ms.base_chi2;
     ms.minima[1].delta_chi2 = 25.0;
     r
 }

@@ -6,12 +6,40 @@ use super::Figure;
 use crate::audit::AuditResults;
 use crate::report::ReportError;
 
-/// Axis title of normalised residuals.
+/// Axis title of the residuals drawn: normalised by the stated sigma, or,
+/// without sigma, standardised by the residual standard deviation `s`.
 pub(crate) fn residual_label(results: &AuditResults) -> &'static str {
     if results.data.has_sigma() {
         "normalised residual (y \u{2212} f)/\u{3c3}"
     } else {
-        "residual y \u{2212} f (no \u{3c3} given)"
+        "standardised residual (y \u{2212} f)/s"
+    }
+}
+
+/// The residuals the figures draw: `(y - f) / sigma` with stated sigma;
+/// without sigma `(y - f) / s` with `s = sqrt(sum of squares / dof)`, so
+/// that the reference lines at 0 and +-2 and the unit-normal Q-Q line mean
+/// the same in both cases (the raw residuals when `s` is 0).
+pub(crate) fn plotted_residuals(results: &AuditResults) -> Vec<f64> {
+    let r = &results.fit.residuals;
+    let s = results.fit.reduced_chi2.sqrt();
+    if results.data.has_sigma() || !(s.is_finite() && s > 0.0) {
+        r.clone()
+    } else {
+        r.iter().map(|v| v / s).collect()
+    }
+}
+
+/// How the drawn residuals are scaled, for captions.
+pub(crate) fn residual_words(results: &AuditResults) -> String {
+    if results.data.has_sigma() {
+        "the normalised residual (y \u{2212} f)/\u{3c3}".into()
+    } else {
+        format!(
+            "the standardised residual (y \u{2212} f)/s, with s = {} the residual standard deviation \
+             (no \u{3c3} given)",
+            crate::report::format::sig(results.fit.reduced_chi2.sqrt(), 4)
+        )
     }
 }
 
@@ -26,7 +54,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     let err = |i: usize| sigma.as_ref().and_then(|s| s.get(i).copied()).unwrap_or(0.0);
     let res_label = residual_label(results);
     let fitted = &results.fit.fitted;
-    let residuals = &results.fit.residuals;
+    let residuals = &plotted_residuals(results);
     let y_name = data.y_name.as_str();
 
     if data.x.len() == 1 {
@@ -86,11 +114,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
                 } else {
                     "no uncertainties given"
                 },
-                if sigma.is_some() {
-                    "the normalised residual (y \u{2212} f)/\u{3c3}"
-                } else {
-                    "the residual y \u{2212} f"
-                }
+                residual_words(results)
             ),
             svg: svg_text,
         }));

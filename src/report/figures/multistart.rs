@@ -66,7 +66,8 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     let Some(ms) = &results.multistart else {
         return Ok(None);
     };
-    let fit = &results.fit;
+    // The search ran from the study's start: mark that fit.
+    let fit = results.start_fit.as_ref().unwrap_or(&results.fit);
     let order = spread_order(ms, fit);
     let plane = match (order.first(), order.get(1)) {
         (Some(&a), Some(&b)) => Some((a, Some(b))),
@@ -117,7 +118,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         c.points(
             &failed,
             Mark::new(Shape::Cross, 3, 170, false),
-            Some("failed start"),
+            Some("degenerate end (no minimum)"),
         )?;
         let first = c.legend.len();
         for k in (0..ms.minima.len().min(kmax + 1)).rev() {
@@ -145,7 +146,11 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         }
         // Drawn worst first so the best stays on top; listed best first.
         c.legend[first..].reverse();
-        c.points(&[base], Mark::new(Shape::Diamond, 7, 0, false), Some("base fit"))?;
+        c.points(
+            &[base],
+            Mark::new(Shape::Diamond, 7, 0, false),
+            Some("fit from the study's start"),
+        )?;
         svg::legend(&side, &c.legend)?;
 
         let mut d = svg::chart(
@@ -154,7 +159,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             cr,
             (0.0, 1.05),
             "\u{3c7}\u{b2} of the minimum",
-            "share of converged starts",
+            "share of starts ending at a minimum",
         )?;
         d.lines(
             &[vec![(ms.base_chi2, 0.0), (ms.base_chi2, 1.0)]],
@@ -162,7 +167,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             None,
         )?;
         d.text(
-            "base fit",
+            "study's start",
             (ms.base_chi2, 1.025),
             11,
             Pos::new(HPos::Center, VPos::Center),
@@ -183,6 +188,9 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     };
     let notice = if ms.base_is_best {
         String::new()
+    } else if results.rebased {
+        " The study's start reaches a local minimum; the audit is re-based at the best minimum found."
+            .to_string()
     } else {
         " The base fit is not the best minimum found.".to_string()
     };
@@ -191,10 +199,12 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         title: "Multi-start search".into(),
         caption: format!(
             "Left: end points of {} starts in the plane of {plane} (the parameters whose end points spread \
-             most relative to their size), one marker per minimum, best first; crosses are failed starts. \
-             Right: chi-squared of each of the {} distinct minima against the share of converged starts \
-             that ended there.{notice}",
+             most relative to their size), one marker per minimum, best first; crosses are degenerate ends \
+             ({} of them: not converged, runaway, vanished Jacobian column or rank drop), which are no \
+             minima. Right: chi-squared of each of the {} distinct minima against the share of the starts \
+             ending at a minimum that ended there.{notice}",
             ms.starts,
+            ms.failed,
             ms.minima.len()
         ),
         svg: text,

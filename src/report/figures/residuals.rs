@@ -3,7 +3,7 @@
 
 use statrs::distribution::{ContinuousCDF, Normal};
 
-use super::fit::residual_label;
+use super::fit::{plotted_residuals, residual_label, residual_words};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -24,13 +24,8 @@ pub fn hazen_quantiles(n: usize) -> Vec<f64> {
 /// The Q-Q plot and the residuals-against-x panels.
 pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError> {
     let mut out = Vec::new();
-    let mut r: Vec<f64> = results
-        .fit
-        .residuals
-        .iter()
-        .copied()
-        .filter(|v| v.is_finite())
-        .collect();
+    let drawn = plotted_residuals(results);
+    let mut r: Vec<f64> = drawn.iter().copied().filter(|v| v.is_finite()).collect();
     if r.len() >= 3 {
         r.sort_by(f64::total_cmp);
         let q = hazen_quantiles(r.len());
@@ -59,19 +54,31 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
         out.push(Figure {
             file: "residuals_qq.svg".into(),
             title: "Normal Q-Q plot of the residuals".into(),
-            caption: format!(
-                "The {} ordered residuals against standard normal quantiles at the Hazen plotting \
-                 positions (i \u{2212} 0.5)/n. Points on the dashed line are what normally distributed \
-                 residuals with the stated uncertainties give; a steeper line means larger scatter \
-                 than the uncertainties say, curvature means heavy or skewed tails.",
-                r.len()
-            ),
+            caption: if results.data.has_sigma() {
+                format!(
+                    "The {} ordered normalised residuals against standard normal quantiles at the Hazen \
+                     plotting positions (i \u{2212} 0.5)/n. Points on the dashed line are what normally \
+                     distributed residuals with the stated uncertainties give; a steeper line means \
+                     larger scatter than the uncertainties say, curvature means heavy or skewed tails.",
+                    r.len()
+                )
+            } else {
+                format!(
+                    "The {} ordered residuals, each divided by the residual standard deviation s = {} \
+                     (no \u{3c3} given), against standard normal quantiles at the Hazen plotting \
+                     positions (i \u{2212} 0.5)/n. The dashed line is what normally distributed \
+                     residuals give; its slope is 1 by construction, so only curvature (heavy or \
+                     skewed tails) and outlying points carry information.",
+                    r.len(),
+                    crate::report::format::sig(results.fit.reduced_chi2.sqrt(), 4)
+                )
+            },
             svg: text,
         });
     }
 
     let data = &results.data;
-    let res = &results.fit.residuals;
+    let res = &drawn;
     let k = data.x.len();
     if k == 0 || res.is_empty() {
         return Ok(out);
@@ -110,12 +117,21 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
         file: "residuals_x.svg".into(),
         title: "Residuals against the independent variables".into(),
         caption: format!(
-            "Residuals against {names}; dotted lines at \u{b1}2. A trend or a funnel shape points to a \
-             model or weighting problem."
+            "{} against {names}; dotted lines at \u{b1}2. A trend or a funnel shape points to a \
+             model or weighting problem.",
+            capitalise(&residual_words(results))
         ),
         svg: text,
     });
     Ok(out)
+}
+
+fn capitalise(s: &str) -> String {
+    let mut c = s.chars();
+    match c.next() {
+        Some(f) => f.to_uppercase().collect::<String>() + c.as_str(),
+        None => String::new(),
+    }
 }
 
 #[cfg(test)]
