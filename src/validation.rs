@@ -50,6 +50,9 @@ pub struct Case {
     pub null: bool,
     /// Stream tag of its noise.
     pub tag: u32,
+    /// Re-base the audit at the best minimum the multi-start search finds
+    /// (`[audit.multistart] rebase`); false audits the fit from the start.
+    pub rebase: bool,
 }
 
 impl Case {
@@ -62,9 +65,31 @@ impl Case {
             _ => t[0] * (2.0 * std::f64::consts::PI * t[1] * x + t[2]).sin() + t[3],
         }
     }
+
+    fn sinusoid(name: &'static str, description: &'static str, null: bool, rebase: bool) -> Case {
+        Case {
+            name,
+            description,
+            formula: "A*sin(2*pi*f*x + phi) + c",
+            parameters: vec![
+                ("A", 1.2, 1.0, Some(0.0), Some(10.0)),
+                ("f", 2.7, 1.1, Some(0.2), Some(8.0)),
+                ("phi", -0.4, 0.0, Some(-3.5), Some(3.5)),
+                ("c", 0.1, 0.0, Some(-5.0), Some(5.0)),
+            ],
+            x: (0..100).map(|i| 0.025 * i as f64).collect(),
+            sigma: vec![0.15; 100],
+            null,
+            // The same noise for both sinusoid cases.
+            tag: 1504,
+            rebase,
+        }
+    }
 }
 
-/// The four cases of the validation (invented truths).
+/// The cases of the validation (invented truths): a straight line, a
+/// decay, a few-point saturation curve and a wrong-start sinusoid (audited
+/// at that start, and re-based at the best minimum found).
 pub fn cases() -> Vec<Case> {
     let sat_x = [0.8, 1.6, 2.4, 3.6, 5.2, 7.2];
     let sat_sigma: Vec<f64> = sat_x.iter().map(|x| 0.05 * 9.0 * x / (30.0 + x)).collect();
@@ -78,6 +103,7 @@ pub fn cases() -> Vec<Case> {
             sigma: vec![0.3; 20],
             null: true,
             tag: 1501,
+            rebase: true,
         },
         Case {
             name: "decay",
@@ -92,6 +118,7 @@ pub fn cases() -> Vec<Case> {
             sigma: vec![0.08; 40],
             null: true,
             tag: 1502,
+            rebase: true,
         },
         Case {
             name: "saturation",
@@ -105,22 +132,22 @@ pub fn cases() -> Vec<Case> {
             sigma: sat_sigma,
             null: false,
             tag: 1503,
+            rebase: true,
         },
-        Case {
-            name: "sinusoid",
-            description: "sinusoid A sin(2 pi f x + phi) + c, 100 points, started at f = 1.1 (true 2.7)",
-            formula: "A*sin(2*pi*f*x + phi) + c",
-            parameters: vec![
-                ("A", 1.2, 1.0, Some(0.0), Some(10.0)),
-                ("f", 2.7, 1.1, Some(0.2), Some(8.0)),
-                ("phi", -0.4, 0.0, Some(-3.5), Some(3.5)),
-                ("c", 0.1, 0.0, Some(-5.0), Some(5.0)),
-            ],
-            x: (0..100).map(|i| 0.025 * i as f64).collect(),
-            sigma: vec![0.15; 100],
-            null: false,
-            tag: 1504,
-        },
+        Case::sinusoid(
+            "sinusoid",
+            "sinusoid A sin(2 pi f x + phi) + c, 100 points, started at f = 1.1 (true 2.7), audited at \
+             the fit from that start (`rebase = false`)",
+            false,
+            false,
+        ),
+        Case::sinusoid(
+            "sinusoid-rebased",
+            "the same data sets, audited with the default `rebase = true`: at the best minimum found, \
+             where the quoted +- is right",
+            true,
+            true,
+        ),
     ]
 }
 
@@ -199,6 +226,8 @@ pub struct CaseTally {
     pub datasets: usize,
     /// Data sets whose audit could not run (base fit error).
     pub errors: usize,
+    /// Data sets whose audit was re-based at a better minimum.
+    pub rebased: Count,
     /// Confidence level of the intervals.
     pub level: f64,
     /// One tally per parameter.
@@ -238,6 +267,7 @@ pub fn audit_dataset(case: &Case, size: &RunSize, k: usize) -> Option<AuditResul
     spec.audit.bootstrap.replicates = size.replicates;
     spec.audit.monte_carlo.replicates = size.replicates;
     spec.audit.multistart.starts = size.starts;
+    spec.audit.multistart.rebase = case.rebase;
     let study = Study::from_dataset(spec, data, case.name).ok()?;
     let options = AuditOptions {
         only: vec![
@@ -349,10 +379,12 @@ pub fn run_case(case: &Case, size: &RunSize) -> CaseTally {
         .collect();
     let mut errors = 0;
     let mut level = f64::NAN;
+    let mut rebased = Count::default();
     for r in &runs {
         match r {
             Some(r) => {
                 level = r.settings.level;
+                rebased.add(r.rebased);
                 tally(r, &truth, &mut params);
             }
             None => errors += 1,
@@ -364,6 +396,7 @@ pub fn run_case(case: &Case, size: &RunSize) -> CaseTally {
         null: case.null,
         datasets: size.datasets,
         errors,
+        rebased,
         level,
         parameters: params,
     }

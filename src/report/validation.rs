@@ -79,6 +79,9 @@ pub fn markdown(size: &RunSize, cases: &[CaseTally]) -> String {
                 String::new()
             }
         );
+        if c.rebased.hits > 0 {
+            let _ = writeln!(o, "  - audit re-based at a better minimum: {}", share(&c.rebased));
+        }
     }
     o.push_str("\n| case | parameter | measures | not holds | fails |\n|---|---|---|---|---|\n");
     for c in cases {
