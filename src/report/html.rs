@@ -206,7 +206,9 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     o.push_str(
         "<p>Does each quoted \u{b1} hold? <em>holds</em>: every diagnostic agrees with the analytic \
          standard error; <em>doubtful</em>: some diagnostic disagrees clearly, or a warning applies; \
-         <em>fails</em>: the \u{b1} cannot be trusted.</p>\n",
+         <em>fails</em>: the \u{b1} cannot be trusted. <em>Quote</em> is the interval to quote: \
+         value \u{b1} k u when the verdict holds, the profile interval when the profile disagrees with \
+         the parabola, none (with the reason) when no interval can be recommended.</p>\n",
     );
     o.push_str("<table>\n<thead><tr><th scope=\"col\">Parameter</th><th scope=\"col\">Quote</th><th scope=\"col\">Verdict</th><th scope=\"col\">Reasons</th></tr></thead>\n<tbody>\n");
     for v in &results.verdicts {
