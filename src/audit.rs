@@ -137,6 +137,11 @@ pub struct AuditResults {
     pub multistart: Option<MultistartResult>,
     /// Verdict per parameter.
     pub verdicts: Vec<Verdict>,
+    /// For a study of more than [`crate::reduction::RECORD_POINTS`]
+    /// points: which points `data` and the fits' per-point arrays keep
+    /// (every diagnostic ran on all of them); absent when all are kept.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reduction: Option<crate::reduction::DataReduction>,
 }
 
 /// What an audit runs on: the study resolved into its parts (the study
@@ -240,6 +245,28 @@ pub fn run(
     });
 
     let curve = model_curve(input.model, input.data, &audited);
+    drop(ctx);
+    let mut audited = audited;
+    let mut start_fit = start_fit;
+    // Large studies: the record and the figures keep a display reduction.
+    let (data, reduction) = if input.data.len() > crate::reduction::RECORD_POINTS {
+        let indices = crate::reduction::select(input.data, &audited.residuals);
+        let residual_quantiles = crate::reduction::residual_quantiles(&audited.residuals);
+        let data = crate::reduction::reduce_data(input.data, &indices);
+        crate::reduction::reduce_fit(&mut audited, &indices);
+        if let Some(f) = start_fit.as_mut() {
+            crate::reduction::reduce_fit(f, &indices);
+        }
+        let reduction = crate::reduction::DataReduction {
+            points: input.data.len(),
+            kept: indices.len(),
+            indices,
+            residual_quantiles,
+        };
+        (data, Some(reduction))
+    } else {
+        (input.data.clone(), None)
+    };
     Ok(AuditResults {
         schema_version: SCHEMA_VERSION,
         provenance: Provenance {
@@ -252,7 +279,7 @@ pub fn run(
         study: input.info.clone(),
         settings: input.settings.clone(),
         diagnostics_run: options.only.clone(),
-        data: input.data.clone(),
+        data,
         fit: audited,
         start_fit,
         rebased,
@@ -263,6 +290,7 @@ pub fn run(
         contours,
         multistart,
         verdicts,
+        reduction,
     })
 }
 

@@ -16,6 +16,7 @@ pub mod diagnostics;
 pub mod fit;
 pub mod model;
 pub mod output;
+pub mod reduction;
 pub mod report;
 pub mod rng;
 pub mod settings;

@@ -85,6 +85,18 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
         let mut in_noise;
 
         let (k, smax) = factor(rf);
+        if opts.stop_at_optimality {
+            // The end-point test on this factorisation: a warm-started
+            // refit stops as soon as the Gauss-Newton step has nothing
+            // left to give, without iterating down to the tolerances.
+            let tol = rf.tolerance_with_noise(chi2, noise);
+            if let Some(end) = rf.assess(data.y, k, smax, Some(tol)) {
+                rf.end_ready = true;
+                let mut out = finish(rf, chi2, true, StopReason::Gradient, iterations);
+                out.end = end;
+                return out;
+            }
+        }
 
         // Inner loop: trial steps until one is accepted or a stop rule fires.
         loop {

@@ -104,6 +104,19 @@ pub struct FitOptions {
     /// `level`.
     #[serde(default = "default_level")]
     pub level: f64,
+    /// Stop a Levenberg-Marquardt run as soon as the end-point optimality
+    /// test passes (the Gauss-Newton step would move the parameters by
+    /// less than [`OPTIMALITY_TOLERANCE`] standard errors), rather than
+    /// iterating until a step, chi2-change or gradient tolerance fires.
+    /// True for the refits of the diagnostics; the full fit
+    /// ([`fit`], [`fit_from`]) always iterates to the tolerances and then
+    /// refines to rounding, whatever this says.
+    #[serde(default = "default_true")]
+    pub stop_at_optimality: bool,
+}
+
+fn default_true() -> bool {
+    true
 }
 
 fn default_level() -> f64 {
@@ -125,6 +138,7 @@ impl Default for FitOptions {
             geodesic: false,
             covariance: CovarianceScaling::Auto,
             level: DEFAULT_LEVEL,
+            stop_at_optimality: true,
         }
     }
 }

@@ -76,6 +76,9 @@ pub struct Refitter {
     pub(crate) end_flags: Vec<u8>,
     /// Diagonal scaling of steepest descent (m).
     pub(crate) sd_scale: Vec<f64>,
+    /// The method already ran the end-point test at its end point (the
+    /// result is in the returned [`Refit`]).
+    pub(crate) end_ready: bool,
     /// Evaluations in the current refit.
     pub(crate) evaluations: usize,
 }
@@ -122,6 +125,7 @@ impl Refitter {
             colnorm0: Vec::new(),
             end_flags: Vec::new(),
             sd_scale: Vec::new(),
+            end_ready: false,
             evaluations: 0,
         };
         r.resize(n_points, m);
@@ -238,12 +242,15 @@ impl Refitter {
         self.a0.copy_from_slice(&self.a);
         self.colnorm0.iter_mut().for_each(|c| *c = 0.0);
         self.end_flags.iter_mut().for_each(|f| *f = 0);
+        self.end_ready = false;
         let mut out = match problem.options.method {
             Method::Lm => super::lm::run(self, problem, data),
             Method::Steepest => super::steepest::run(self, problem, data),
         };
         if out.chi2.is_finite() {
-            out.end = self.end_check(data.y);
+            if !self.end_ready {
+                out.end = self.end_check(data.y);
+            }
             judge(&mut out);
         }
         out
@@ -310,21 +317,9 @@ impl Refitter {
     /// parameter by one standard error), nor, near a perfect fit, sixteen
     /// times the rounding noise of chi2.
     pub(crate) fn end_check(&mut self, y: &[f64]) -> EndCheck {
-        let n = self.n;
-        let m = self.m;
         self.gradient_and_active();
-        let chi2: f64 = super::linalg::dot(&self.resid, &self.resid);
-        let varying = self.varies.iter().filter(|v| **v).count();
-        let dof = n.saturating_sub(varying);
-        let unit = if dof > 0 {
-            (chi2 / dof as f64).min(1.0)
-        } else {
-            1.0
-        };
-        let noise = self.chi2_noise(y);
-        let tolerance = (OPTIMALITY_TOLERANCE * OPTIMALITY_TOLERANCE * unit).max(16.0 * noise);
         // Unit-column scaling of the active columns, then QR and SVD.
-        for j in 0..m {
+        for j in 0..self.m {
             self.diag[j] = if self.colnorm[j] > 0.0 {
                 self.colnorm[j]
             } else {
@@ -332,6 +327,44 @@ impl Refitter {
             };
         }
         let (k, smax) = super::lm::factor(self);
+        self.assess(y, k, smax, None).unwrap_or_default()
+    }
+
+    /// The optimality tolerance of the end-point test at the current
+    /// point: [`OPTIMALITY_TOLERANCE`]^2 times the chi2 unit
+    /// `min(1, chi2 / dof)`, or sixteen times the rounding noise of chi2.
+    pub(crate) fn optimality_tolerance(&self, y: &[f64], chi2: f64) -> f64 {
+        self.tolerance_with_noise(chi2, self.chi2_noise(y))
+    }
+
+    /// [`Refitter::optimality_tolerance`] with the rounding noise of chi2
+    /// already computed.
+    pub(crate) fn tolerance_with_noise(&self, chi2: f64, noise: f64) -> f64 {
+        let varying = self.varies.iter().filter(|v| **v).count();
+        let dof = self.n.saturating_sub(varying);
+        let unit = if dof > 0 {
+            (chi2 / dof as f64).min(1.0)
+        } else {
+            1.0
+        };
+        (OPTIMALITY_TOLERANCE * OPTIMALITY_TOLERANCE * unit).max(16.0 * noise)
+    }
+
+    /// The end-point test from the factorisation of the active columns
+    /// now in the workspace (`factor` with any diagonal scaling in `diag`;
+    /// `active`, `grad`, `colnorm` current). With `only_if_optimal`, the
+    /// tolerance already known, returns None at once when the point fails
+    /// the optimality test (the cheap check of a running search).
+    pub(crate) fn assess(
+        &mut self,
+        y: &[f64],
+        k: usize,
+        smax: f64,
+        only_if_optimal: Option<f64>,
+    ) -> Option<EndCheck> {
+        let n = self.n;
+        let m = self.m;
+        let chi2: f64 = super::linalg::dot(&self.resid, &self.resid);
         let cut = crate::fit::RANK_TOLERANCE * smax;
         let mut rank = 0;
         let mut gn_decrease = 0.0;
@@ -344,6 +377,17 @@ impl Refitter {
         if chi2 == 0.0 {
             gn_decrease = 0.0;
         }
+        if let Some(tol) = only_if_optimal {
+            if gn_decrease > tol {
+                return None;
+            }
+        }
+        let tolerance = match only_if_optimal {
+            Some(t) => t,
+            None => self.optimality_tolerance(y, chi2),
+        };
+        let varying = self.varies.iter().filter(|v| **v).count();
+        let dof = n.saturating_sub(varying);
         // Size of the data, for the absolute plateau test.
         let mut ynorm = 0.0;
         for (v, w) in y.iter().zip(&self.inv_sigma) {
@@ -405,7 +449,7 @@ impl Refitter {
                 runaway.get_or_insert(j);
             }
         }
-        EndCheck {
+        Some(EndCheck {
             gn_decrease,
             tolerance,
             optimal: gn_decrease <= tolerance,
@@ -413,7 +457,7 @@ impl Refitter {
             runaway,
             rank,
             active: k,
-        }
+        })
     }
 
     /// Per-parameter flags of the last end-point test: 0 fine, 1 the

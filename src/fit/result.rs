@@ -262,6 +262,16 @@ pub const MAX_RESTARTS: usize = 8;
 /// fewer points than free parameters, a model not finite at the start.
 pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitResult, FitError> {
     check(problem, data, start)?;
+    // The full fit iterates to its tolerances and refines to rounding.
+    let precise = Problem {
+        model: problem.model,
+        params: problem.params.clone(),
+        options: super::FitOptions {
+            stop_at_optimality: false,
+            ..problem.options.clone()
+        },
+    };
+    let problem = &precise;
     let sigma = data.sigma_or_ones();
     let inv_sigma: Vec<f64> = sigma.iter().map(|s| 1.0 / s).collect();
     let xs = data.x_slices();

@@ -80,7 +80,10 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
             if end.optimal {
                 // The end check overwrote the active set and gradient with
                 // the same values; nothing else to restore.
-                return done(rf, chi2, true, StopReason::Gradient, iterations);
+                rf.end_ready = true;
+                let mut out = done(rf, chi2, true, StopReason::Gradient, iterations);
+                out.end = end;
+                return out;
             }
         }
         if iterations >= opts.max_iterations {

@@ -485,6 +485,7 @@ pub fn cooling() -> AuditResults {
         data,
         fit,
         curve: Some(curve),
+        reduction: None,
     }
 }
 

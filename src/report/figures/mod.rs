@@ -70,6 +70,20 @@ pub fn build(results: &AuditResults) -> Result<Figures, ReportError> {
     let mut list = Vec::new();
     list.extend(fit::figure(results)?);
     list.extend(residuals::figures(results)?);
+    if let Some(red) = &results.reduction {
+        for f in list
+            .iter_mut()
+            .filter(|f| f.file == "fit.svg" || f.file == "residuals_x.svg")
+        {
+            f.caption.push_str(&format!(
+                " Display reduction: {} of the {} points are drawn, the smallest and largest \
+                 response and residual of each of {} consecutive slices, so no outlier is hidden.",
+                red.kept,
+                red.points,
+                crate::reduction::BINS
+            ));
+        }
+    }
     for j in 0..results.fit.parameters.len() {
         list.extend(histogram::figure(results, j, names.stem(j))?);
     }

@@ -25,12 +25,40 @@ pub fn hazen_quantiles(n: usize) -> Vec<f64> {
 pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError> {
     let mut out = Vec::new();
     let drawn = plotted_residuals(results);
-    let mut r: Vec<f64> = drawn.iter().copied().filter(|v| v.is_finite()).collect();
-    if r.len() >= 3 {
-        r.sort_by(f64::total_cmp);
-        let q = hazen_quantiles(r.len());
-        let pts: Vec<(f64, f64)> = q.iter().copied().zip(r.iter().copied()).collect();
-        let lim = svg::extent(q.iter().chain(r.iter()).copied()).unwrap_or((-3.0, 3.0));
+    // (normal quantile, ordered residual) pairs and the residuals they
+    // stand for: all of them, or the order statistics a display reduction
+    // kept (every residual entered them).
+    let (pts, count): (Vec<(f64, f64)>, usize) = match &results.reduction {
+        Some(red) => {
+            let s = results.fit.reduced_chi2.sqrt();
+            let scale = if results.data.has_sigma() || !(s.is_finite() && s > 0.0) {
+                1.0
+            } else {
+                1.0 / s
+            };
+            let normal = statrs::distribution::Normal::new(0.0, 1.0).expect("unit normal");
+            let pts = red
+                .residual_quantiles
+                .iter()
+                .map(|[p, r]| {
+                    (
+                        statrs::distribution::ContinuousCDF::inverse_cdf(&normal, *p),
+                        r * scale,
+                    )
+                })
+                .collect();
+            (pts, red.points)
+        }
+        None => {
+            let mut r: Vec<f64> = drawn.iter().copied().filter(|v| v.is_finite()).collect();
+            r.sort_by(f64::total_cmp);
+            let q = hazen_quantiles(r.len());
+            let n = r.len();
+            (q.into_iter().zip(r).collect(), n)
+        }
+    };
+    if pts.len() >= 3 {
+        let lim = svg::extent(pts.iter().flat_map(|p| [p.0, p.1])).unwrap_or((-3.0, 3.0));
         let y_label = format!("ordered {}", residual_label(results));
         let text = svg::render("residuals_qq.svg", (560 + svg::LEGEND_WIDTH, 520), |root| {
             let (plot, side) = root.split_horizontally(560);
@@ -60,7 +88,7 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
                      plotting positions (i \u{2212} 0.5)/n. Points on the dashed line are what normally \
                      distributed residuals with the stated uncertainties give; a steeper line means \
                      larger scatter than the uncertainties say, curvature means heavy or skewed tails.",
-                    r.len()
+                    count
                 )
             } else {
                 format!(
@@ -69,12 +97,21 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
                      positions (i \u{2212} 0.5)/n. The dashed line is what normally distributed \
                      residuals give; its slope is 1 by construction, so only curvature (heavy or \
                      skewed tails) and outlying points carry information.",
-                    r.len(),
+                    count,
                     crate::report::format::sig(results.fit.reduced_chi2.sqrt(), 4)
                 )
             },
             svg: text,
         });
+        if let (Some(red), Some(f)) = (&results.reduction, out.last_mut()) {
+            f.caption.push_str(&format!(
+                " Drawn from {} order statistics of all {} residuals (the {} smallest and largest \
+                 of them whole).",
+                red.residual_quantiles.len(),
+                red.points,
+                crate::reduction::TAIL_POINTS
+            ));
+        }
     }
 
     let data = &results.data;
