@@ -47,7 +47,12 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let options = AuditOptions::default();
     let results = audit::run(&audit::input_from_study(&study), &options, &NoProgress)?;
     for v in &results.verdicts {
-        println!("{:<6} {:?}: {}", v.parameter, v.status, v.reasons.join(" "));
+        println!(
+            "{:<6} {:?}: {}",
+            v.parameter,
+            v.status,
+            fitaudit::report::findings::reasons(v).join(" ")
+        );
     }
     let dir = fitaudit::report::write_report(&results, Path::new("out/example-kinetics"), &options)?;
     println!("report written to {}", dir.display());

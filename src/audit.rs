@@ -240,6 +240,8 @@ pub fn run(
         profile: profile.as_ref(),
         multistart: multistart.as_ref(),
         tolerance: input.settings.tolerance,
+        sigma_given: input.data.has_sigma(),
+        level: input.settings.level,
     });
 
     let curve = model_curve(input.model, input.data, &audited);

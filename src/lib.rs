@@ -21,3 +21,4 @@ pub mod report;
 pub mod rng;
 pub mod settings;
 pub mod study;
+pub mod validation;

@@ -90,10 +90,19 @@ fn verdict_lines_lead_with_the_better_minimum() {
             fitaudit::report::format::chi2(ms.base_chi2)
         )
     );
-    assert_eq!(lines[1], "T&env  holds     a <b>bold</b> claim | with a pipe");
+    // Name, quote (first), status, first reason.
     assert_eq!(
-        lines[3],
-        "tau<1  doubtful  the profile interval is asymmetric (upper/lower = 0.89)"
+        lines[1],
+        "T&env  21.500 \u{b1} 0.047 [21.453, 21.547] (68.27 %, k = 1.00)  holds     bootstrap spread agrees \
+         with the analytic standard error within 20 % (robust SD 0.04793, ratio 1.03 to u, p = 0.520 \
+         against a correct u)"
+    );
+    assert!(
+        lines[3].starts_with("tau<1  profile [")
+            && lines[3]
+                .contains("doubtful  the profile interval's half-widths are 0.75 (below) and 1.30 (above)"),
+        "{}",
+        lines[3]
     );
     let plain = text::verdict_lines(&fixture::cooling());
     assert!(!plain.contains("WARNING"));

@@ -131,24 +131,29 @@ fn a_failing_render_leaves_no_folder() {
 #[test]
 fn summary_has_the_verdict_rows_and_escapes_pipes() {
     let s = markdown::summary(&fixture::cooling());
-    assert!(s.contains("| Parameter | Verdict | Reasons |\n|---|---|---|\n"));
+    assert!(s.contains("| Parameter | Quote | Verdict | Reasons |\n|---|---|---|---|\n"));
     assert!(s.contains(
-        "| tau | doubtful | the profile interval is asymmetric (upper/lower = 0.89); BCa and percentile intervals differ |"
+        "| doubtful | the profile interval's half-widths are 0.75 (below) and 1.30 (above) times the covariance \
+         half-width 1.313: they differ by more than 20 %; the bootstrap spread differs from the analytic \
+         standard error by 25 % (robust SD 1.642, ratio 1.25 to u, p = 1.0e-6 against a correct u), more than \
+         20 %: the quoted u is too small |"
     ));
-    assert!(s.contains("| T\\_env | holds |"));
+    assert!(s.contains("| T\\_env | 21.500 \u{b1} 0.047 \\[21.453, 21.547\\] (68.27 %, k = 1.00) | holds |"));
     assert!(s.contains("## Interval comparison (68.27 % level)"));
     assert!(s.contains("| tau | 340.0 | 1.3 |"), "comparison row");
     assert!(!s.contains("> **The base fit"));
 
     let h = markdown::summary(&fixture::hostile());
     assert!(h.starts_with("# Fit audit: &lt;script&gt;alert(1)&lt;/script&gt; &amp; \"quotes\" \\| pipes\n"));
-    assert!(h.contains("| T&amp;env | holds | a &lt;b&gt;bold&lt;/b&gt; claim \\| with a pipe |"));
+    assert!(
+        h.contains("| T&amp;env | 21.500 \u{b1} 0.047 \\[21.453, 21.547\\] (68.27 %, k = 1.00) | holds |")
+    );
     assert!(h.contains("> **The base fit is not the best minimum found.**"));
     // Every table row has as many unescaped separators as its header.
     for line in h.lines().filter(|l| l.starts_with('|')) {
         let cells = line.replace("\\|", "").matches('|').count();
-        // verdicts 3 columns, fit 6 (with U), comparison 14.
-        assert!(cells == 4 || cells == 7 || cells == 15, "{line}");
+        // verdicts 4 columns (quote first), fit 6 (with U), comparison 15.
+        assert!(cells == 5 || cells == 7 || cells == 16, "{line}");
     }
 }
 

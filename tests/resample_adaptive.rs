@@ -49,7 +49,7 @@ fn adaptive_trials_stop_when_the_uncertainties_are_stable() {
         adaptive_tolerance: tol,
         ..MonteCarloSettings::default()
     };
-    let r = monte_carlo::run_with(&ctx, &mc, false, &NoProgress);
+    let r = monte_carlo::run_with(&ctx, &mc, &NoProgress);
     assert_eq!(r.failed, 0);
     assert_eq!(r.adaptive_stable, Some(true));
     assert_eq!(r.run % h, 0, "stops at the end of a batch");
@@ -74,7 +74,7 @@ fn adaptive_trials_stop_when_the_uncertainties_are_stable() {
         adaptive_tolerance: 0.001,
         ..MonteCarloSettings::default()
     };
-    let r = monte_carlo::run_with(&ctx, &mc, false, &NoProgress);
+    let r = monte_carlo::run_with(&ctx, &mc, &NoProgress);
     assert_eq!(r.run, 3 * h + 50);
     assert_eq!(r.adaptive_stable, Some(false));
     // The non-adaptive run records no stability.
@@ -83,7 +83,7 @@ fn adaptive_trials_stop_when_the_uncertainties_are_stable() {
         ..MonteCarloSettings::default()
     };
     assert_eq!(
-        monte_carlo::run_with(&ctx, &plain, false, &NoProgress).adaptive_stable,
+        monte_carlo::run_with(&ctx, &plain, &NoProgress).adaptive_stable,
         None
     );
 }

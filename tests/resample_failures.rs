@@ -73,7 +73,7 @@ fn failed_refits_are_counted_listed_and_excluded() {
         replicates: B,
         ..MonteCarloSettings::default()
     };
-    let mc = monte_carlo::run_with(&ctx, &mc_settings, true, &NoProgress);
+    let mc = monte_carlo::run_with(&ctx, &mc_settings, &NoProgress);
     check_accounting(&mc);
     let bs_settings = BootstrapSettings {
         replicates: B,
@@ -107,21 +107,27 @@ fn failed_refits_are_counted_listed_and_excluded() {
         profile: None,
         multistart: None,
         tolerance: settings.tolerance,
+        sigma_given: true,
+        level: 0.6827,
     });
     assert_eq!(v.len(), 2);
     for vi in &v {
         assert!(vi.status >= Status::Doubtful, "{vi:?}");
         let want = format!("{} of {B} Monte Carlo refits failed", mc.failed);
         assert!(
-            vi.reasons.iter().any(|r| r.starts_with(&want)),
+            fitaudit::report::findings::reasons(vi)
+                .iter()
+                .any(|r| r.starts_with(&want)),
             "{:?}",
-            vi.reasons
+            fitaudit::report::findings::reasons(vi)
         );
         let want = format!("{} of {B} bootstrap refits failed", bs.failed);
         assert!(
-            vi.reasons.iter().any(|r| r.starts_with(&want)),
+            fitaudit::report::findings::reasons(vi)
+                .iter()
+                .any(|r| r.starts_with(&want)),
             "{:?}",
-            vi.reasons
+            fitaudit::report::findings::reasons(vi)
         );
     }
 }

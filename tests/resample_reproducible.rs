@@ -37,7 +37,7 @@ fn all_schemes(ctx: &Fitted) -> Vec<ResampleResult> {
             student_t_dof: t,
             ..MonteCarloSettings::default()
         };
-        out.push(monte_carlo::run_with(ctx, &s, true, &NoProgress));
+        out.push(monte_carlo::run_with(ctx, &s, &NoProgress));
     }
     let adaptive = MonteCarloSettings {
         replicates: 1000,
@@ -45,7 +45,7 @@ fn all_schemes(ctx: &Fitted) -> Vec<ResampleResult> {
         adaptive_tolerance: 0.3,
         ..MonteCarloSettings::default()
     };
-    out.push(monte_carlo::run_with(ctx, &adaptive, false, &NoProgress));
+    out.push(monte_carlo::run_with(ctx, &adaptive, &NoProgress));
     out
 }
 
@@ -153,6 +153,8 @@ fn progress_reaches_its_total() {
     // stops early.
     assert_eq!(c.starts.load(Ordering::SeqCst), 2);
     assert_eq!(c.finishes.load(Ordering::SeqCst), 2);
+    // The Monte Carlo runs no jackknife (BCa belongs to the bootstrap), and the
+    // bootstrap's acceleration comes from the linearised jackknife (no refits).
     assert_eq!(c.total.load(Ordering::SeqCst), 100 + 5000);
     assert_eq!(c.advanced.load(Ordering::SeqCst), 100 + 5000);
 }

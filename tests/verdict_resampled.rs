@@ -7,7 +7,8 @@
 //! adjusted weighted residuals, which estimates (true noise / stated
 //! sigma)^2; the Monte Carlo SD with the stated sigma equals the standard
 //! error. So stating sigma three times too small must make the bootstrap
-//! fail the +- while the Monte Carlo (which trusts sigma) agrees.
+//! (and chi2 against its dof) fail the +- while the Monte Carlo (which
+//! trusts sigma) agrees.
 
 mod resample_common;
 
@@ -38,7 +39,7 @@ fn understated_sigma_fails_by_bootstrap_and_correct_sigma_holds() {
         let fit = base_fit(&model, &params, &data);
         let ctx = fitted(&model, &params, &data, &fit, &settings);
         let b = bootstrap::run_with(&ctx, &bs, false, &NoProgress);
-        let m = monte_carlo::run_with(&ctx, &mc, false, &NoProgress);
+        let m = monte_carlo::run_with(&ctx, &mc, &NoProgress);
         let v = decide(&VerdictInputs {
             fit: &fit,
             bootstrap: Some(&b),
@@ -46,23 +47,35 @@ fn understated_sigma_fails_by_bootstrap_and_correct_sigma_holds() {
             profile: None,
             multistart: None,
             tolerance: settings.tolerance,
+            sigma_given: true,
+            level: 0.6827,
         });
         assert_eq!(v.len(), 2);
         for (j, vi) in v.iter().enumerate() {
-            eprintln!("factor {factor}: {:?} {:?}", vi.status, vi.reasons);
+            eprintln!(
+                "factor {factor}: {:?} {:?}",
+                vi.status,
+                fitaudit::report::findings::reasons(vi)
+            );
             assert_eq!(vi.status, want, "{vi:?}");
-            let ratio = b.parameters[j].sd_ratio.unwrap();
+            let ratio = b.parameters[j].robust_ratio.unwrap();
+            let reasons = fitaudit::report::findings::reasons(vi);
             if want == Status::Holds {
-                assert!(vi.reasons.iter().any(|r| r.starts_with("bootstrap SD agrees")));
-                assert!(vi.reasons.iter().any(|r| r.starts_with("Monte Carlo SD agrees")));
+                assert!(reasons.iter().any(|r| r.starts_with("bootstrap spread agrees")));
+                assert!(reasons.iter().any(|r| r.starts_with("Monte Carlo spread agrees")));
+                assert!(reasons.iter().any(|r| r.contains("agrees with the stated sigma")));
             } else {
-                // The reason quotes the ratio; the Monte Carlo does not object.
+                // Two objections: chi2 against its dof, and the bootstrap
+                // spread quoting its ratio; the Monte Carlo does not object.
                 assert!(ratio > 2.0, "ratio {ratio}");
-                assert_eq!(vi.reasons.len(), 1, "{:?}", vi.reasons);
+                assert_eq!(reasons.len(), 2, "{reasons:?}");
                 assert!(
-                    vi.reasons[0].contains(&format!("ratio {ratio:.2}")),
-                    "{:?}",
-                    vi.reasons
+                    reasons[0].contains("either the stated sigma or the model is wrong"),
+                    "{reasons:?}"
+                );
+                assert!(
+                    reasons[1].contains(&format!("ratio {ratio:.2} to u")),
+                    "{reasons:?}"
                 );
             }
         }

@@ -59,6 +59,7 @@ pub fn run_with(
             adaptive_stable: None,
             noise_scale: None,
             scatter_dof: (!ctx.fit.covariance_scaled).then_some(ctx.fit.dof),
+            jcgm: false,
         },
     )
 }

@@ -26,8 +26,10 @@
 //! comes first, and records [`ResampleResult::adaptive_stable`]. Only the
 //! standard uncertainties are checked (not the means or interval ends).
 //!
-//! **BCa** uses the same formula as the bootstrap, with the acceleration
-//! from the jackknife on the base data.
+//! **Intervals** are those of JCGM 101:2008 (5.3, computed as in 7.7):
+//! the probabilistically symmetric interval (`lower`, `upper`) and the
+//! shortest coverage interval (`shortest_lower`, `shortest_upper`). BCa
+//! belongs to the bootstrap: the Monte Carlo runs no jackknife.
 
 use rand::Rng;
 use rand_distr::{Distribution, StandardNormal, StudentT};
@@ -40,9 +42,9 @@ use crate::settings::MonteCarloSettings;
 /// Smallest adaptive batch (JCGM 101:2008, 7.2.2: at least 100/(1-p) trials).
 pub const MIN_BATCH: usize = 100;
 
-/// Runs the Monte Carlo refits with the study's settings, BCa included.
+/// Runs the Monte Carlo refits with the study's settings.
 pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ResampleResult {
-    run_with(ctx, &ctx.settings.monte_carlo, true, progress)
+    run_with(ctx, &ctx.settings.monte_carlo, progress)
 }
 
 /// The noise factor `s` (see the module documentation).
@@ -68,14 +70,8 @@ pub fn batch_size(level: f64) -> usize {
     }
 }
 
-/// Runs the Monte Carlo refits with the given settings; `bca = false`
-/// skips the linearised jackknife (no BCa interval).
-pub fn run_with(
-    ctx: &Fitted,
-    settings: &MonteCarloSettings,
-    bca: bool,
-    progress: &dyn Progress,
-) -> ResampleResult {
+/// Runs the Monte Carlo refits with the given settings.
+pub fn run_with(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Progress) -> ResampleResult {
     let max = settings.replicates;
     let scheme = if settings.student_t_dof.is_some() {
         "student-t"
@@ -89,7 +85,6 @@ pub fn run_with(
     } else {
         (trials(ctx, settings, 0..max, progress), None)
     };
-    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     progress.finish();
     resample::assemble(
         ctx,
@@ -97,10 +92,11 @@ pub fn run_with(
             scheme: scheme.to_string(),
             replicates: max,
             outcomes,
-            jackknife,
+            jackknife: None,
             adaptive_stable,
             noise_scale: Some(noise_scale(ctx)),
             scatter_dof: None,
+            jcgm: true,
         },
     )
 }

@@ -28,15 +28,46 @@
 //!   values of the linearised fit (`influence.rs`: one pass over the data,
 //!   no refits; [`jackknife`] keeps the refitted version), then the quantiles at
 //!   `Phi(z0 + (z0 + z_q) / (1 - a (z0 + z_q)))`. The same formula serves
-//!   the Monte Carlo (the jackknife is on the data in both cases). BCa is
-//!   `None` when a leave-one-out value failed (listed in
-//!   `jackknife_failures`), when every replicate lies on one side of the
-//!   estimate, or when `1 - a (z0 + z_q) <= 0`.
+//!   the bootstrap only (the Monte Carlo has the intervals of JCGM 101).
+//!   BCa is withheld (`None`, with the reason in `bca_withheld`) when a
+//!   leave-one-out value failed (listed in `jackknife_failures`), when every
+//!   replicate lies on one side of the estimate, when the bias correction
+//!   or the acceleration is degenerate (`|z0| >` [`BCA_Z0_LIMIT`], `|a| >`
+//!   [`BCA_ACCELERATION_LIMIT`] or `1 - a (z0 + z_q) <= 0`), when an end
+//!   would be read beyond the [`BCA_TAIL_REPLICATES`]-th replicate from
+//!   either extreme, or when the interval has zero width or does not
+//!   contain the estimate.
+//! - **Monte Carlo intervals** (JCGM 101:2008, 5.3 and 7.7): the
+//!   probabilistically symmetric interval `[y_(r), y_(r+q)]` with `q = pM`
+//!   rounded as in 7.7.2 and `r = (M - q)/2` (rounded up), and the
+//!   shortest coverage interval, the `[y_(r), y_(r+q)]` of least width over
+//!   `r` (7.7.3), both from the `M` sorted successful trials.
 //! - **Ratio.** `sd_ratio = std / analytic standard error`, with standard
 //!   uncertainty `sd_ratio / sqrt(2 (B - 1))` (the standard error of a
 //!   normal-sample standard deviation), `B` the successful replicates.
-//!   Whether a difference counts is decided by
+//! - **Robust spread.** `robust_std` is half the width of the central
+//!   68.27 % interval of the replicates (quantiles at `Phi(-1)` and
+//!   `Phi(1)`, the standard deviation for normal estimates), so that a few
+//!   runaway refits cannot move it; `robust_ratio = robust_std / u`. Its
+//!   distribution when the quoted `u` is right is summarised by `null_dof`:
+//!   `robust_ratio^2 * null_dof` is then approximately chi-squared with
+//!   `null_dof` degrees of freedom, `null_dof = 1 / (2 c / B + 1 / dof)`,
+//!   where `c = p (1 - 2p) / (2 phi(1)^2) = 0.925` (`p = Phi(-1)`) is the
+//!   relative variance of the half-width times `B` (asymptotic variance
+//!   and covariance of sample quantiles, Serfling 1980, "Approximation
+//!   Theorems of Mathematical Statistics", 2.3.3, from memory) and the
+//!   `1 / dof` term is present only when the spread follows the observed
+//!   residual scatter while `u` is absolute (bootstrap with stated sigma:
+//!   `chi2/dof` then scatters with relative variance `2 / dof`). The
+//!   approximation matches the two relative variances (Satterthwaite 1946,
+//!   Biometrics Bull. 2:110). Whether a difference counts is decided by
 //!   [`crate::diagnostics::verdict`].
+//! - **Runaways.** Replicates farther from the replicate median than
+//!   [`RUNAWAY_SPREADS`] robust spreads are counted in `runaways`; they
+//!   stay in every statistic (the robust spread ignores them).
+//! - **Percentile sanity.** `percentile_excludes_estimate` is true when
+//!   the base estimate lies outside the percentile interval: the fit is
+//!   unstable under resampling.
 //! - With fewer than two successful replicates the statistics are NaN
 //!   (serialised as null): there is nothing to summarise, and the failure
 //!   share makes the verdict fail.
@@ -97,6 +128,147 @@ pub struct ResampledParameter {
     pub acceleration: Option<f64>,
     /// Bias correction z0 of the BCa interval (None when not computed).
     pub bias_correction: Option<f64>,
+    /// Why the BCa interval is absent (None when it is given).
+    pub bca_withheld: Option<BcaWithheld>,
+    /// Half-width of the central 68.27 % interval of the replicates (a
+    /// robust standard deviation).
+    pub robust_std: f64,
+    /// `robust_std` / analytic standard error.
+    pub robust_ratio: Option<f64>,
+    /// Degrees of freedom of the approximate chi-squared law of
+    /// `robust_ratio^2 * null_dof` when the quoted uncertainty is right.
+    pub null_dof: Option<f64>,
+    /// Replicates farther than [`RUNAWAY_SPREADS`] robust spreads from the median.
+    pub runaways: usize,
+    /// The base estimate lies outside the percentile interval.
+    pub percentile_excludes_estimate: bool,
+    /// Shortest coverage interval at the level, lower end (Monte Carlo only).
+    pub shortest_lower: Option<f64>,
+    /// Shortest coverage interval, upper end (Monte Carlo only).
+    pub shortest_upper: Option<f64>,
+}
+
+/// Why a BCa interval is not given.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum BcaWithheld {
+    /// Not requested (no jackknife), or a Monte Carlo (BCa belongs to the bootstrap).
+    NotRequested,
+    /// A jackknife refit failed.
+    JackknifeFailed,
+    /// Every replicate lies on one side of the estimate.
+    OneSided,
+    /// `|z0|` beyond [`BCA_Z0_LIMIT`].
+    BiasCorrection,
+    /// `|a|` beyond [`BCA_ACCELERATION_LIMIT`] or `1 - a (z0 + z) <= 0`.
+    Acceleration,
+    /// An end would be read among the outermost [`BCA_TAIL_REPLICATES`] replicates.
+    ExtremeQuantile,
+    /// The interval has zero width.
+    ZeroWidth,
+    /// The interval does not contain the estimate.
+    ExcludesEstimate,
+    /// Too few successful replicates.
+    TooFewReplicates,
+}
+
+/// A bias correction beyond this (more than 84 % of the replicates on one
+/// side of the estimate) is degenerate: BCa theory takes `z0` small
+/// (Efron 1987, sec. 2). The limit is common practice, without a source.
+pub const BCA_Z0_LIMIT: f64 = 1.0;
+
+/// An acceleration beyond this is degenerate (Efron 1987 takes `a` of
+/// order `n^-1/2`). Common practice, without a source.
+pub const BCA_ACCELERATION_LIMIT: f64 = 0.25;
+
+/// A BCa end read within this many replicates of either extreme rests on
+/// too few replicates to be trusted (common practice, without a source).
+pub const BCA_TAIL_REPLICATES: f64 = 5.0;
+
+/// Replicates farther than this many robust spreads from the median are
+/// runaways (for normal estimates the chance is below 1e-20).
+pub const RUNAWAY_SPREADS: f64 = 10.0;
+
+/// Relative variance of the 68.27 % central half-width times the number
+/// of replicates, for normal estimates: `p (1 - 2p) / (2 phi(1)^2)`,
+/// `p = Phi(-1)` (see the module documentation).
+pub fn half_width_variance_factor() -> f64 {
+    let nd = std_normal();
+    let p = nd.cdf(-1.0);
+    let phi = (-0.5f64).exp() / (2.0 * std::f64::consts::PI).sqrt();
+    p * (1.0 - 2.0 * p) / (2.0 * phi * phi)
+}
+
+/// `null_dof` for `b` replicates and, when the residual scatter enters,
+/// its degrees of freedom.
+pub fn null_dof(b: usize, scatter_dof: Option<usize>) -> Option<f64> {
+    if b < 2 {
+        return None;
+    }
+    let scatter = scatter_dof.filter(|&d| d > 0).map_or(0.0, |d| 1.0 / d as f64);
+    Some(1.0 / (2.0 * half_width_variance_factor() / b as f64 + scatter))
+}
+
+/// Half-width of the central 68.27 % interval of sorted values.
+pub fn robust_spread(sorted: &[f64]) -> f64 {
+    let nd = std_normal();
+    let p = nd.cdf(-1.0);
+    0.5 * (quantile_sorted(sorted, 1.0 - p) - quantile_sorted(sorted, p))
+}
+
+/// Replicates farther than [`RUNAWAY_SPREADS`] `spread`s from the median.
+pub fn count_runaways(sorted: &[f64], spread: f64) -> usize {
+    if !(spread.is_finite() && spread > 0.0) {
+        return 0;
+    }
+    let median = quantile_sorted(sorted, 0.5);
+    sorted
+        .iter()
+        .filter(|v| (*v - median).abs() > RUNAWAY_SPREADS * spread)
+        .count()
+}
+
+/// The number `q` of JCGM 101:2008, 7.7.2: `pM` when an integer, else
+/// the integer part of `pM + 1/2`.
+fn jcgm_q(m: usize, level: f64) -> usize {
+    let pm = level * m as f64;
+    let q = if (pm - pm.round()).abs() < 1e-9 {
+        pm.round()
+    } else {
+        (pm + 0.5).floor()
+    };
+    (q as usize).min(m.saturating_sub(1))
+}
+
+/// Probabilistically symmetric coverage interval of sorted values (JCGM
+/// 101:2008, 7.7.2): `[y_(r), y_(r+q)]`, `r = (M - q)/2` when an
+/// integer, else `(M - q + 1)/2` (1-based order statistics).
+pub fn symmetric_interval(sorted: &[f64], level: f64) -> (f64, f64) {
+    let m = sorted.len();
+    if m < 2 {
+        return (f64::NAN, f64::NAN);
+    }
+    let q = jcgm_q(m, level);
+    let r = (m - q).div_ceil(2).max(1);
+    (sorted[r - 1], sorted[(r + q - 1).min(m - 1)])
+}
+
+/// Shortest coverage interval of sorted values (JCGM 101:2008, 7.7.3):
+/// the `[y_(r), y_(r+q)]` of least width over `r = 1, ..., M - q`.
+pub fn shortest_interval(sorted: &[f64], level: f64) -> (f64, f64) {
+    let m = sorted.len();
+    if m < 2 {
+        return (f64::NAN, f64::NAN);
+    }
+    let q = jcgm_q(m, level);
+    let mut best = (f64::INFINITY, 0usize);
+    for r in 0..(m - q) {
+        let w = sorted[r + q] - sorted[r];
+        if w < best.0 {
+            best = (w, r);
+        }
+    }
+    (sorted[best.1], sorted[best.1 + q])
 }
 
 /// Result of a resampling diagnostic.
@@ -372,6 +544,44 @@ pub fn bca_interval(sorted: &[f64], estimate: f64, acceleration: f64, level: f64
     Some((quantile_sorted(sorted, lo), quantile_sorted(sorted, hi)))
 }
 
+/// The BCa interval of sorted replicates with its sanity checks (see the
+/// module documentation): the interval, or why it is withheld.
+pub fn checked_bca(
+    sorted: &[f64],
+    estimate: f64,
+    z0: Option<f64>,
+    acceleration: Option<f64>,
+    level: f64,
+) -> (Option<(f64, f64)>, Option<BcaWithheld>) {
+    let Some(a) = acceleration else {
+        return (None, Some(BcaWithheld::JackknifeFailed));
+    };
+    let Some(z0) = z0 else {
+        return (None, Some(BcaWithheld::OneSided));
+    };
+    if z0.abs() > BCA_Z0_LIMIT {
+        return (None, Some(BcaWithheld::BiasCorrection));
+    }
+    if a.abs() > BCA_ACCELERATION_LIMIT {
+        return (None, Some(BcaWithheld::Acceleration));
+    }
+    let Some((pl, pu)) = bca_probabilities(z0, a, level) else {
+        return (None, Some(BcaWithheld::Acceleration));
+    };
+    let tail = BCA_TAIL_REPLICATES / sorted.len() as f64;
+    if pl < tail || pu > 1.0 - tail {
+        return (None, Some(BcaWithheld::ExtremeQuantile));
+    }
+    let (lo, hi) = (quantile_sorted(sorted, pl), quantile_sorted(sorted, pu));
+    if hi.is_nan() || lo.is_nan() || hi <= lo {
+        return (None, Some(BcaWithheld::ZeroWidth));
+    }
+    if estimate < lo || estimate > hi {
+        return (None, Some(BcaWithheld::ExcludesEstimate));
+    }
+    (Some((lo, hi)), None)
+}
+
 /// Pearson correlation matrix of the columns of `rows` (every row the same
 /// length). Columns listed in `constant` (or of zero variance) get 0 off
 /// the diagonal and 1 on it.
@@ -424,6 +634,9 @@ pub struct ParameterInfo<'a> {
     /// chance fluctuation of chi2/dof, relative uncertainty 1/sqrt(2 dof),
     /// besides that of the replicate count. None otherwise.
     pub scatter_dof: Option<usize>,
+    /// Monte Carlo: intervals of JCGM 101:2008 (probabilistically
+    /// symmetric and shortest), no BCa. Bootstrap: percentile and BCa.
+    pub jcgm: bool,
 }
 
 /// Per-parameter statistics and correlation of the successful replicates
@@ -459,30 +672,46 @@ pub fn summarise(
                 fixed: true,
                 acceleration: None,
                 bias_correction: None,
+                bca_withheld: None,
+                robust_std: 0.0,
+                robust_ratio: None,
+                null_dof: None,
+                runaways: 0,
+                percentile_excludes_estimate: false,
+                shortest_lower: None,
+                shortest_upper: None,
             });
             continue;
         }
         let mut col: Vec<f64> = rows.iter().map(|r| r[j]).collect();
         let (mean, std) = mean_std(&col);
         col.sort_by(f64::total_cmp);
-        let (lower, upper) = if b >= 2 {
-            percentile_interval(&col, level)
-        } else {
-            (f64::NAN, f64::NAN)
+        let (lower, upper) = match (b >= 2, info.jcgm) {
+            (false, _) => (f64::NAN, f64::NAN),
+            (true, true) => symmetric_interval(&col, level),
+            (true, false) => percentile_interval(&col, level),
         };
-        let acceleration = jackknife.and_then(|jk| {
+        let (shortest_lower, shortest_upper) = if info.jcgm && b >= 2 {
+            let (l, h) = shortest_interval(&col, level);
+            (Some(l), Some(h))
+        } else {
+            (None, None)
+        };
+        let acceleration = jackknife.filter(|_| !info.jcgm).and_then(|jk| {
             let vals: Vec<f64> = jk.iter().map(|r| r[j]).collect();
             jackknife_acceleration(&vals)
         });
-        let z0 = if b >= 2 {
+        let z0 = if b >= 2 && !info.jcgm {
             bias_correction(&col, estimate)
         } else {
             None
         };
-        let bca = match (acceleration, z0) {
-            (Some(a), Some(z0)) => bca_probabilities(z0, a, level)
-                .map(|(pl, pu)| (quantile_sorted(&col, pl), quantile_sorted(&col, pu))),
-            _ => None,
+        let (bca, bca_withheld) = if info.jcgm || jackknife.is_none() {
+            (None, Some(BcaWithheld::NotRequested))
+        } else if b < 2 {
+            (None, Some(BcaWithheld::TooFewReplicates))
+        } else {
+            checked_bca(&col, estimate, z0, acceleration, level)
         };
         let sd_ratio = match se {
             Some(s) if s > 0.0 && s.is_finite() && std.is_finite() => Some(std / s),
@@ -494,6 +723,12 @@ pub fn summarise(
             .map_or(0.0, |d| 1.0 / (2.0 * d as f64));
         let sd_ratio_uncertainty =
             sd_ratio.and_then(|r| (b >= 2).then(|| r * (1.0 / (2.0 * (b - 1) as f64) + scatter).sqrt()));
+        let robust_std = if b >= 2 { robust_spread(&col) } else { f64::NAN };
+        let robust_ratio = match se {
+            Some(s) if s > 0.0 && s.is_finite() && robust_std.is_finite() => Some(robust_std / s),
+            _ => None,
+        };
+        let runaways = count_runaways(&col, robust_std);
         let below = estimate - lower;
         let asymmetry = (below > 0.0 && (upper - estimate).is_finite()).then(|| (upper - estimate) / below);
         out.push(ResampledParameter {
@@ -513,6 +748,14 @@ pub fn summarise(
             fixed: false,
             acceleration,
             bias_correction: z0,
+            bca_withheld,
+            robust_std,
+            robust_ratio,
+            null_dof: robust_ratio.and_then(|_| null_dof(b, info.scatter_dof)),
+            runaways,
+            percentile_excludes_estimate: b >= 2 && (estimate < lower || estimate > upper),
+            shortest_lower,
+            shortest_upper,
         });
     }
     let constant: Vec<bool> = info.free.iter().map(|f| !f).collect();
@@ -554,6 +797,8 @@ pub struct Assembly {
     pub noise_scale: Option<f64>,
     /// See [`ParameterInfo::scatter_dof`].
     pub scatter_dof: Option<usize>,
+    /// See [`ParameterInfo::jcgm`].
+    pub jcgm: bool,
 }
 
 /// Builds the [`ResampleResult`] from replicate and jackknife outcomes.
@@ -568,6 +813,7 @@ pub fn assemble(ctx: &Fitted, a: Assembly) -> ResampleResult {
         std_errors: &std_errors,
         free: &free,
         scatter_dof: a.scatter_dof,
+        jcgm: a.jcgm,
     };
     let run = a.outcomes.len();
     let (rows, failures) = split_outcomes(a.outcomes, 0);
@@ -579,7 +825,14 @@ pub fn assemble(ctx: &Fitted, a: Assembly) -> ResampleResult {
         }
         None => (0, None, Vec::new()),
     };
-    let usable_jack = jack_rows.filter(|r| jackknife_failures.is_empty() && r.len() >= 2);
+    // A failed jackknife leaves no usable rows: BCa is then withheld as such.
+    let usable_jack = jack_rows.map(|r| {
+        if jackknife_failures.is_empty() && r.len() >= 2 {
+            r
+        } else {
+            Vec::new()
+        }
+    });
     let (parameters, correlation) = summarise(&info, &rows, usable_jack.as_deref(), ctx.settings.level);
     ResampleResult {
         scheme: a.scheme,
@@ -693,6 +946,7 @@ mod tests {
             std_errors: &[Some(2.0), None],
             free: &[true, false],
             scatter_dof: None,
+            jcgm: false,
         };
         let (p, c) = summarise(&info, &rows, None, 0.8);
         // With the residual scatter's own fluctuation (dof 10): r * sqrt(1/8 + 1/20).
@@ -713,5 +967,87 @@ mod tests {
         assert!(p[0].bca_lower.is_none(), "no jackknife, no BCa");
         assert!(p[1].fixed && p[1].std == 0.0 && p[1].lower == 7.0 && p[1].sd_ratio.is_none());
         assert_eq!(c, vec![vec![1.0, 0.0], vec![0.0, 1.0]]);
+    }
+
+    #[test]
+    fn jcgm_coverage_intervals() {
+        // JCGM 101:2008, 7.7.2 (from memory): M = 10, p = 0.8 -> q = 8,
+        // r = (10 - 8)/2 = 1: [y_(1), y_(9)]; p = 0.75 -> pM = 7.5, q = 8.
+        let y: Vec<f64> = (1..=10).map(f64::from).collect();
+        assert_eq!(symmetric_interval(&y, 0.8), (1.0, 9.0));
+        assert_eq!(symmetric_interval(&y, 0.75), (1.0, 9.0));
+        // p = 0.7 -> q = 7, (M - q)/2 = 1.5 not an integer -> r = 2: [y_(2), y_(9)].
+        assert_eq!(symmetric_interval(&y, 0.7), (2.0, 9.0));
+        // 7.7.3: the shortest of [y_(r), y_(r+q)]; a skewed sample puts it low.
+        let skew = [0.0, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 2.0, 5.0, 9.0];
+        assert_eq!(shortest_interval(&skew, 0.7), (0.0, 2.0));
+        assert_eq!(symmetric_interval(&skew, 0.7), (0.1, 5.0));
+    }
+
+    #[test]
+    fn robust_spread_and_its_null_variance() {
+        // p (1 - 2p) / (2 phi(1)^2) with p = Phi(-1) = 0.158655, phi(1) =
+        // 0.241971 (normal table, from memory): 0.92496.
+        assert!((half_width_variance_factor() - 0.92496).abs() < 1e-4);
+        // Without residual scatter nu = B / (2 c); with it 1/(2c/B + 1/dof).
+        let c = half_width_variance_factor();
+        assert!((null_dof(1000, None).unwrap() - 1000.0 / (2.0 * c)).abs() < 1e-9);
+        assert!((null_dof(1000, Some(20)).unwrap() - 1.0 / (2.0 * c / 1000.0 + 0.05)).abs() < 1e-9);
+        assert!(null_dof(1, None).is_none());
+        // Normal quantiles at Phi(-1), Phi(1) of a large normal sample: the
+        // half-width estimates the SD (identity); one runaway leaves it alone.
+        let mut rng = crate::rng::stream(5, crate::rng::Stream::Other(91), 0);
+        let mut v: Vec<f64> = (0..20_000)
+            .map(|_| rand::Rng::sample(&mut rng, rand_distr::StandardNormal))
+            .collect();
+        v.push(1e6);
+        v.sort_by(f64::total_cmp);
+        let hw = robust_spread(&v);
+        // SD of the half-width 0.96 / sqrt(20000) = 0.0068; 4 of them.
+        assert!((hw - 1.0).abs() < 0.028, "{hw}");
+        assert_eq!(count_runaways(&v, hw), 1);
+        assert!(mean_std(&v).1 > 5.0, "the plain SD is ruined by the runaway");
+    }
+
+    #[test]
+    fn bca_is_withheld_with_its_reason() {
+        let y: Vec<f64> = (0..1000).map(|i| i as f64 / 999.0).collect();
+        // All replicates above the estimate.
+        assert_eq!(
+            checked_bca(&y, -1.0, bias_correction(&y, -1.0), Some(0.0), 0.6827).1,
+            Some(BcaWithheld::OneSided)
+        );
+        // 95 % below the estimate: z0 = 1.64 is degenerate.
+        let est = 0.95;
+        assert_eq!(
+            checked_bca(&y, est, bias_correction(&y, est), Some(0.0), 0.6827).1,
+            Some(BcaWithheld::BiasCorrection)
+        );
+        assert_eq!(
+            checked_bca(&y, 0.5, bias_correction(&y, 0.5), Some(0.4), 0.6827).1,
+            Some(BcaWithheld::Acceleration)
+        );
+        assert_eq!(
+            checked_bca(&y, 0.5, bias_correction(&y, 0.5), None, 0.6827).1,
+            Some(BcaWithheld::JackknifeFailed)
+        );
+        // At 50 %, z_q = -0.674: with 80 % below the estimate z0 = 0.842 and
+        // the lower end reads Phi(2 z0 - 0.674) = 0.844 > 0.8, above the
+        // estimate: the interval excludes it.
+        let est = 0.8;
+        let z0 = bias_correction(&y, est);
+        assert_eq!(
+            checked_bca(&y, est, z0, Some(0.0), 0.5).1,
+            Some(BcaWithheld::ExcludesEstimate)
+        );
+        // Constant replicates: zero width.
+        let flat = vec![1.0; 100];
+        assert_eq!(
+            checked_bca(&flat, 1.0, Some(0.0), Some(0.0), 0.6827).1,
+            Some(BcaWithheld::ZeroWidth)
+        );
+        // A sound case: given.
+        let (iv, why) = checked_bca(&y, 0.5, bias_correction(&y, 0.5), Some(0.01), 0.6827);
+        assert!(why.is_none() && iv.unwrap().0 < 0.5 && iv.unwrap().1 > 0.5);
     }
 }

@@ -18,7 +18,8 @@ use crate::diagnostics::verdict::Status;
 use crate::report::figures::svg::inline;
 use crate::report::tables::{self, Table};
 use crate::report::{
-    better_minimum, format, profile_below_base, rebased_notice, Figures, Renderer, ReportError, CAUTION,
+    better_minimum, findings, format, profile_below_base, rebased_notice, Figures, Renderer, ReportError,
+    CAUTION,
 };
 
 /// Section headings of the page, in order (the lead notice is not a section).
@@ -205,26 +206,26 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     o.push_str(
         "<p>Does each quoted \u{b1} hold? <em>holds</em>: every diagnostic agrees with the analytic \
          standard error; <em>doubtful</em>: some diagnostic disagrees clearly, or a warning applies; \
-         <em>fails</em>: the \u{b1} cannot be trusted.</p>\n",
+         <em>fails</em>: the \u{b1} cannot be trusted. <em>Quote</em> is the interval to quote: \
+         value \u{b1} k u when the verdict holds, the profile interval when the profile disagrees with \
+         the parabola, none (with the reason) when no interval can be recommended.</p>\n",
     );
-    o.push_str("<table>\n<thead><tr><th scope=\"col\">Parameter</th><th scope=\"col\">Verdict</th><th scope=\"col\">Reasons</th></tr></thead>\n<tbody>\n");
+    o.push_str("<table>\n<thead><tr><th scope=\"col\">Parameter</th><th scope=\"col\">Quote</th><th scope=\"col\">Verdict</th><th scope=\"col\">Reasons</th></tr></thead>\n<tbody>\n");
     for v in &results.verdicts {
-        let reasons = if v.reasons.is_empty() {
+        let texts = findings::reasons(v);
+        let reasons = if texts.is_empty() {
             format::ABSENT.to_string()
-        } else if v.reasons.len() == 1 {
-            escape(&v.reasons[0])
+        } else if texts.len() == 1 {
+            escape(&texts[0])
         } else {
-            let items: Vec<String> = v
-                .reasons
-                .iter()
-                .map(|r| format!("<li>{}</li>", escape(r)))
-                .collect();
+            let items: Vec<String> = texts.iter().map(|r| format!("<li>{}</li>", escape(r))).collect();
             format!("<ul>{}</ul>", items.join(""))
         };
         let _ = writeln!(
             o,
-            "<tr><th scope=\"row\">{}</th><td>{}</td><td>{reasons}</td></tr>",
+            "<tr><th scope=\"row\">{}</th><td>{}</td><td>{}</td><td>{reasons}</td></tr>",
             escape(&v.parameter),
+            escape(&findings::quote_cell(results, v)),
             status_cell(v.status)
         );
     }

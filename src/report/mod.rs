@@ -21,12 +21,14 @@ use crate::output::{OutputError, Staging};
 
 pub mod csv;
 pub mod figures;
+pub mod findings;
 pub mod format;
 pub mod html;
 pub mod json;
 pub mod markdown;
 pub mod tables;
 pub mod text;
+pub mod validation;
 
 pub use figures::{Figure, Figures};
 

@@ -6,10 +6,10 @@ use std::collections::BTreeMap;
 
 use crate::audit::AuditResults;
 use crate::diagnostics::profile::EndStatus;
-use crate::diagnostics::resample::{ResampleResult, ResampledParameter};
+use crate::diagnostics::resample::{BcaWithheld, ResampleResult, ResampledParameter};
 use crate::diagnostics::verdict::Status;
 use crate::fit::{CoverageBasis, EndIssue, FitResult, ParamResult, StopReason};
-use crate::report::format;
+use crate::report::{findings, format};
 use crate::settings::{BootstrapScheme, WildWeights};
 
 /// A table: header cells and rows of cells.
@@ -135,21 +135,24 @@ pub fn end_issue_words(fit: &FitResult) -> Vec<String> {
         .collect()
 }
 
-/// The verdict table: parameter, status, reasons (joined by "; ").
+/// The verdict table: parameter, the interval to quote, status, reasons
+/// (joined by "; ").
 pub fn verdicts(results: &AuditResults) -> Table {
     Table {
-        header: vec![s("Parameter"), s("Verdict"), s("Reasons")],
+        header: vec![s("Parameter"), s("Quote"), s("Verdict"), s("Reasons")],
         rows: results
             .verdicts
             .iter()
             .map(|v| {
+                let reasons = findings::reasons(v);
                 vec![
                     v.parameter.clone(),
+                    findings::quote_cell(results, v),
                     s(status_word(v.status)),
-                    if v.reasons.is_empty() {
+                    if reasons.is_empty() {
                         s(format::ABSENT)
                     } else {
-                        v.reasons.join("; ")
+                        reasons.join("; ")
                     },
                 ]
             })
@@ -280,6 +283,27 @@ fn interval(lo: f64, hi: f64, se: Option<f64>) -> String {
     )
 }
 
+/// Why a BCa interval is withheld, in words.
+pub fn bca_withheld_words(w: BcaWithheld) -> &'static str {
+    match w {
+        BcaWithheld::NotRequested => "not requested",
+        BcaWithheld::JackknifeFailed => "a jackknife refit failed",
+        BcaWithheld::OneSided => "every replicate lies on one side of the estimate",
+        BcaWithheld::BiasCorrection => "degenerate bias correction",
+        BcaWithheld::Acceleration => "degenerate acceleration",
+        BcaWithheld::ExtremeQuantile => "an end falls among the outermost replicates",
+        BcaWithheld::ZeroWidth => "zero width",
+        BcaWithheld::ExcludesEstimate => "it does not contain the estimate",
+        BcaWithheld::TooFewReplicates => "too few replicates",
+    }
+}
+
+/// The robust SD ratio with its standard uncertainty under a correct u,
+/// `1 / sqrt(2 null_dof)`.
+fn robust_ratio_cell(p: &ResampledParameter) -> String {
+    ratio_pm(p.robust_ratio, p.null_dof.map(|nu| (0.5 / nu).sqrt()))
+}
+
 fn ratio_pm(r: Option<f64>, u: Option<f64>) -> String {
     match (r, u) {
         (Some(r), Some(u)) => format!("{} \u{b1} {}", format::ratio(r), format::sig(u, 2)),
@@ -318,7 +342,7 @@ fn profile_end(x: f64, found: bool, status: EndStatus, se: Option<f64>) -> Strin
 /// Carlo and profile uncertainties at the study's level, and their ratios
 /// to the analytic ones.
 pub fn comparison(results: &AuditResults) -> Table {
-    let k = results.fit.coverage_factor;
+    let k = crate::diagnostics::verdict::coverage_factor(&results.fit, results.settings.level);
     let header = vec![
         s("Parameter"),
         s("Value"),
@@ -327,10 +351,11 @@ pub fn comparison(results: &AuditResults) -> Table {
         s("Bootstrap SD"),
         s("Bootstrap percentile"),
         s("Bootstrap BCa"),
-        s("Bootstrap SD / u"),
+        s("Bootstrap robust SD / u"),
         s("Monte Carlo SD"),
-        s("Monte Carlo interval"),
-        s("Monte Carlo SD / u"),
+        s("Monte Carlo interval (symmetric)"),
+        s("Monte Carlo interval (shortest)"),
+        s("Monte Carlo robust SD / u"),
         s("Profile interval"),
         format!("Profile half-width / ({}u)", format::sig(k, 3)),
         s("Profile asymmetry"),
@@ -349,11 +374,12 @@ pub fn comparison(results: &AuditResults) -> Table {
             Some(b) => {
                 row.push(format::at_precision_of(b.std, se.or(Some(b.std))));
                 row.push(interval(b.lower, b.upper, se));
-                row.push(match (b.bca_lower, b.bca_upper) {
-                    (Some(l), Some(h)) => interval(l, h, se),
+                row.push(match (b.bca_lower, b.bca_upper, b.bca_withheld) {
+                    (Some(l), Some(h), _) => interval(l, h, se),
+                    (_, _, Some(w)) => format!("withheld: {}", bca_withheld_words(w)),
                     _ => absent(),
                 });
-                row.push(ratio_pm(b.sd_ratio, b.sd_ratio_uncertainty));
+                row.push(robust_ratio_cell(b));
             }
             None => row.extend([absent(), absent(), absent(), absent()]),
         }
@@ -361,9 +387,13 @@ pub fn comparison(results: &AuditResults) -> Table {
             Some(m) => {
                 row.push(format::at_precision_of(m.std, se.or(Some(m.std))));
                 row.push(interval(m.lower, m.upper, se));
-                row.push(ratio_pm(m.sd_ratio, m.sd_ratio_uncertainty));
+                row.push(match (m.shortest_lower, m.shortest_upper) {
+                    (Some(l), Some(h)) => interval(l, h, se),
+                    _ => absent(),
+                });
+                row.push(robust_ratio_cell(m));
             }
-            None => row.extend([absent(), absent(), absent()]),
+            None => row.extend([absent(), absent(), absent(), absent()]),
         }
         match results
             .profile
@@ -426,6 +456,18 @@ pub fn failures(results: &AuditResults) -> Table {
                 } else {
                     " (BCa interval not computed)"
                 }
+            ));
+        }
+        let runaways: Vec<String> = rs
+            .parameters
+            .iter()
+            .filter(|p| p.runaways > 0)
+            .map(|p| format!("{} {}", p.name, p.runaways))
+            .collect();
+        if !runaways.is_empty() {
+            details.push(format!(
+                "runaway refits (kept, ignored by the robust spread): {}",
+                runaways.join(", ")
             ));
         }
         if let Some(ns) = rs.noise_scale {

@@ -9,7 +9,7 @@ use crate::audit::AuditResults;
 use crate::fit::{FitResult, ParamSpec};
 use crate::model::FunctionInfo;
 use crate::report::tables::{self, relative_error, status_word, stop_words};
-use crate::report::{better_minimum, format, profile_below_base, rebased_notice};
+use crate::report::{better_minimum, findings, format, profile_below_base, rebased_notice};
 
 /// Lays out rows in columns separated by two spaces; columns listed in
 /// `right` are right-aligned. Trailing spaces are trimmed.
@@ -137,7 +137,8 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
     out
 }
 
-/// One line per parameter: name, status, first reason; led by a warning
+/// One line per parameter: name, the interval to quote, status, first
+/// reason; led by a warning
 /// line when the multi-start search found a better minimum than the base fit.
 pub fn verdict_lines(results: &AuditResults) -> String {
     let mut out = String::new();
@@ -168,8 +169,9 @@ pub fn verdict_lines(results: &AuditResults) -> String {
         .map(|v| {
             vec![
                 v.parameter.clone(),
+                findings::quote_cell(results, v),
                 status_word(v.status).to_string(),
-                v.reasons
+                findings::reasons(v)
                     .first()
                     .cloned()
                     .unwrap_or_else(|| format::ABSENT.to_string()),

@@ -20,7 +20,7 @@ use fitaudit::diagnostics::multistart::{
 };
 use fitaudit::diagnostics::profile::{EndStatus, ParameterProfile, ProfileResult};
 use fitaudit::diagnostics::resample::{FailedReplicate, ResampleResult, ResampledParameter};
-use fitaudit::diagnostics::verdict::{Status, Verdict};
+use fitaudit::diagnostics::verdict::{Finding, Quote, QuoteKind, Rule, Source, Status, Verdict};
 use fitaudit::fit::{FitResult, ParamResult, ParamSpec, StopReason};
 use fitaudit::rng::{self, Stream};
 use fitaudit::settings::{AuditSettings, Diagnostic};
@@ -117,6 +117,14 @@ fn resample(
             fixed: false,
             acceleration: Some(0.004 * (j as f64 + 1.0)),
             bias_correction: Some(-0.02 * j as f64),
+            bca_withheld: None,
+            robust_std: 0.5 * (upper - lower),
+            robust_ratio: Some(0.5 * (upper - lower) / se[j]),
+            null_dof: fitaudit::diagnostics::resample::null_dof(n, None),
+            runaways: 0,
+            percentile_excludes_estimate: false,
+            shortest_lower: (scheme == "normal").then_some(lower - 0.01 * std),
+            shortest_upper: (scheme == "normal").then_some(upper - 0.01 * std),
         });
     }
     let mut corr = vec![vec![0.0; 3]; 3];
@@ -473,35 +481,122 @@ pub fn cooling() -> AuditResults {
         profile: Some(profile(&cov, &se, chi2)),
         contours: Some(contours(&cov, &se, chi2)),
         multistart: Some(multistart(chi2, &se)),
-        verdicts: vec![
-            Verdict {
-                parameter: "T_env".into(),
-                status: Status::Holds,
-                reasons: vec![
-                    "bootstrap, Monte Carlo and profile agree with the analytic +- within 20 %".into(),
-                ],
-            },
-            Verdict {
-                parameter: "dT".into(),
-                status: Status::Holds,
-                reasons: vec![
-                    "bootstrap, Monte Carlo and profile agree with the analytic +- within 20 %".into(),
-                ],
-            },
-            Verdict {
-                parameter: "tau".into(),
-                status: Status::Doubtful,
-                reasons: vec![
-                    "the profile interval is asymmetric (upper/lower = 0.89)".into(),
-                    "BCa and percentile intervals differ".into(),
-                ],
-            },
-        ],
+        verdicts: verdicts(&se, level),
         data,
         fit,
         curve: Some(curve),
         reduction: None,
     }
+}
+
+fn finding(rule: Rule, diagnostic: Source, status: Status, numbers: &[(&str, f64)]) -> Finding {
+    Finding {
+        rule,
+        diagnostic,
+        status,
+        numbers: numbers.iter().map(|(k, v)| (k.to_string(), *v)).collect(),
+        detail: None,
+    }
+}
+
+/// Hand-made verdicts: T_env and dT hold (analytic quote), tau is doubtful
+/// by its profile half-widths and its bootstrap spread (profile quote).
+fn verdicts(se: &[f64], level: f64) -> Vec<Verdict> {
+    let agree = |j: usize| {
+        vec![
+            finding(
+                Rule::SpreadRatio,
+                Source::Bootstrap,
+                Status::Holds,
+                &[
+                    ("ratio", 1.03),
+                    ("robust_std", 1.03 * se[j]),
+                    ("std", 1.04 * se[j]),
+                    ("null_dof", 216.2),
+                    ("p_value", 0.52),
+                    ("clear_p", 0.001),
+                    ("tolerance", 0.2),
+                ],
+            ),
+            finding(
+                Rule::GoodnessOfFit,
+                Source::Fit,
+                Status::Holds,
+                &[
+                    ("chi2", 30.1),
+                    ("dof", 33.0),
+                    ("birge_ratio", (30.1f64 / 33.0).sqrt()),
+                    ("p_value", 0.78),
+                    ("clear_p", 0.001),
+                    ("tolerance", 0.2),
+                ],
+            ),
+        ]
+    };
+    let quote = |j: usize| {
+        Some(Quote {
+            kind: QuoteKind::Analytic,
+            lower: VALUES[j] - se[j],
+            upper: VALUES[j] + se[j],
+            level,
+        })
+    };
+    vec![
+        Verdict {
+            parameter: "T_env".into(),
+            status: Status::Holds,
+            quote: quote(0),
+            no_quote: None,
+            findings: agree(0),
+        },
+        Verdict {
+            parameter: "dT".into(),
+            status: Status::Holds,
+            quote: quote(1),
+            no_quote: None,
+            findings: agree(1),
+        },
+        Verdict {
+            parameter: "tau".into(),
+            status: Status::Doubtful,
+            quote: Some(Quote {
+                kind: QuoteKind::Profile,
+                lower: VALUES[2] - 0.75 * se[2],
+                upper: VALUES[2] + 1.3 * se[2],
+                level,
+            }),
+            no_quote: None,
+            findings: vec![
+                finding(
+                    Rule::ProfileHalfWidths,
+                    Source::Profile,
+                    Status::Doubtful,
+                    &[
+                        ("ratio_below", 0.75),
+                        ("ratio_above", 1.3),
+                        ("covariance_half_width", se[2]),
+                        ("tolerance", 0.2),
+                        ("fail_low", 0.5),
+                        ("fail_high", 2.0),
+                    ],
+                ),
+                finding(
+                    Rule::SpreadRatio,
+                    Source::Bootstrap,
+                    Status::Doubtful,
+                    &[
+                        ("ratio", 1.25),
+                        ("robust_std", 1.25 * se[2]),
+                        ("std", 1.3 * se[2]),
+                        ("null_dof", 216.2),
+                        ("p_value", 1e-6),
+                        ("clear_p", 0.001),
+                        ("tolerance", 0.2),
+                    ],
+                ),
+            ],
+        },
+    ]
 }
 
 /// The parameter specs of the cooling study.
@@ -561,7 +656,6 @@ pub fn hostile() -> AuditResults {
     r.provenance.command_line = "fitaudit audit '<script>x</script>' --out \"a&b\"".into();
     r.data.x_names = vec!["t <s>".into()];
     r.data.y_name = "temp|&C".into();
-    r.verdicts[0].reasons = vec!["a <b>bold</b> claim | with a pipe".into()];
     let ms = r.multistart.as_mut().unwrap();
     ms.base_is_best = false;
     ms.audited_is_best = false;
@@ -600,7 +694,7 @@ pub fn fit_only() -> AuditResults {
     r.multistart = None;
     for v in &mut r.verdicts {
         v.status = Status::Holds;
-        v.reasons = vec!["no diagnostic ran".into()];
+        v.findings.clear();
     }
     r
 }
