@@ -4,22 +4,34 @@
 use fitaudit::fit::{DataView, FitOptions, Method, ParamSpec, Problem, Refitter};
 use fitaudit::model::{compile, ModelFn, NativeModel, Symbols};
 use std::alloc::{GlobalAlloc, Layout, System};
-use std::sync::atomic::{AtomicUsize, Ordering};
+use std::cell::Cell;
 
 struct Counting;
 
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+thread_local! {
+    /// Allocations made by this thread (the test harness's own threads
+    /// allocate at times of their own; only the refitting thread counts).
+    static ALLOCATIONS: Cell<usize> = const { Cell::new(0) };
+}
+
+fn bump() {
+    let _ = ALLOCATIONS.try_with(|c| c.set(c.get() + 1));
+}
+
+fn allocations() -> usize {
+    ALLOCATIONS.with(|c| c.get())
+}
 
 unsafe impl GlobalAlloc for Counting {
     unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        bump();
         System.alloc(layout)
     }
     unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
         System.dealloc(ptr, layout)
     }
     unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        bump();
         System.realloc(ptr, layout, new_size)
     }
 }
@@ -70,7 +82,7 @@ fn count_refit_allocations(model: &dyn ModelFn, options: FitOptions) -> (usize, 
     let mut rf = Refitter::new(&problem, t.len());
     // First refit may grow the model's scratch.
     rf.refit(&problem, &view, &start, &free);
-    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    let before = allocations();
     let mut ok = true;
     for _ in 0..5 {
         let r = rf.refit(&problem, &view, &start, &free);
@@ -78,11 +90,15 @@ fn count_refit_allocations(model: &dyn ModelFn, options: FitOptions) -> (usize, 
         let r = rf.refit(&problem, &view, &start, &[true, false, true, true]);
         ok &= r.converged;
     }
-    (ALLOCATIONS.load(Ordering::SeqCst) - before, ok)
+    (allocations() - before, ok)
 }
 
 #[test]
 fn refits_allocate_nothing() {
+    // The counter sees this thread's allocations.
+    let a0 = allocations();
+    drop(std::hint::black_box(Vec::<u64>::with_capacity(16)));
+    assert!(allocations() > a0, "the counting allocator is not in use");
     let native = NativeModel::new(4, decay);
     let p: Vec<String> = ["a1", "k1", "a2", "k2"].iter().map(|s| s.to_string()).collect();
     let v = vec!["t".to_string()];
