@@ -72,6 +72,52 @@ pub(crate) fn jacobi_svd(w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64]) 
             v[j * k + i] = if i == j { 1.0 } else { 0.0 };
         }
     }
+    jacobi_sweeps(w, k, v, s, f64::EPSILON);
+}
+
+/// Eigen-decomposition of the symmetric `k x k` matrix `a` (column-major)
+/// by one-sided Jacobi rotations started from the orthonormal basis in
+/// `v` (for instance the eigenvectors of a nearby matrix, which leaves
+/// only a sweep or two): on exit `v` holds the eigenvectors as columns,
+/// `s` the absolute eigenvalues and `w` the product `a v`. `a` is read
+/// only. Falls back to the identity start when `v` is not orthonormal to
+/// 1e-12. The rotations stop once every pair of columns of `w` is
+/// orthogonal to `tol` relative to their norms.
+pub(crate) fn jacobi_eigen_from(a: &[f64], w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64], tol: f64) {
+    let mut orthonormal = true;
+    'check: for p in 0..k {
+        for q in p..k {
+            let d = dot(&v[p * k..p * k + k], &v[q * k..q * k + k]);
+            let want = if p == q { 1.0 } else { 0.0 };
+            if (d - want).abs().is_nan() || (d - want).abs() > 1e-12 {
+                orthonormal = false;
+                break 'check;
+            }
+        }
+    }
+    if !orthonormal {
+        for j in 0..k {
+            for i in 0..k {
+                v[j * k + i] = if i == j { 1.0 } else { 0.0 };
+            }
+        }
+    }
+    // w = a v
+    for j in 0..k {
+        for i in 0..k {
+            let mut t = 0.0;
+            for l in 0..k {
+                t += a[l * k + i] * v[j * k + l];
+            }
+            w[j * k + i] = t;
+        }
+    }
+    jacobi_sweeps(w, k, v, s, tol);
+}
+
+/// The rotations of [`jacobi_svd`] on `w` (accumulated into `v`) until
+/// every pair of columns is orthogonal to `tol` relative to their norms.
+fn jacobi_sweeps(w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64], tol: f64) {
     for (i, si) in s.iter_mut().enumerate().take(k) {
         let c = &w[i * k..i * k + k];
         *si = dot(c, c);
@@ -84,7 +130,7 @@ pub(crate) fn jacobi_svd(w: &mut [f64], k: usize, v: &mut [f64], s: &mut [f64]) 
             for q in (p + 1)..k {
                 let (alpha, beta) = (s[p], s[q]);
                 let gamma = dot(&w[p * k..p * k + k], &w[q * k..q * k + k]);
-                if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
+                if gamma == 0.0 || gamma.abs() <= tol * (alpha * beta).sqrt() {
                     continue;
                 }
                 rotated = true;

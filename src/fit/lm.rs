@@ -13,7 +13,7 @@
 //! active set: a parameter on a bound whose descent direction points out of
 //! the box is left out of the step.
 
-use super::linalg::{apply_qt, dot, extract_r, householder_qr, jacobi_svd, norm2};
+use super::linalg::{apply_qt, dot, extract_r, householder_qr, jacobi_eigen_from, jacobi_svd, norm2};
 use super::refitter::Refitter;
 use super::{DataView, Problem, Refit, StopReason};
 
@@ -299,7 +299,29 @@ fn factor_normal(rf: &mut Refitter) -> Option<(usize, f64)> {
     if !w.iter().chain(b.iter()).all(|v| v.is_finite()) {
         return None;
     }
-    jacobi_svd(w, k, &mut rf.v[..k * k], &mut rf.s[..k]);
+    // Eigenvectors of A, started from the last factorisation's of the same
+    // refit when it had the same active columns (consecutive iterations
+    // move A little, so a sweep or two suffices).
+    let warm = rf.warm_active.as_slice() == rf.active.as_slice();
+    if !warm {
+        rf.v[..k * k].iter_mut().for_each(|x| *x = 0.0);
+        for i in 0..k {
+            rf.v[i * k + i] = 1.0;
+        }
+    }
+    rf.normal[..k * k].copy_from_slice(&w[..k * k]);
+    // The eigenvectors need only the accuracy of the normal equations
+    // themselves (about 1e-8 of the step).
+    jacobi_eigen_from(
+        &rf.normal[..k * k],
+        w,
+        k,
+        &mut rf.v[..k * k],
+        &mut rf.s[..k],
+        1e-10,
+    );
+    rf.warm_active.clear();
+    rf.warm_active.extend_from_slice(&rf.active);
     let lmax = rf.s[..k].iter().fold(0.0f64, |a, &x| a.max(x));
     let lmin = rf.s[..k].iter().fold(f64::INFINITY, |a, &x| a.min(x));
     if !(lmax > 0.0 && lmin > NORMAL_EIGEN_RATIO * lmax) {

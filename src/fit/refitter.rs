@@ -78,6 +78,12 @@ pub struct Refitter {
     pub(crate) sd_scale: Vec<f64>,
     /// The factorisation must keep `Q` and `U` (geodesic acceleration).
     pub(crate) need_qr: bool,
+    /// Copy of the scaled normal matrix of the last normal-equations
+    /// factorisation (m x m).
+    pub(crate) normal: Vec<f64>,
+    /// Active columns of the last normal-equations factorisation, whose
+    /// eigenvectors in `v` start the next one.
+    pub(crate) warm_active: Vec<usize>,
     /// The method already ran the end-point test at its end point (the
     /// result is in the returned [`Refit`]).
     pub(crate) end_ready: bool,
@@ -129,6 +135,8 @@ impl Refitter {
             sd_scale: Vec::new(),
             end_ready: false,
             need_qr: false,
+            normal: Vec::new(),
+            warm_active: Vec::new(),
             evaluations: 0,
         };
         r.resize(n_points, m);
@@ -162,9 +170,11 @@ impl Refitter {
         for b in [&mut self.jac, &mut self.trial_jac, &mut self.qr] {
             b.resize(n * m, 0.0);
         }
-        for b in [&mut self.w, &mut self.v] {
+        for b in [&mut self.w, &mut self.v, &mut self.normal] {
             b.resize(m * m, 0.0);
         }
+        self.warm_active.clear();
+        self.warm_active.reserve(m);
         for b in [
             &mut self.rdiag,
             &mut self.beta,
@@ -246,6 +256,10 @@ impl Refitter {
         self.colnorm0.iter_mut().for_each(|c| *c = 0.0);
         self.end_flags.iter_mut().for_each(|f| *f = 0);
         self.end_ready = false;
+        // Warm starts of the eigen-decomposition stay within one refit, so
+        // that a refit's result does not depend on what the workspace did
+        // before (thread-count independence).
+        self.warm_active.clear();
         self.need_qr = problem.options.geodesic && problem.options.method == Method::Lm;
         let mut out = match problem.options.method {
             Method::Lm => super::lm::run(self, problem, data),
