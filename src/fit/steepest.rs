@@ -42,7 +42,6 @@ const MAX_GROWTH: f64 = 64.0;
 pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refit {
     let opts = &problem.options;
     let model = problem.model;
-    let n = rf.n;
     let m = rf.m;
     let ftol = opts.ftol.max(EPS);
     let xtol = opts.xtol.max(EPS);
@@ -156,7 +155,6 @@ pub(crate) fn run(rf: &mut Refitter, problem: &Problem, data: &DataView) -> Refi
             }
             tries += 1;
         }
-        let _ = n;
     }
 }
 
