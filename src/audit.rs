@@ -4,6 +4,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::data::Dataset;
+use crate::diagnostics::bands::Bands;
 use crate::diagnostics::contour::ContourResult;
 use crate::diagnostics::multistart::MultistartResult;
 use crate::diagnostics::profile::ProfileResult;
@@ -125,6 +126,11 @@ pub struct AuditResults {
     pub rebased: bool,
     /// The fitted curve, for one independent variable.
     pub curve: Option<Curve>,
+    /// Confidence and prediction bands on the curve's grid (one
+    /// independent variable only); the resampled bands when the bootstrap
+    /// or the Monte Carlo ran.
+    #[serde(default)]
+    pub bands: Option<Bands>,
     /// Bootstrap.
     pub bootstrap: Option<ResampleResult>,
     /// Monte Carlo.
@@ -245,6 +251,16 @@ pub fn run(
     });
 
     let curve = model_curve(input.model, input.data, &audited);
+    let bands = curve.as_ref().and_then(|c| {
+        diagnostics::bands::compute(
+            input.model,
+            input.data,
+            &audited,
+            &c.x,
+            bootstrap.as_ref(),
+            monte_carlo.as_ref(),
+        )
+    });
     drop(ctx);
     let mut audited = audited;
     let mut start_fit = start_fit;
@@ -284,6 +300,7 @@ pub fn run(
         start_fit,
         rebased,
         curve,
+        bands,
         bootstrap,
         monte_carlo,
         profile,

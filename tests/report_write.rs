@@ -27,10 +27,16 @@ fn files_under(root: &Path) -> BTreeSet<String> {
 }
 
 fn expected(with_csv: bool) -> BTreeSet<String> {
-    let mut s: BTreeSet<String> = [".fitaudit-output", "report.html", "results.json", "summary.md"]
-        .iter()
-        .map(|s| s.to_string())
-        .collect();
+    let mut s: BTreeSet<String> = [
+        ".fitaudit-output",
+        "report.html",
+        "results.json",
+        "summary.md",
+        "bands.csv",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
     for f in [
         "fit.svg",
         "residuals_qq.svg",

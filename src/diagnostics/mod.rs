@@ -7,6 +7,7 @@ use crate::data::Dataset;
 use crate::fit::{FitResult, Problem};
 use crate::settings::AuditSettings;
 
+pub mod bands;
 pub mod bootstrap;
 pub mod contour;
 pub mod influence;

@@ -432,6 +432,33 @@ pub fn cooling() -> AuditResults {
     };
     let settings = AuditSettings::default();
     let level = settings.level;
+    let bootstrap = resample(
+        "residual",
+        Stream::Bootstrap,
+        BOOT,
+        &cov,
+        &se,
+        level,
+        vec![FailedReplicate {
+            index: 7,
+            reason: "not-converged".into(),
+        }],
+    );
+    let monte_carlo = resample("normal", Stream::MonteCarlo, MC, &cov, &se, level, vec![]);
+    // The analytic bands of the model with its exact gradient, and the
+    // percentile bands of the replicates above.
+    let native = fitaudit::model::NativeModel::new(3, |a: &[f64], x: &[f64], g: &mut [f64]| {
+        g.copy_from_slice(&gradient(a, x[0]));
+        model(a, x[0])
+    });
+    let bands = fitaudit::diagnostics::bands::compute(
+        &native,
+        &data,
+        &fit,
+        &curve.x,
+        Some(&bootstrap),
+        Some(&monte_carlo),
+    );
     let sc = &fitaudit::demo::SCENARIOS[0];
     AuditResults {
         schema_version: SCHEMA_VERSION,
@@ -457,27 +484,8 @@ pub fn cooling() -> AuditResults {
         diagnostics_run: Diagnostic::ALL.to_vec(),
         start_fit: None,
         rebased: false,
-        bootstrap: Some(resample(
-            "residual",
-            Stream::Bootstrap,
-            BOOT,
-            &cov,
-            &se,
-            level,
-            vec![FailedReplicate {
-                index: 7,
-                reason: "not-converged".into(),
-            }],
-        )),
-        monte_carlo: Some(resample(
-            "normal",
-            Stream::MonteCarlo,
-            MC,
-            &cov,
-            &se,
-            level,
-            vec![],
-        )),
+        bootstrap: Some(bootstrap),
+        monte_carlo: Some(monte_carlo),
         profile: Some(profile(&cov, &se, chi2)),
         contours: Some(contours(&cov, &se, chi2)),
         multistart: Some(multistart(chi2, &se)),
@@ -485,6 +493,7 @@ pub fn cooling() -> AuditResults {
         data,
         fit,
         curve: Some(curve),
+        bands,
         reduction: None,
     }
 }
@@ -722,6 +731,7 @@ pub fn two_variables() -> AuditResults {
     r.data.x.push(t.iter().map(|v| 0.5 * v + 3.0).collect());
     r.data.x_names.push("u".into());
     r.curve = None;
+    r.bands = None;
     r
 }
 
