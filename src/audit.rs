@@ -6,6 +6,7 @@ use serde::{Deserialize, Serialize};
 use crate::data::Dataset;
 use crate::diagnostics::bands::Bands;
 use crate::diagnostics::contour::ContourResult;
+use crate::diagnostics::derived::{DerivedQuantity, DerivedResult};
 use crate::diagnostics::multistart::MultistartResult;
 use crate::diagnostics::profile::ProfileResult;
 use crate::diagnostics::resample::ResampleResult;
@@ -143,6 +144,10 @@ pub struct AuditResults {
     pub multistart: Option<MultistartResult>,
     /// Verdict per parameter.
     pub verdicts: Vec<Verdict>,
+    /// Derived quantities of the study's `[derived]` table, in file order
+    /// (empty without one).
+    #[serde(default)]
+    pub derived: Vec<DerivedResult>,
     /// For a study of more than [`crate::reduction::RECORD_POINTS`]
     /// points: which points `data` and the fits' per-point arrays keep
     /// (every diagnostic ran on all of them); absent when all are kept.
@@ -165,6 +170,8 @@ pub struct AuditInput<'a> {
     pub data: &'a Dataset,
     /// Settings of the battery.
     pub settings: AuditSettings,
+    /// Derived quantities to evaluate (empty for none).
+    pub derived: &'a [DerivedQuantity],
 }
 
 impl AuditInput<'_> {
@@ -239,7 +246,7 @@ pub fn run(
     let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
     let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
 
-    let verdicts = verdict::decide(&VerdictInputs {
+    let verdict_inputs = VerdictInputs {
         fit: &audited,
         bootstrap: bootstrap.as_ref(),
         monte_carlo: monte_carlo.as_ref(),
@@ -248,7 +255,9 @@ pub fn run(
         tolerance: input.settings.tolerance,
         sigma_given: input.data.has_sigma(),
         level: input.settings.level,
-    });
+    };
+    let verdicts = verdict::decide(&verdict_inputs);
+    let derived = diagnostics::derived::evaluate(input.derived, &verdict_inputs);
 
     let curve = model_curve(input.model, input.data, &audited);
     let bands = curve.as_ref().and_then(|c| {
@@ -307,6 +316,7 @@ pub fn run(
         contours,
         multistart,
         verdicts,
+        derived,
         reduction,
     })
 }
@@ -364,5 +374,6 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
         fit_options: study.fit_options.clone(),
         data: &study.dataset,
         settings: study.audit.clone(),
+        derived: &study.derived,
     }
 }

@@ -236,6 +236,7 @@ fn an_audit_records_bands_and_writes_bands_csv() {
         fit_options: FitOptions::default(),
         data: &data,
         settings: AuditSettings::default(),
+        derived: &[],
     };
     let options = AuditOptions {
         only: vec![],

@@ -78,6 +78,7 @@ impl Case {
             fit_options: FitOptions::default(),
             data: &self.data,
             settings: settings.clone(),
+            derived: &[],
         };
         let options = AuditOptions {
             only: only.to_vec(),

@@ -112,6 +112,11 @@ pub fn summary(results: &AuditResults) -> String {
     for line in tables::end_issue_words(f) {
         let _ = writeln!(o, "\nAt the end point: {}.", escape(&line));
     }
+    if !results.derived.is_empty() {
+        o.push_str("\n## Derived quantities\n\n");
+        o.push_str(&table(&tables::derived(results)));
+        let _ = writeln!(o, "\n{}", escape(tables::DERIVED_NOTE));
+    }
     let _ = writeln!(
         o,
         "\n## Interval comparison ({} level)\n",

@@ -5,6 +5,7 @@
 use std::collections::BTreeMap;
 
 use crate::audit::AuditResults;
+use crate::diagnostics::derived::DerivedResampled;
 use crate::diagnostics::profile::EndStatus;
 use crate::diagnostics::resample::{BcaWithheld, ResampleResult, ResampledParameter};
 use crate::diagnostics::verdict::Status;
@@ -154,6 +155,84 @@ pub fn verdicts(results: &AuditResults) -> Table {
                     } else {
                         reasons.join("; ")
                     },
+                ]
+            })
+            .chain(results.derived.iter().map(|d| {
+                let v = &d.verdict;
+                let reasons = findings::reasons(v);
+                vec![
+                    format!("{} (derived)", d.name),
+                    findings::quote_text(v, Some(d.value), d.std_error),
+                    s(status_word(v.status)),
+                    if reasons.is_empty() {
+                        s(format::ABSENT)
+                    } else {
+                        reasons.join("; ")
+                    },
+                ]
+            }))
+            .collect(),
+    }
+}
+
+/// A resampled interval `[lower, upper]` at the precision of `se`.
+fn derived_interval(r: Option<&DerivedResampled>, se: Option<f64>) -> (String, String) {
+    match r {
+        Some(r) if r.used >= 2 => (
+            format::value_and_uncertainty(0.0, Some(r.summary.std)).1,
+            format!(
+                "[{}, {}]",
+                format::at_precision_of(r.summary.lower, se),
+                format::at_precision_of(r.summary.upper, se)
+            ),
+        ),
+        _ => (s(format::ABSENT), s(format::ABSENT)),
+    }
+}
+
+/// What the derived-quantity table shows, for the line under it.
+pub const DERIVED_NOTE: &str = "Standard errors of derived quantities by the law of propagation of \
+uncertainty with the full covariance (JCGM 100:2008, 5.2); bootstrap and Monte Carlo columns from the \
+quantity evaluated at every replicate estimate (the Monte Carlo interval is the probabilistically \
+symmetric one of JCGM 101:2008). Derived quantities have no profile interval.";
+
+/// The derived-quantity table: name, formula, value, standard uncertainty
+/// by propagation, expanded uncertainty, bootstrap and Monte Carlo SD and
+/// interval, quote.
+pub fn derived(results: &AuditResults) -> Table {
+    Table {
+        header: vec![
+            s("Quantity"),
+            s("Formula"),
+            s("Value"),
+            s("Standard error"),
+            expanded_header(&results.fit),
+            s("Bootstrap SD"),
+            s("Bootstrap interval"),
+            s("Monte Carlo SD"),
+            s("Monte Carlo interval"),
+            s("Quote"),
+        ],
+        rows: results
+            .derived
+            .iter()
+            .map(|d| {
+                let (v, u) = format::value_and_uncertainty(d.value, d.std_error);
+                let (bsd, bint) = derived_interval(d.bootstrap.as_ref(), d.std_error);
+                let (msd, mint) = derived_interval(d.monte_carlo.as_ref(), d.std_error);
+                vec![
+                    d.name.clone(),
+                    d.formula.clone(),
+                    v,
+                    u,
+                    d.expanded_uncertainty.map_or(s(format::ABSENT), |x| {
+                        format::value_and_uncertainty(0.0, Some(x)).1
+                    }),
+                    bsd,
+                    bint,
+                    msd,
+                    mint,
+                    findings::quote_text(&d.verdict, Some(d.value), d.std_error),
                 ]
             })
             .collect(),

@@ -66,6 +66,7 @@ pub use self::error::{At, Shadow, StudyError};
 pub use self::spec::{DataSpec, FitSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec};
 
 use crate::data::Dataset;
+use crate::diagnostics::derived::DerivedQuantity;
 use crate::fit::{FitOptions, ParamSpec, Problem};
 use crate::model::{self, ModelErrorKind, ModelFn, Symbols, Tape};
 use crate::settings::AuditSettings;
@@ -97,6 +98,8 @@ pub struct Study {
     pub fit_options: FitOptions,
     /// The compiled formula.
     pub model: Tape,
+    /// The `[derived]` quantities, compiled, in file order.
+    pub derived: Vec<DerivedQuantity>,
     /// SHA-256 (hex) of the study file's bytes, when read from a file.
     pub study_sha256: Option<String>,
     /// SHA-256 (hex) of the data file's bytes, when read from a file.
@@ -618,10 +621,77 @@ fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
 
 /// Where in the study file a formula column lies.
 fn formula_at(spec: &StudySpec, column: Option<usize>) -> At {
-    match (spec.locations.get("model.formula"), column) {
+    key_column_at(spec, "model.formula", column)
+}
+
+/// Where in the study file column `column` of the string at `key` lies.
+fn key_column_at(spec: &StudySpec, key: &str, column: Option<usize>) -> At {
+    match (spec.locations.get(key), column) {
         (Some(l), Some(c)) if l.plain_string => At::cell(&spec.origin, l.line, l.column + c),
-        _ => spec.at("model.formula"),
+        _ => spec.at(key),
     }
+}
+
+/// Compiles the `[derived]` table over the parameters and constants.
+fn compile_derived(spec: &StudySpec, names: &[String]) -> Result<Vec<DerivedQuantity>, StudyError> {
+    let symbols = Symbols {
+        parameters: names,
+        constants: &spec.constants,
+        variables: &[],
+    };
+    let mut out: Vec<DerivedQuantity> = Vec::with_capacity(spec.derived.len());
+    for (name, formula) in &spec.derived {
+        let key = format!("derived.{name}");
+        if !is_identifier(name) {
+            return Err(invalid(
+                spec,
+                &key,
+                "is not a name (letters, digits and `_`, not starting with a digit)",
+            ));
+        }
+        if names.contains(name) || spec.constants.iter().any(|(c, _)| c == name) {
+            return Err(invalid(
+                spec,
+                &key,
+                "has the name of a parameter or constant: give the derived quantity its own name",
+            ));
+        }
+        if out.iter().any(|q| &q.name == name) {
+            return Err(invalid(spec, &key, "is declared twice"));
+        }
+        let tape = model::compile(formula, &symbols).map_err(|e| {
+            let message = match &e.kind {
+                ModelErrorKind::UnknownName { name, suggestion } => format!(
+                    "uses `{name}`, which is neither a parameter nor a constant (a derived quantity is a \
+                     function of the parameters and constants only); known names: {}{}",
+                    error::name_list(
+                        &names
+                            .iter()
+                            .chain(spec.constants.iter().map(|(n, _)| n))
+                            .cloned()
+                            .collect::<Vec<_>>()
+                    ),
+                    suggestion
+                        .as_ref()
+                        .map(|s| format!("; did you mean `{s}`?"))
+                        .unwrap_or_default()
+                ),
+                other => other.to_string(),
+            };
+            StudyError::DerivedFormula {
+                at: Box::new(key_column_at(spec, &key, e.column)),
+                key: key.clone(),
+                message,
+                column: e.column,
+            }
+        })?;
+        out.push(DerivedQuantity {
+            name: name.clone(),
+            formula: formula.clone(),
+            tape,
+        });
+    }
+    Ok(out)
 }
 
 /// The checks that need both spec and data, compilation, and assembly.
@@ -678,6 +748,7 @@ fn finish(
             column: e.column,
         },
     })?;
+    let derived = compile_derived(&spec, &names)?;
     for (j, p) in params.iter().enumerate() {
         if !tape.uses_parameter(j) {
             return Err(StudyError::UnusedParameter {
@@ -764,6 +835,7 @@ fn finish(
         },
         audit: spec.audit,
         model: tape,
+        derived,
         study_sha256: None,
         data_sha256,
         data_lines,

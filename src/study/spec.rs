@@ -34,6 +34,10 @@ pub struct StudySpec {
     /// `[constants]`: named numbers the formula may use, in file order.
     #[serde(default, with = "ordered")]
     pub constants: Vec<(String, f64)>,
+    /// `[derived]`: `name = "formula"` over parameters and constants, in
+    /// file order.
+    #[serde(default, with = "ordered", skip_serializing_if = "Vec::is_empty")]
+    pub derived: Vec<(String, String)>,
     /// `[audit]`: settings of the diagnostics.
     #[serde(default)]
     pub audit: AuditSettings,
@@ -307,6 +311,7 @@ impl StudySpec {
             },
             parameters,
             constants: Vec::new(),
+            derived: Vec::new(),
             audit: AuditSettings::default(),
             fit: FitSpec::default(),
             origin: PathBuf::new(),

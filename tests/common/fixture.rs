@@ -459,6 +459,33 @@ pub fn cooling() -> AuditResults {
         Some(&bootstrap),
         Some(&monte_carlo),
     );
+    // A derived quantity (the half time ln 2 tau) through the library's
+    // propagation and resampled summaries.
+    let ms = multistart(chi2, &se);
+    let names: Vec<String> = NAMES.iter().map(|s| s.to_string()).collect();
+    let symbols = fitaudit::model::Symbols {
+        parameters: &names,
+        constants: &[],
+        variables: &[],
+    };
+    let half = fitaudit::diagnostics::derived::DerivedQuantity {
+        name: "half_time".into(),
+        formula: "ln(2)*tau".into(),
+        tape: fitaudit::model::compile("ln(2)*tau", &symbols).unwrap(),
+    };
+    let derived = fitaudit::diagnostics::derived::evaluate(
+        &[half],
+        &fitaudit::diagnostics::verdict::VerdictInputs {
+            fit: &fit,
+            bootstrap: Some(&bootstrap),
+            monte_carlo: Some(&monte_carlo),
+            profile: None,
+            multistart: Some(&ms),
+            tolerance: settings.tolerance,
+            sigma_given: true,
+            level,
+        },
+    );
     let sc = &fitaudit::demo::SCENARIOS[0];
     AuditResults {
         schema_version: SCHEMA_VERSION,
@@ -488,8 +515,9 @@ pub fn cooling() -> AuditResults {
         monte_carlo: Some(monte_carlo),
         profile: Some(profile(&cov, &se, chi2)),
         contours: Some(contours(&cov, &se, chi2)),
-        multistart: Some(multistart(chi2, &se)),
+        multistart: Some(ms),
         verdicts: verdicts(&se, level),
+        derived,
         data,
         fit,
         curve: Some(curve),
