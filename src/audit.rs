@@ -7,6 +7,7 @@ use crate::data::Dataset;
 use crate::diagnostics::bands::Bands;
 use crate::diagnostics::contour::ContourResult;
 use crate::diagnostics::derived::{DerivedQuantity, DerivedResult};
+use crate::diagnostics::inverse::{InverseModel, InverseRequest, InverseResult};
 use crate::diagnostics::multistart::MultistartResult;
 use crate::diagnostics::profile::ProfileResult;
 use crate::diagnostics::resample::ResampleResult;
@@ -148,6 +149,10 @@ pub struct AuditResults {
     /// (empty without one).
     #[serde(default)]
     pub derived: Vec<DerivedResult>,
+    /// Inverse predictions of the study's `[[inverse]]` entries, in file
+    /// order (empty without any).
+    #[serde(default)]
+    pub inverse: Vec<InverseResult>,
     /// For a study of more than [`crate::reduction::RECORD_POINTS`]
     /// points: which points `data` and the fits' per-point arrays keep
     /// (every diagnostic ran on all of them); absent when all are kept.
@@ -172,6 +177,10 @@ pub struct AuditInput<'a> {
     pub settings: AuditSettings,
     /// Derived quantities to evaluate (empty for none).
     pub derived: &'a [DerivedQuantity],
+    /// Responses to read off the curve (empty for none).
+    pub inverse: &'a [InverseRequest],
+    /// The model with x as its last parameter (needed when `inverse` is not empty).
+    pub inverse_model: Option<&'a InverseModel>,
 }
 
 impl AuditInput<'_> {
@@ -258,6 +267,20 @@ pub fn run(
     };
     let verdicts = verdict::decide(&verdict_inputs);
     let derived = diagnostics::derived::evaluate(input.derived, &verdict_inputs);
+    let inverse = match input.inverse_model {
+        Some(im) if !input.inverse.is_empty() => diagnostics::inverse::evaluate(
+            input.inverse,
+            &diagnostics::inverse::InverseInputs {
+                model: input.model,
+                inverse_model: im,
+                data: input.data,
+                fit: &audited,
+                monte_carlo: monte_carlo.as_ref(),
+                seed: input.settings.seed,
+            },
+        ),
+        _ => Vec::new(),
+    };
 
     let curve = model_curve(input.model, input.data, &audited);
     let bands = curve.as_ref().and_then(|c| {
@@ -317,6 +340,7 @@ pub fn run(
         multistart,
         verdicts,
         derived,
+        inverse,
         reduction,
     })
 }
@@ -375,5 +399,7 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
         data: &study.dataset,
         settings: study.audit.clone(),
         derived: &study.derived,
+        inverse: &study.inverse,
+        inverse_model: study.inverse_model.as_ref(),
     }
 }

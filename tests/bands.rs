@@ -237,6 +237,8 @@ fn an_audit_records_bands_and_writes_bands_csv() {
         data: &data,
         settings: AuditSettings::default(),
         derived: &[],
+        inverse: &[],
+        inverse_model: None,
     };
     let options = AuditOptions {
         only: vec![],

@@ -66,6 +66,8 @@ fn demo_verdicts_are_the_intended_ones() {
                     );
                 }
                 assert!(results.derived.iter().all(|d| d.verdict.status == Status::Holds));
+                let inv = &results.inverse[0];
+                assert!(inv.x.is_some() && inv.monte_carlo.is_some(), "{inv:?}");
                 let bands = results.bands.as_ref().unwrap();
                 assert!(bands.bootstrap.is_some() && bands.monte_carlo.is_some());
             }

@@ -79,6 +79,8 @@ impl Case {
             data: &self.data,
             settings: settings.clone(),
             derived: &[],
+            inverse: &[],
+            inverse_model: None,
         };
         let options = AuditOptions {
             only: only.to_vec(),

@@ -12,6 +12,7 @@ pub mod bootstrap;
 pub mod contour;
 pub mod derived;
 pub mod influence;
+pub mod inverse;
 pub mod marching;
 pub mod monte_carlo;
 pub mod multistart;

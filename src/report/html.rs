@@ -269,6 +269,16 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
         );
         let _ = writeln!(o, "<p>{}</p>", escape(tables::DERIVED_NOTE));
     }
+    if !results.inverse.is_empty() {
+        o.push_str("<h3>Inverse predictions</h3>\n");
+        table(
+            &mut o,
+            &tables::inverse(results),
+            &[1, 2, 3, 4, 5, 6, 7, 8, 9, 10],
+            Some("wide"),
+        );
+        let _ = writeln!(o, "<p>{}</p>", escape(tables::INVERSE_NOTE));
+    }
     o.push_str("</section>\n");
 
     // Goodness of fit.

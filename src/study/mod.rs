@@ -63,10 +63,13 @@ mod spec;
 
 pub use self::csv::{parse_raw, read_csv, RawTable, Table};
 pub use self::error::{At, Shadow, StudyError};
-pub use self::spec::{DataSpec, FitSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec};
+pub use self::spec::{
+    DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec,
+};
 
 use crate::data::Dataset;
 use crate::diagnostics::derived::DerivedQuantity;
+use crate::diagnostics::inverse::{InverseModel, InverseRequest};
 use crate::fit::{FitOptions, ParamSpec, Problem};
 use crate::model::{self, ModelErrorKind, ModelFn, Symbols, Tape};
 use crate::settings::AuditSettings;
@@ -100,6 +103,11 @@ pub struct Study {
     pub model: Tape,
     /// The `[derived]` quantities, compiled, in file order.
     pub derived: Vec<DerivedQuantity>,
+    /// The `[[inverse]]` requests, checked, in file order.
+    pub inverse: Vec<InverseRequest>,
+    /// The model with its x column as an extra last parameter (exact
+    /// `df/dx`), when there are inverse requests.
+    pub inverse_model: Option<InverseModel>,
     /// SHA-256 (hex) of the study file's bytes, when read from a file.
     pub study_sha256: Option<String>,
     /// SHA-256 (hex) of the data file's bytes, when read from a file.
@@ -632,6 +640,77 @@ fn key_column_at(spec: &StudySpec, key: &str, column: Option<usize>) -> At {
     }
 }
 
+/// Checks `[[inverse]]` and compiles the model with its x column as a
+/// parameter (for exact `df/dx`).
+fn check_inverse(
+    spec: &StudySpec,
+    names: &[String],
+    dataset: &Dataset,
+) -> Result<(Vec<InverseRequest>, Option<InverseModel>), StudyError> {
+    if spec.inverse.is_empty() {
+        return Ok((Vec::new(), None));
+    }
+    let mut out: Vec<InverseRequest> = Vec::new();
+    for (i, e) in spec.inverse.iter().enumerate() {
+        let key = format!("inverse[{i}]");
+        if dataset.x.len() != 1 {
+            return Err(invalid(
+                spec,
+                &key,
+                format!(
+                    "reads a response off the curve, which needs exactly one x column; the model has {}",
+                    dataset.x.len()
+                ),
+            ));
+        }
+        if e.name.trim().is_empty() {
+            return Err(invalid(spec, &format!("{key}.name"), "is empty: name the sample"));
+        }
+        if out.iter().any(|r| r.name == e.name) {
+            return Err(invalid(
+                spec,
+                &format!("{key}.name"),
+                format!("`{}` is used twice", e.name),
+            ));
+        }
+        if !e.y.is_finite() {
+            return Err(invalid(spec, &format!("{key}.y"), "must be a finite number"));
+        }
+        let readings = e.readings.unwrap_or(1);
+        if readings == 0 {
+            return Err(invalid(spec, &format!("{key}.readings"), "must be at least 1"));
+        }
+        if let Some(s) = e.sigma {
+            if !(s.is_finite() && s > 0.0) {
+                return Err(invalid(
+                    spec,
+                    &format!("{key}.sigma"),
+                    "must be a positive finite number",
+                ));
+            }
+        }
+        out.push(InverseRequest {
+            name: e.name.clone(),
+            y: e.y,
+            readings,
+            sigma: e.sigma,
+        });
+    }
+    let mut with_x = names.to_vec();
+    with_x.push(dataset.x_names[0].clone());
+    let symbols = Symbols {
+        parameters: &with_x,
+        constants: &spec.constants,
+        variables: &[],
+    };
+    let tape = model::compile(&spec.model.formula, &symbols).map_err(|e| StudyError::Formula {
+        at: Box::new(formula_at(spec, e.column)),
+        message: e.kind.to_string(),
+        column: e.column,
+    })?;
+    Ok((out, Some(InverseModel { tape })))
+}
+
 /// Compiles the `[derived]` table over the parameters and constants.
 fn compile_derived(spec: &StudySpec, names: &[String]) -> Result<Vec<DerivedQuantity>, StudyError> {
     let symbols = Symbols {
@@ -749,6 +828,7 @@ fn finish(
         },
     })?;
     let derived = compile_derived(&spec, &names)?;
+    let (inverse, inverse_model) = check_inverse(&spec, &names, &dataset)?;
     for (j, p) in params.iter().enumerate() {
         if !tape.uses_parameter(j) {
             return Err(StudyError::UnusedParameter {
@@ -836,6 +916,8 @@ fn finish(
         audit: spec.audit,
         model: tape,
         derived,
+        inverse,
+        inverse_model,
         study_sha256: None,
         data_sha256,
         data_lines,

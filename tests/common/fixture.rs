@@ -486,6 +486,36 @@ pub fn cooling() -> AuditResults {
             level,
         },
     );
+    // A sample read off the curve at 50 degC (mean of two readings).
+    let mut with_t = names.clone();
+    with_t.push("t_s".into());
+    let inverse_model = fitaudit::diagnostics::inverse::InverseModel {
+        tape: fitaudit::model::compile(
+            "T_env + dT*exp(-t_s/tau)",
+            &fitaudit::model::Symbols {
+                parameters: &with_t,
+                constants: &[],
+                variables: &[],
+            },
+        )
+        .unwrap(),
+    };
+    let inverse = fitaudit::diagnostics::inverse::evaluate(
+        &[fitaudit::diagnostics::inverse::InverseRequest {
+            name: "sample".into(),
+            y: 50.0,
+            readings: 2,
+            sigma: None,
+        }],
+        &fitaudit::diagnostics::inverse::InverseInputs {
+            model: &native,
+            inverse_model: &inverse_model,
+            data: &data,
+            fit: &fit,
+            monte_carlo: Some(&monte_carlo),
+            seed: 1,
+        },
+    );
     let sc = &fitaudit::demo::SCENARIOS[0];
     AuditResults {
         schema_version: SCHEMA_VERSION,
@@ -518,6 +548,7 @@ pub fn cooling() -> AuditResults {
         multistart: Some(ms),
         verdicts: verdicts(&se, level),
         derived,
+        inverse,
         data,
         fit,
         curve: Some(curve),
