@@ -4,7 +4,10 @@
 use serde::{Deserialize, Serialize};
 
 use crate::data::Dataset;
+use crate::diagnostics::bands::Bands;
 use crate::diagnostics::contour::ContourResult;
+use crate::diagnostics::derived::{DerivedQuantity, DerivedResult};
+use crate::diagnostics::inverse::{InverseModel, InverseRequest, InverseResult};
 use crate::diagnostics::multistart::MultistartResult;
 use crate::diagnostics::profile::ProfileResult;
 use crate::diagnostics::resample::ResampleResult;
@@ -125,6 +128,11 @@ pub struct AuditResults {
     pub rebased: bool,
     /// The fitted curve, for one independent variable.
     pub curve: Option<Curve>,
+    /// Confidence and prediction bands on the curve's grid (one
+    /// independent variable only); the resampled bands when the bootstrap
+    /// or the Monte Carlo ran.
+    #[serde(default)]
+    pub bands: Option<Bands>,
     /// Bootstrap.
     pub bootstrap: Option<ResampleResult>,
     /// Monte Carlo.
@@ -137,6 +145,14 @@ pub struct AuditResults {
     pub multistart: Option<MultistartResult>,
     /// Verdict per parameter.
     pub verdicts: Vec<Verdict>,
+    /// Derived quantities of the study's `[derived]` table, in file order
+    /// (empty without one).
+    #[serde(default)]
+    pub derived: Vec<DerivedResult>,
+    /// Inverse predictions of the study's `[[inverse]]` entries, in file
+    /// order (empty without any).
+    #[serde(default)]
+    pub inverse: Vec<InverseResult>,
     /// For a study of more than [`crate::reduction::RECORD_POINTS`]
     /// points: which points `data` and the fits' per-point arrays keep
     /// (every diagnostic ran on all of them); absent when all are kept.
@@ -159,6 +175,12 @@ pub struct AuditInput<'a> {
     pub data: &'a Dataset,
     /// Settings of the battery.
     pub settings: AuditSettings,
+    /// Derived quantities to evaluate (empty for none).
+    pub derived: &'a [DerivedQuantity],
+    /// Responses to read off the curve (empty for none).
+    pub inverse: &'a [InverseRequest],
+    /// The model with x as its last parameter (needed when `inverse` is not empty).
+    pub inverse_model: Option<&'a InverseModel>,
 }
 
 impl AuditInput<'_> {
@@ -233,7 +255,7 @@ pub fn run(
     let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
     let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
 
-    let verdicts = verdict::decide(&VerdictInputs {
+    let verdict_inputs = VerdictInputs {
         fit: &audited,
         bootstrap: bootstrap.as_ref(),
         monte_carlo: monte_carlo.as_ref(),
@@ -242,9 +264,35 @@ pub fn run(
         tolerance: input.settings.tolerance,
         sigma_given: input.data.has_sigma(),
         level: input.settings.level,
-    });
+    };
+    let verdicts = verdict::decide(&verdict_inputs);
+    let derived = diagnostics::derived::evaluate(input.derived, &verdict_inputs);
+    let inverse = match input.inverse_model {
+        Some(im) if !input.inverse.is_empty() => diagnostics::inverse::evaluate(
+            input.inverse,
+            &diagnostics::inverse::InverseInputs {
+                model: input.model,
+                inverse_model: im,
+                data: input.data,
+                fit: &audited,
+                monte_carlo: monte_carlo.as_ref(),
+                seed: input.settings.seed,
+            },
+        ),
+        _ => Vec::new(),
+    };
 
     let curve = model_curve(input.model, input.data, &audited);
+    let bands = curve.as_ref().and_then(|c| {
+        diagnostics::bands::compute(
+            input.model,
+            input.data,
+            &audited,
+            &c.x,
+            bootstrap.as_ref(),
+            monte_carlo.as_ref(),
+        )
+    });
     drop(ctx);
     let mut audited = audited;
     let mut start_fit = start_fit;
@@ -284,12 +332,15 @@ pub fn run(
         start_fit,
         rebased,
         curve,
+        bands,
         bootstrap,
         monte_carlo,
         profile,
         contours,
         multistart,
         verdicts,
+        derived,
+        inverse,
         reduction,
     })
 }
@@ -347,5 +398,8 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
         fit_options: study.fit_options.clone(),
         data: &study.dataset,
         settings: study.audit.clone(),
+        derived: &study.derived,
+        inverse: &study.inverse,
+        inverse_model: study.inverse_model.as_ref(),
     }
 }

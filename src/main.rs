@@ -168,14 +168,26 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
             }
             let fit = fitaudit::fit::fit(&study.problem(), &study.dataset)?;
+            let derived = fitaudit::diagnostics::derived::for_fit(
+                &study.derived,
+                &fit,
+                &study.audit,
+                study.dataset.has_sigma(),
+            );
             if json {
                 #[derive(serde::Serialize)]
                 struct Wrapped<'a> {
                     fit: &'a fitaudit::fit::FitResult,
+                    derived: &'a [fitaudit::diagnostics::derived::DerivedResult],
                 }
-                emit(&(serde_json::to_string_pretty(&Wrapped { fit: &fit })? + "\n"))?;
+                let wrapped = Wrapped {
+                    fit: &fit,
+                    derived: &derived,
+                };
+                emit(&(serde_json::to_string_pretty(&wrapped)? + "\n"))?;
             } else {
                 emit(&text::fit_table(study.title.as_deref(), &study.parameters, &fit))?;
+                emit(&text::derived_table(&fit, &derived))?;
             }
             Ok(ExitCode::SUCCESS)
         }

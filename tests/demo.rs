@@ -45,16 +45,44 @@ fn demo_verdicts_are_the_intended_ones() {
             study.parameters.iter().filter(|p| !p.fixed).count()
         );
         match sc.name {
-            "cooling" => assert!(
-                statuses.iter().all(|s| *s == Status::Holds),
-                "cooling: {:?}",
-                results.verdicts
-            ),
-            "enzyme" => assert!(
-                statuses.iter().any(|s| *s != Status::Holds),
-                "enzyme: {:?}",
-                results.verdicts
-            ),
+            "cooling" => {
+                assert!(
+                    statuses.iter().all(|s| *s == Status::Holds),
+                    "cooling: {:?}",
+                    results.verdicts
+                );
+                // The demo shows derived quantities and bands.
+                let names: Vec<&str> = results.derived.iter().map(|d| d.name.as_str()).collect();
+                assert_eq!(names, ["T_start", "half_time_s"]);
+                let tau = &results.fit.parameters[2];
+                let half = &results.derived[1];
+                let ln2 = std::f64::consts::LN_2;
+                assert!((half.value - ln2 * tau.value).abs() < 1e-9 * half.value);
+                assert!((half.std_error.unwrap() - ln2 * tau.std_error.unwrap()).abs() < 1e-9);
+                for d in &results.derived {
+                    eprintln!(
+                        "cooling {}: {} +- {:?}, {:?}",
+                        d.name, d.value, d.std_error, d.verdict.status
+                    );
+                }
+                assert!(results.derived.iter().all(|d| d.verdict.status == Status::Holds));
+                let inv = &results.inverse[0];
+                assert!(inv.x.is_some() && inv.monte_carlo.is_some(), "{inv:?}");
+                let bands = results.bands.as_ref().unwrap();
+                assert!(bands.bootstrap.is_some() && bands.monte_carlo.is_some());
+            }
+            "enzyme" => {
+                assert!(
+                    statuses.iter().any(|s| *s != Status::Holds),
+                    "enzyme: {:?}",
+                    results.verdicts
+                );
+                // Km alone is doubtful, but the initial slope Vmax/Km, which
+                // low substrate levels determine, holds.
+                let slope = &results.derived[0];
+                assert_eq!(slope.name, "slope");
+                assert_eq!(slope.verdict.status, Status::Holds, "{:?}", slope.verdict);
+            }
             "vibration" => {
                 let ms = results.multistart.as_ref().unwrap();
                 assert!(

@@ -78,6 +78,9 @@ impl Case {
             fit_options: FitOptions::default(),
             data: &self.data,
             settings: settings.clone(),
+            derived: &[],
+            inverse: &[],
+            inverse_model: None,
         };
         let options = AuditOptions {
             only: only.to_vec(),

@@ -94,6 +94,18 @@ fn axes_carry_the_column_and_parameter_names() {
     );
     assert!(fit.iter().any(|t| t == "temp_C"));
     assert!(fit.iter().any(|t| t.starts_with("normalised residual")));
+    // The bands are drawn with their legend entries (wrapped legend lines
+    // are joined before matching).
+    let legend = fit.join(" ");
+    for want in [
+        "confidence band",
+        "prediction band",
+        "bootstrap percentile",
+        "Monte Carlo percentile",
+    ] {
+        assert!(legend.contains(want), "{want} in {fit:?}");
+    }
+    assert!(f.get("fit.svg").unwrap().caption.contains("prediction band"));
     let hist = svg_texts(&f.get("hist_tau.svg").unwrap().svg);
     for want in [
         "tau",

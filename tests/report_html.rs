@@ -90,6 +90,18 @@ fn tables_hold_the_numbers_of_the_results() {
     let tau = row("tau", Some("340.0"));
     // U = k u with the fixture's k = 1.
     assert_eq!(tau, vec!["tau", "340.0", "1.3", "1.3", "0.39 %", ""]);
+    // The derived half time ln(2) tau after the parameters: its value and
+    // propagated u (exactly ln 2 times those of tau) in the derived table,
+    // its quote in the verdict table.
+    let d = &r.derived[0];
+    let half = row("half_time", None);
+    let (v, u) = format::value_and_uncertainty(d.value, d.std_error);
+    assert_eq!(half[1..4], ["ln(2)*tau".to_string(), v, u]);
+    assert!(
+        (d.std_error.unwrap() / r.fit.parameters[2].std_error.unwrap() - std::f64::consts::LN_2).abs()
+            < 1e-12
+    );
+    assert!(row("half_time (derived)", None)[2].ends_with("holds"));
     // Goodness of fit.
     assert_eq!(row("Degrees of freedom", None)[1], "33");
     assert_eq!(row("Chi-squared", None)[1], format::chi2(r.fit.chi2));

@@ -27,10 +27,16 @@ fn files_under(root: &Path) -> BTreeSet<String> {
 }
 
 fn expected(with_csv: bool) -> BTreeSet<String> {
-    let mut s: BTreeSet<String> = [".fitaudit-output", "report.html", "results.json", "summary.md"]
-        .iter()
-        .map(|s| s.to_string())
-        .collect();
+    let mut s: BTreeSet<String> = [
+        ".fitaudit-output",
+        "report.html",
+        "results.json",
+        "summary.md",
+        "bands.csv",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
     for f in [
         "fit.svg",
         "residuals_qq.svg",
@@ -142,6 +148,11 @@ fn summary_has_the_verdict_rows_and_escapes_pipes() {
     assert!(s.contains("## Interval comparison (68.27 % level)"));
     assert!(s.contains("| tau | 340.0 | 1.3 |"), "comparison row");
     assert!(!s.contains("> **The base fit"));
+    // The fixture's derived half time ln(2) tau follows the parameters.
+    let derived_at = s.find("## Derived quantities").expect("derived section");
+    assert!(derived_at > s.find("## Fit").unwrap() && derived_at < s.find("## Interval comparison").unwrap());
+    assert!(s.contains("| half\\_time | ln(2)\\*tau |"), "{s}");
+    assert!(s.contains("| half\\_time (derived) |"), "verdict row");
 
     let h = markdown::summary(&fixture::hostile());
     assert!(h.starts_with("# Fit audit: &lt;script&gt;alert(1)&lt;/script&gt; &amp; \"quotes\" \\| pipes\n"));
@@ -152,8 +163,12 @@ fn summary_has_the_verdict_rows_and_escapes_pipes() {
     // Every table row has as many unescaped separators as its header.
     for line in h.lines().filter(|l| l.starts_with('|')) {
         let cells = line.replace("\\|", "").matches('|').count();
-        // verdicts 4 columns (quote first), fit 6 (with U), comparison 15.
-        assert!(cells == 5 || cells == 7 || cells == 16, "{line}");
+        // verdicts 4 columns (quote first), fit 6 (with U), comparison 15,
+        // derived quantities 10, inverse predictions 12.
+        assert!(
+            cells == 5 || cells == 7 || cells == 16 || cells == 11 || cells == 13,
+            "{line}"
+        );
     }
 }
 

@@ -7,9 +7,12 @@ use crate::data::Dataset;
 use crate::fit::{FitResult, Problem};
 use crate::settings::AuditSettings;
 
+pub mod bands;
 pub mod bootstrap;
 pub mod contour;
+pub mod derived;
 pub mod influence;
+pub mod inverse;
 pub mod marching;
 pub mod monte_carlo;
 pub mod multistart;

@@ -198,6 +198,9 @@ pub enum NoQuote {
     ProfileAgrees,
     /// The analytic interval is doubted and no profile ran.
     ProfileNotRun,
+    /// A derived quantity whose analytic interval is doubted: no profile
+    /// interval is computed for derived quantities.
+    NoDerivedProfile,
 }
 
 /// The verdict of one parameter: status, findings and the interval to quote.

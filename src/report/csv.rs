@@ -1,5 +1,13 @@
 //! `replicates.csv` (on request): every replicate estimate of the bootstrap
-//! and the Monte Carlo refits, one row per successful replicate.
+//! and the Monte Carlo refits, one row per successful replicate; and
+//! `bands.csv` (whenever there are bands): the confidence and prediction
+//! bands on the curve grid.
+//!
+//! `bands.csv` columns: `x`, `y`, `std_error`, `confidence_lower`,
+//! `confidence_upper`, `prediction_lower`, `prediction_upper`, then
+//! `bootstrap_lower`, `bootstrap_upper`, `monte_carlo_lower`,
+//! `monte_carlo_upper` (empty when that diagnostic did not run); one row per
+//! grid point. Non-finite values are written as `NaN`.
 //!
 //! Columns: `diagnostic` (`bootstrap` or `monte-carlo`), `replicate` (the
 //! replicate's index, i.e. its random stream, counting from 0; failed
@@ -54,6 +62,78 @@ pub fn to_csv(results: &AuditResults) -> Result<Vec<u8>, ReportError> {
         }
     }
     w.into_inner().map_err(csv_err)
+}
+
+/// Shortest text that reads back as the same double.
+fn number(v: f64) -> String {
+    if v.is_finite() {
+        format!("{v:e}")
+    } else {
+        "NaN".to_string()
+    }
+}
+
+/// The text of `bands.csv`, or `None` when the results have no bands.
+pub fn bands_csv(results: &AuditResults) -> Result<Option<Vec<u8>>, ReportError> {
+    let Some(b) = &results.bands else {
+        return Ok(None);
+    };
+    let mut w = ::csv::Writer::from_writer(Vec::new());
+    w.write_record([
+        "x",
+        "y",
+        "std_error",
+        "confidence_lower",
+        "confidence_upper",
+        "prediction_lower",
+        "prediction_upper",
+        "bootstrap_lower",
+        "bootstrap_upper",
+        "monte_carlo_lower",
+        "monte_carlo_upper",
+    ])
+    .map_err(csv_err)?;
+    let opt = |v: Option<&Vec<f64>>, i: usize| v.and_then(|v| v.get(i)).map_or(String::new(), |x| number(*x));
+    for i in 0..b.x.len() {
+        let cols = [
+            &b.x,
+            &b.y,
+            &b.std_error,
+            &b.confidence_lower,
+            &b.confidence_upper,
+            &b.prediction_lower,
+            &b.prediction_upper,
+        ];
+        let mut rec: Vec<String> = cols
+            .iter()
+            .map(|c| c.get(i).map_or(String::new(), |v| number(*v)))
+            .collect();
+        rec.push(opt(b.bootstrap.as_ref().map(|r| &r.lower), i));
+        rec.push(opt(b.bootstrap.as_ref().map(|r| &r.upper), i));
+        rec.push(opt(b.monte_carlo.as_ref().map(|r| &r.lower), i));
+        rec.push(opt(b.monte_carlo.as_ref().map(|r| &r.upper), i));
+        w.write_record(&rec).map_err(csv_err)?;
+    }
+    w.into_inner().map(Some).map_err(csv_err)
+}
+
+/// Writes `bands.csv` when the results have bands.
+pub struct BandsCsv;
+
+impl Renderer for BandsCsv {
+    fn name(&self) -> &'static str {
+        "bands-csv"
+    }
+
+    fn render(
+        &self,
+        results: &AuditResults,
+        _figures: &Figures,
+    ) -> Result<Vec<(String, Vec<u8>)>, ReportError> {
+        Ok(bands_csv(results)?
+            .map(|bytes| vec![("bands.csv".to_string(), bytes)])
+            .unwrap_or_default())
+    }
 }
 
 /// Writes `replicates.csv`.

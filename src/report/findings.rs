@@ -292,6 +292,9 @@ pub fn no_quote_words(n: NoQuote) -> &'static str {
         NoQuote::GoodnessOfFit => "none: chi2 disagrees with its degrees of freedom (sigma or model wrong)",
         NoQuote::ProfileAgrees => "none: the analytic interval is doubted and the profile agrees with it",
         NoQuote::ProfileNotRun => "none: the analytic interval is doubted and no profile ran",
+        NoQuote::NoDerivedProfile => {
+            "none: the analytic interval is doubted, and derived quantities have no profile interval"
+        }
     }
 }
 
@@ -299,7 +302,13 @@ pub fn no_quote_words(n: NoQuote) -> &'static str {
 /// profile interval, at the precision of the standard error; or why none.
 pub fn quote_cell(results: &AuditResults, v: &Verdict) -> String {
     let p = results.fit.parameters.iter().find(|p| p.name == v.parameter);
-    let se = p.and_then(|p| p.std_error);
+    quote_text(v, p.map(|p| p.value), p.and_then(|p| p.std_error))
+}
+
+/// The quote cell of a verdict on a quantity of this value and standard
+/// uncertainty (a parameter or a derived quantity).
+pub fn quote_text(v: &Verdict, value: Option<f64>, se: Option<f64>) -> String {
+    let p = value.map(|value| (value, se));
     match (&v.quote, v.no_quote) {
         (Some(q), _) => {
             let ends = format!(
@@ -309,9 +318,9 @@ pub fn quote_cell(results: &AuditResults, v: &Verdict) -> String {
             );
             let level = format::percent(q.level, 4);
             match (q.kind, p) {
-                (QuoteKind::Analytic, Some(p)) => {
+                (QuoteKind::Analytic, Some((value, _))) => {
                     let k = 0.5 * (q.upper - q.lower) / se.unwrap_or(f64::NAN);
-                    let (val, u) = format::value_and_uncertainty(p.value, se.map(|u| k * u));
+                    let (val, u) = format::value_and_uncertainty(value, se.map(|u| k * u));
                     format!("{val} \u{b1} {u} {ends} ({level}, k = {})", format::sig(k, 3))
                 }
                 (QuoteKind::Analytic, None) => format!("{ends} ({level})"),

@@ -229,6 +229,23 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
             status_cell(v.status)
         );
     }
+    for d in &results.derived {
+        let v = &d.verdict;
+        let texts = findings::reasons(v);
+        let reasons = if texts.is_empty() {
+            format::ABSENT.to_string()
+        } else {
+            let items: Vec<String> = texts.iter().map(|r| format!("<li>{}</li>", escape(r))).collect();
+            format!("<ul>{}</ul>", items.join(""))
+        };
+        let _ = writeln!(
+            o,
+            "<tr><th scope=\"row\">{} (derived)</th><td>{}</td><td>{}</td><td>{reasons}</td></tr>",
+            escape(&d.name),
+            escape(&findings::quote_text(v, Some(d.value), d.std_error)),
+            status_cell(v.status)
+        );
+    }
     o.push_str("</tbody>\n</table>\n</section>\n");
 
     // Fit.
@@ -242,6 +259,26 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
         escape(&results.data.x_names.join(", "))
     );
     table(&mut o, &tables::fit_params(&results.fit), &[1, 2, 3], None);
+    if !results.derived.is_empty() {
+        o.push_str("<h3>Derived quantities</h3>\n");
+        table(
+            &mut o,
+            &tables::derived(results),
+            &[2, 3, 4, 5, 6, 7, 8],
+            Some("wide"),
+        );
+        let _ = writeln!(o, "<p>{}</p>", escape(tables::DERIVED_NOTE));
+    }
+    if !results.inverse.is_empty() {
+        o.push_str("<h3>Inverse predictions</h3>\n");
+        table(
+            &mut o,
+            &tables::inverse(results),
+            &[1, 2, 3, 4, 5, 6, 7, 8, 9, 10],
+            Some("wide"),
+        );
+        let _ = writeln!(o, "<p>{}</p>", escape(tables::INVERSE_NOTE));
+    }
     o.push_str("</section>\n");
 
     // Goodness of fit.

@@ -112,6 +112,16 @@ pub fn summary(results: &AuditResults) -> String {
     for line in tables::end_issue_words(f) {
         let _ = writeln!(o, "\nAt the end point: {}.", escape(&line));
     }
+    if !results.derived.is_empty() {
+        o.push_str("\n## Derived quantities\n\n");
+        o.push_str(&table(&tables::derived(results)));
+        let _ = writeln!(o, "\n{}", escape(tables::DERIVED_NOTE));
+    }
+    if !results.inverse.is_empty() {
+        o.push_str("\n## Inverse predictions\n\n");
+        o.push_str(&table(&tables::inverse(results)));
+        let _ = writeln!(o, "\n{}", escape(tables::INVERSE_NOTE));
+    }
     let _ = writeln!(
         o,
         "\n## Interval comparison ({} level)\n",

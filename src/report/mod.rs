@@ -10,6 +10,7 @@
 //! | `results.json` | [`json::Json`]: everything computed (docs/RESULTS.md) |
 //! | `summary.md` | [`markdown::Markdown`]: verdict and comparison tables |
 //! | `figures/*.svg` | [`figures::SvgFiles`]: every figure as its own file |
+//! | `bands.csv` | [`csv::BandsCsv`]: confidence and prediction bands on the curve grid (one x column) |
 //! | `replicates.csv` | [`csv::Replicates`]: on request, every replicate estimate |
 //!
 //! The terminal tables of the command line are in [`text`].
@@ -49,8 +50,8 @@ pub enum ReportError {
     /// The results could not be written as JSON.
     #[error("results.json: {0}")]
     Json(#[from] serde_json::Error),
-    /// The replicate table could not be written.
-    #[error("replicates.csv: {0}")]
+    /// A CSV table (`replicates.csv`, `bands.csv`) could not be written.
+    #[error("CSV output: {0}")]
     Csv(String),
 }
 
@@ -74,6 +75,7 @@ pub fn default_renderers(options: &AuditOptions) -> Vec<Box<dyn Renderer>> {
         Box::new(json::Json),
         Box::new(markdown::Markdown),
         Box::new(figures::SvgFiles),
+        Box::new(csv::BandsCsv),
     ];
     if options.write_replicates {
         out.push(Box::new(csv::Replicates));
@@ -82,7 +84,8 @@ pub fn default_renderers(options: &AuditOptions) -> Vec<Box<dyn Renderer>> {
 }
 
 /// Draws the figures and writes every output of the audit into `out`:
-/// `report.html`, `results.json`, `summary.md`, `figures/*.svg` and, when
+/// `report.html`, `results.json`, `summary.md`, `figures/*.svg`, `bands.csv`
+/// (one x column) and, when
 /// `options.write_replicates`, `replicates.csv`. Nothing appears at `out`
 /// unless every file was written. Returns the final folder.
 pub fn write_report(

@@ -5,6 +5,8 @@
 use std::collections::BTreeMap;
 
 use crate::audit::AuditResults;
+use crate::diagnostics::derived::DerivedResampled;
+use crate::diagnostics::inverse::InverseProblem;
 use crate::diagnostics::profile::EndStatus;
 use crate::diagnostics::resample::{BcaWithheld, ResampleResult, ResampledParameter};
 use crate::diagnostics::verdict::Status;
@@ -156,9 +158,177 @@ pub fn verdicts(results: &AuditResults) -> Table {
                     },
                 ]
             })
+            .chain(results.derived.iter().map(|d| {
+                let v = &d.verdict;
+                let reasons = findings::reasons(v);
+                vec![
+                    format!("{} (derived)", d.name),
+                    findings::quote_text(v, Some(d.value), d.std_error),
+                    s(status_word(v.status)),
+                    if reasons.is_empty() {
+                        s(format::ABSENT)
+                    } else {
+                        reasons.join("; ")
+                    },
+                ]
+            }))
             .collect(),
     }
 }
+
+/// A resampled interval `[lower, upper]` at the precision of `se`.
+fn derived_interval(r: Option<&DerivedResampled>, se: Option<f64>) -> (String, String) {
+    match r {
+        Some(r) if r.used >= 2 => (
+            format::value_and_uncertainty(0.0, Some(r.summary.std)).1,
+            format!(
+                "[{}, {}]",
+                format::at_precision_of(r.summary.lower, se),
+                format::at_precision_of(r.summary.upper, se)
+            ),
+        ),
+        _ => (s(format::ABSENT), s(format::ABSENT)),
+    }
+}
+
+/// What the derived-quantity table shows, for the line under it.
+pub const DERIVED_NOTE: &str = "Standard errors of derived quantities by the law of propagation of \
+uncertainty with the full covariance (JCGM 100:2008, 5.2); bootstrap and Monte Carlo columns from the \
+quantity evaluated at every replicate estimate (the Monte Carlo interval is the probabilistically \
+symmetric one of JCGM 101:2008). Derived quantities have no profile interval.";
+
+/// The derived-quantity table: name, formula, value, standard uncertainty
+/// by propagation, expanded uncertainty, bootstrap and Monte Carlo SD and
+/// interval, quote.
+pub fn derived(results: &AuditResults) -> Table {
+    Table {
+        header: vec![
+            s("Quantity"),
+            s("Formula"),
+            s("Value"),
+            s("Standard error"),
+            expanded_header(&results.fit),
+            s("Bootstrap SD"),
+            s("Bootstrap interval"),
+            s("Monte Carlo SD"),
+            s("Monte Carlo interval"),
+            s("Quote"),
+        ],
+        rows: results
+            .derived
+            .iter()
+            .map(|d| {
+                let (v, u) = format::value_and_uncertainty(d.value, d.std_error);
+                let (bsd, bint) = derived_interval(d.bootstrap.as_ref(), d.std_error);
+                let (msd, mint) = derived_interval(d.monte_carlo.as_ref(), d.std_error);
+                vec![
+                    d.name.clone(),
+                    d.formula.clone(),
+                    v,
+                    u,
+                    d.expanded_uncertainty.map_or(s(format::ABSENT), |x| {
+                        format::value_and_uncertainty(0.0, Some(x)).1
+                    }),
+                    bsd,
+                    bint,
+                    msd,
+                    mint,
+                    findings::quote_text(&d.verdict, Some(d.value), d.std_error),
+                ]
+            })
+            .collect(),
+    }
+}
+
+/// Why an inverse prediction has no value, in words.
+pub fn inverse_problem_words(p: InverseProblem) -> &'static str {
+    match p {
+        InverseProblem::NoRoot => "the fitted curve does not reach this response inside the data range",
+        InverseProblem::SeveralRoots => {
+            "the fitted curve reaches this response more than once inside the data range"
+        }
+        InverseProblem::NotEvaluable => "the model cannot be evaluated for it (one x column is needed)",
+    }
+}
+
+/// The inverse-prediction table: one row per sample.
+pub fn inverse(results: &AuditResults) -> Table {
+    Table {
+        header: vec![
+            s("Sample"),
+            s("Response"),
+            s("Readings"),
+            s("x"),
+            s("Standard error"),
+            expanded_header(&results.fit),
+            s("Interval"),
+            s("u from the fit"),
+            s("u from the reading"),
+            s("Monte Carlo SD"),
+            s("Monte Carlo interval"),
+            s("Note"),
+        ],
+        rows: results
+            .inverse
+            .iter()
+            .map(|r| {
+                let (x, u) = match r.x {
+                    Some(x) => format::value_and_uncertainty(x, r.std_error),
+                    None => (s(format::ABSENT), s(format::ABSENT)),
+                };
+                let unc = |v: Option<f64>| {
+                    v.map_or(s(format::ABSENT), |u| {
+                        format::value_and_uncertainty(0.0, Some(u)).1
+                    })
+                };
+                let interval = match (r.lower, r.upper) {
+                    (Some(l), Some(h)) => format!(
+                        "[{}, {}]",
+                        format::at_precision_of(l, r.std_error),
+                        format::at_precision_of(h, r.std_error)
+                    ),
+                    _ => s(format::ABSENT),
+                };
+                let (mc_sd, mc_int) = match &r.monte_carlo {
+                    Some(m) if m.used >= 2 => (
+                        unc(Some(m.std)),
+                        format!(
+                            "[{}, {}]",
+                            format::at_precision_of(m.lower, r.std_error),
+                            format::at_precision_of(m.upper, r.std_error)
+                        ),
+                    ),
+                    _ => (s(format::ABSENT), s(format::ABSENT)),
+                };
+                let mut note = r.problem.map(|p| s(inverse_problem_words(p))).unwrap_or_default();
+                if let Some(m) = r.monte_carlo.as_ref().filter(|m| m.failed > 0) {
+                    note = format!("{} Monte Carlo trials without a root in range", m.failed);
+                }
+                vec![
+                    r.name.clone(),
+                    format!("{}", r.y),
+                    r.readings.to_string(),
+                    x,
+                    u,
+                    unc(r.std_error.map(|u| r.coverage_factor * u)),
+                    interval,
+                    unc(r.u_fit),
+                    unc(r.u_reading),
+                    mc_sd,
+                    mc_int,
+                    note,
+                ]
+            })
+            .collect(),
+    }
+}
+
+/// What the inverse-prediction table shows, for the line under it.
+pub const INVERSE_NOTE: &str = "x read off the fitted curve where it reaches each response, inside \
+the data range; its standard error combines the fit's covariance and the reading (standard \
+uncertainty of one reading over the square root of the readings), propagated through the implicit \
+function (JCGM 100:2008, 5.2). The Monte Carlo columns solve each trial's refitted curve for a \
+simulated reading.";
 
 /// The note of a parameter: fixed, at a bound, undetermined.
 pub fn param_note(p: &ParamResult) -> String {

@@ -137,6 +137,37 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
     out
 }
 
+/// The derived quantities of a fit (empty text without any): name, value,
+/// standard uncertainty by propagation, expanded uncertainty, formula.
+pub fn derived_table(fit: &FitResult, derived: &[crate::diagnostics::derived::DerivedResult]) -> String {
+    if derived.is_empty() {
+        return String::new();
+    }
+    let mut rows = vec![vec![
+        "derived".to_string(),
+        "value".into(),
+        "std error".into(),
+        tables::expanded_header(fit),
+        "formula".into(),
+    ]];
+    for d in derived {
+        let (v, u) = format::value_and_uncertainty(d.value, d.std_error);
+        rows.push(vec![
+            d.name.clone(),
+            v,
+            u,
+            d.expanded_uncertainty.map_or(format::ABSENT.to_string(), |x| {
+                format::value_and_uncertainty(0.0, Some(x)).1
+            }),
+            d.formula.clone(),
+        ]);
+    }
+    format!(
+        "\n{}(standard errors by propagation with the full covariance, JCGM 100:2008, 5.2)\n",
+        columns(&rows, &[1, 2, 3])
+    )
+}
+
 /// One line per parameter: name, the interval to quote, status, first
 /// reason; led by a warning
 /// line when the multi-start search found a better minimum than the base fit.

@@ -219,6 +219,18 @@ pub enum StudyError {
         /// The study file.
         at: Box<At>,
     },
+    /// A `[derived]` formula does not compile (syntax, unknown name, arity).
+    #[error("{at}: `{key}`: {message}{}", column.map(|c| format!(" (column {c} of the formula)")).unwrap_or_default())]
+    DerivedFormula {
+        /// Where the formula is.
+        at: Box<At>,
+        /// The key, `derived.NAME`.
+        key: String,
+        /// What is wrong.
+        message: String,
+        /// 1-based column in the formula.
+        column: Option<usize>,
+    },
     /// The formula does not parse.
     #[error("{at}: `model.formula`: {message}{}", column.map(|c| format!(" (column {c} of the formula)")).unwrap_or_default())]
     Formula {

@@ -63,9 +63,13 @@ mod spec;
 
 pub use self::csv::{parse_raw, read_csv, RawTable, Table};
 pub use self::error::{At, Shadow, StudyError};
-pub use self::spec::{DataSpec, FitSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec};
+pub use self::spec::{
+    DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec,
+};
 
 use crate::data::Dataset;
+use crate::diagnostics::derived::DerivedQuantity;
+use crate::diagnostics::inverse::{InverseModel, InverseRequest};
 use crate::fit::{FitOptions, ParamSpec, Problem};
 use crate::model::{self, ModelErrorKind, ModelFn, Symbols, Tape};
 use crate::settings::AuditSettings;
@@ -97,6 +101,13 @@ pub struct Study {
     pub fit_options: FitOptions,
     /// The compiled formula.
     pub model: Tape,
+    /// The `[derived]` quantities, compiled, in file order.
+    pub derived: Vec<DerivedQuantity>,
+    /// The `[[inverse]]` requests, checked, in file order.
+    pub inverse: Vec<InverseRequest>,
+    /// The model with its x column as an extra last parameter (exact
+    /// `df/dx`), when there are inverse requests.
+    pub inverse_model: Option<InverseModel>,
     /// SHA-256 (hex) of the study file's bytes, when read from a file.
     pub study_sha256: Option<String>,
     /// SHA-256 (hex) of the data file's bytes, when read from a file.
@@ -618,10 +629,148 @@ fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
 
 /// Where in the study file a formula column lies.
 fn formula_at(spec: &StudySpec, column: Option<usize>) -> At {
-    match (spec.locations.get("model.formula"), column) {
+    key_column_at(spec, "model.formula", column)
+}
+
+/// Where in the study file column `column` of the string at `key` lies.
+fn key_column_at(spec: &StudySpec, key: &str, column: Option<usize>) -> At {
+    match (spec.locations.get(key), column) {
         (Some(l), Some(c)) if l.plain_string => At::cell(&spec.origin, l.line, l.column + c),
-        _ => spec.at("model.formula"),
+        _ => spec.at(key),
     }
+}
+
+/// Checks `[[inverse]]` and compiles the model with its x column as a
+/// parameter (for exact `df/dx`).
+fn check_inverse(
+    spec: &StudySpec,
+    names: &[String],
+    dataset: &Dataset,
+) -> Result<(Vec<InverseRequest>, Option<InverseModel>), StudyError> {
+    if spec.inverse.is_empty() {
+        return Ok((Vec::new(), None));
+    }
+    let mut out: Vec<InverseRequest> = Vec::new();
+    for (i, e) in spec.inverse.iter().enumerate() {
+        let key = format!("inverse[{i}]");
+        if dataset.x.len() != 1 {
+            return Err(invalid(
+                spec,
+                &key,
+                format!(
+                    "reads a response off the curve, which needs exactly one x column; the model has {}",
+                    dataset.x.len()
+                ),
+            ));
+        }
+        if e.name.trim().is_empty() {
+            return Err(invalid(spec, &format!("{key}.name"), "is empty: name the sample"));
+        }
+        if out.iter().any(|r| r.name == e.name) {
+            return Err(invalid(
+                spec,
+                &format!("{key}.name"),
+                format!("`{}` is used twice", e.name),
+            ));
+        }
+        if !e.y.is_finite() {
+            return Err(invalid(spec, &format!("{key}.y"), "must be a finite number"));
+        }
+        let readings = e.readings.unwrap_or(1);
+        if readings == 0 {
+            return Err(invalid(spec, &format!("{key}.readings"), "must be at least 1"));
+        }
+        if let Some(s) = e.sigma {
+            if !(s.is_finite() && s > 0.0) {
+                return Err(invalid(
+                    spec,
+                    &format!("{key}.sigma"),
+                    "must be a positive finite number",
+                ));
+            }
+        }
+        out.push(InverseRequest {
+            name: e.name.clone(),
+            y: e.y,
+            readings,
+            sigma: e.sigma,
+        });
+    }
+    let mut with_x = names.to_vec();
+    with_x.push(dataset.x_names[0].clone());
+    let symbols = Symbols {
+        parameters: &with_x,
+        constants: &spec.constants,
+        variables: &[],
+    };
+    let tape = model::compile(&spec.model.formula, &symbols).map_err(|e| StudyError::Formula {
+        at: Box::new(formula_at(spec, e.column)),
+        message: e.kind.to_string(),
+        column: e.column,
+    })?;
+    Ok((out, Some(InverseModel { tape })))
+}
+
+/// Compiles the `[derived]` table over the parameters and constants.
+fn compile_derived(spec: &StudySpec, names: &[String]) -> Result<Vec<DerivedQuantity>, StudyError> {
+    let symbols = Symbols {
+        parameters: names,
+        constants: &spec.constants,
+        variables: &[],
+    };
+    let mut out: Vec<DerivedQuantity> = Vec::with_capacity(spec.derived.len());
+    for (name, formula) in &spec.derived {
+        let key = format!("derived.{name}");
+        if !is_identifier(name) {
+            return Err(invalid(
+                spec,
+                &key,
+                "is not a name (letters, digits and `_`, not starting with a digit)",
+            ));
+        }
+        if names.contains(name) || spec.constants.iter().any(|(c, _)| c == name) {
+            return Err(invalid(
+                spec,
+                &key,
+                "has the name of a parameter or constant: give the derived quantity its own name",
+            ));
+        }
+        if out.iter().any(|q| &q.name == name) {
+            return Err(invalid(spec, &key, "is declared twice"));
+        }
+        let tape = model::compile(formula, &symbols).map_err(|e| {
+            let message = match &e.kind {
+                ModelErrorKind::UnknownName { name, suggestion } => format!(
+                    "uses `{name}`, which is neither a parameter nor a constant (a derived quantity is a \
+                     function of the parameters and constants only); known names: {}{}",
+                    error::name_list(
+                        &names
+                            .iter()
+                            .chain(spec.constants.iter().map(|(n, _)| n))
+                            .cloned()
+                            .collect::<Vec<_>>()
+                    ),
+                    suggestion
+                        .as_ref()
+                        .map(|s| format!("; did you mean `{s}`?"))
+                        .unwrap_or_default()
+                ),
+                other => other.to_string(),
+            };
+            StudyError::DerivedFormula {
+                at: Box::new(key_column_at(spec, &key, e.column)),
+                key: key.clone(),
+                message,
+                column: e.column,
+            }
+        })?;
+        out.push(DerivedQuantity {
+            name: name.clone(),
+            formula: formula.clone(),
+            tape,
+        });
+    }
+    Ok(out)
 }
 
 /// The checks that need both spec and data, compilation, and assembly.
@@ -678,6 +827,8 @@ fn finish(
             column: e.column,
         },
     })?;
+    let derived = compile_derived(&spec, &names)?;
+    let (inverse, inverse_model) = check_inverse(&spec, &names, &dataset)?;
     for (j, p) in params.iter().enumerate() {
         if !tape.uses_parameter(j) {
             return Err(StudyError::UnusedParameter {
@@ -764,6 +915,9 @@ fn finish(
         },
         audit: spec.audit,
         model: tape,
+        derived,
+        inverse,
+        inverse_model,
         study_sha256: None,
         data_sha256,
         data_lines,

@@ -34,6 +34,13 @@ pub struct StudySpec {
     /// `[constants]`: named numbers the formula may use, in file order.
     #[serde(default, with = "ordered")]
     pub constants: Vec<(String, f64)>,
+    /// `[derived]`: `name = "formula"` over parameters and constants, in
+    /// file order.
+    #[serde(default, with = "ordered", skip_serializing_if = "Vec::is_empty")]
+    pub derived: Vec<(String, String)>,
+    /// `[[inverse]]`: responses to read off the fitted curve.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub inverse: Vec<InverseSpec>,
     /// `[audit]`: settings of the diagnostics.
     #[serde(default)]
     pub audit: AuditSettings,
@@ -104,6 +111,23 @@ impl<'de> Deserialize<'de> for SigmaSpec {
         }
         d.deserialize_any(V)
     }
+}
+
+/// One entry of `[[inverse]]`: a measured response to read off the curve.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct InverseSpec {
+    /// Name of the sample.
+    pub name: String,
+    /// The measured response (a mean of `readings` readings).
+    pub y: f64,
+    /// Readings averaged into `y` (default 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub readings: Option<usize>,
+    /// Standard uncertainty of one reading (default: the data's sigma
+    /// interpolated at the result, else `s`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sigma: Option<f64>,
 }
 
 /// `[model]`.
@@ -307,6 +331,8 @@ impl StudySpec {
             },
             parameters,
             constants: Vec::new(),
+            derived: Vec::new(),
+            inverse: Vec::new(),
             audit: AuditSettings::default(),
             fit: FitSpec::default(),
             origin: PathBuf::new(),

@@ -432,6 +432,90 @@ pub fn cooling() -> AuditResults {
     };
     let settings = AuditSettings::default();
     let level = settings.level;
+    let bootstrap = resample(
+        "residual",
+        Stream::Bootstrap,
+        BOOT,
+        &cov,
+        &se,
+        level,
+        vec![FailedReplicate {
+            index: 7,
+            reason: "not-converged".into(),
+        }],
+    );
+    let monte_carlo = resample("normal", Stream::MonteCarlo, MC, &cov, &se, level, vec![]);
+    // The analytic bands of the model with its exact gradient, and the
+    // percentile bands of the replicates above.
+    let native = fitaudit::model::NativeModel::new(3, |a: &[f64], x: &[f64], g: &mut [f64]| {
+        g.copy_from_slice(&gradient(a, x[0]));
+        model(a, x[0])
+    });
+    let bands = fitaudit::diagnostics::bands::compute(
+        &native,
+        &data,
+        &fit,
+        &curve.x,
+        Some(&bootstrap),
+        Some(&monte_carlo),
+    );
+    // A derived quantity (the half time ln 2 tau) through the library's
+    // propagation and resampled summaries.
+    let ms = multistart(chi2, &se);
+    let names: Vec<String> = NAMES.iter().map(|s| s.to_string()).collect();
+    let symbols = fitaudit::model::Symbols {
+        parameters: &names,
+        constants: &[],
+        variables: &[],
+    };
+    let half = fitaudit::diagnostics::derived::DerivedQuantity {
+        name: "half_time".into(),
+        formula: "ln(2)*tau".into(),
+        tape: fitaudit::model::compile("ln(2)*tau", &symbols).unwrap(),
+    };
+    let derived = fitaudit::diagnostics::derived::evaluate(
+        &[half],
+        &fitaudit::diagnostics::verdict::VerdictInputs {
+            fit: &fit,
+            bootstrap: Some(&bootstrap),
+            monte_carlo: Some(&monte_carlo),
+            profile: None,
+            multistart: Some(&ms),
+            tolerance: settings.tolerance,
+            sigma_given: true,
+            level,
+        },
+    );
+    // A sample read off the curve at 50 degC (mean of two readings).
+    let mut with_t = names.clone();
+    with_t.push("t_s".into());
+    let inverse_model = fitaudit::diagnostics::inverse::InverseModel {
+        tape: fitaudit::model::compile(
+            "T_env + dT*exp(-t_s/tau)",
+            &fitaudit::model::Symbols {
+                parameters: &with_t,
+                constants: &[],
+                variables: &[],
+            },
+        )
+        .unwrap(),
+    };
+    let inverse = fitaudit::diagnostics::inverse::evaluate(
+        &[fitaudit::diagnostics::inverse::InverseRequest {
+            name: "sample".into(),
+            y: 50.0,
+            readings: 2,
+            sigma: None,
+        }],
+        &fitaudit::diagnostics::inverse::InverseInputs {
+            model: &native,
+            inverse_model: &inverse_model,
+            data: &data,
+            fit: &fit,
+            monte_carlo: Some(&monte_carlo),
+            seed: 1,
+        },
+    );
     let sc = &fitaudit::demo::SCENARIOS[0];
     AuditResults {
         schema_version: SCHEMA_VERSION,
@@ -457,34 +541,18 @@ pub fn cooling() -> AuditResults {
         diagnostics_run: Diagnostic::ALL.to_vec(),
         start_fit: None,
         rebased: false,
-        bootstrap: Some(resample(
-            "residual",
-            Stream::Bootstrap,
-            BOOT,
-            &cov,
-            &se,
-            level,
-            vec![FailedReplicate {
-                index: 7,
-                reason: "not-converged".into(),
-            }],
-        )),
-        monte_carlo: Some(resample(
-            "normal",
-            Stream::MonteCarlo,
-            MC,
-            &cov,
-            &se,
-            level,
-            vec![],
-        )),
+        bootstrap: Some(bootstrap),
+        monte_carlo: Some(monte_carlo),
         profile: Some(profile(&cov, &se, chi2)),
         contours: Some(contours(&cov, &se, chi2)),
-        multistart: Some(multistart(chi2, &se)),
+        multistart: Some(ms),
         verdicts: verdicts(&se, level),
+        derived,
+        inverse,
         data,
         fit,
         curve: Some(curve),
+        bands,
         reduction: None,
     }
 }
@@ -722,6 +790,7 @@ pub fn two_variables() -> AuditResults {
     r.data.x.push(t.iter().map(|v| 0.5 * v + 3.0).collect());
     r.data.x_names.push("u".into());
     r.curve = None;
+    r.bands = None;
     r
 }
 

@@ -4,6 +4,7 @@
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
+use crate::diagnostics::bands::NewObservation;
 use crate::report::ReportError;
 
 /// Axis title of the residuals drawn: normalised by the stated sigma, or,
@@ -43,6 +44,81 @@ pub(crate) fn residual_words(results: &AuditResults) -> String {
     }
 }
 
+/// One band of the fit figure: its two edges, stroke and legend label.
+struct BandLines {
+    lines: Vec<Vec<(f64, f64)>>,
+    stroke: Stroke,
+    label: String,
+}
+
+/// The bands to draw over the fitted curve (none without bands).
+fn band_lines(results: &AuditResults) -> Vec<BandLines> {
+    let Some(b) = &results.bands else {
+        return Vec::new();
+    };
+    let level = crate::report::format::percent(b.level, 4);
+    let edge = |v: &[f64]| -> Vec<(f64, f64)> { b.x.iter().copied().zip(v.iter().copied()).collect() };
+    let mut out = vec![
+        BandLines {
+            lines: vec![edge(&b.confidence_lower), edge(&b.confidence_upper)],
+            stroke: Stroke::new(Dash::Dashed, 1, 0),
+            label: format!("{level} confidence band"),
+        },
+        BandLines {
+            lines: vec![edge(&b.prediction_lower), edge(&b.prediction_upper)],
+            stroke: Stroke::new(Dash::Dotted, 1, 0),
+            label: format!("{level} prediction band"),
+        },
+    ];
+    for (name, rb, grey) in [
+        ("bootstrap", b.bootstrap.as_ref(), 90),
+        ("Monte Carlo", b.monte_carlo.as_ref(), 150),
+    ] {
+        if let Some(rb) = rb {
+            out.push(BandLines {
+                lines: vec![edge(&rb.lower), edge(&rb.upper)],
+                stroke: Stroke::new(Dash::Long, 1, grey),
+                label: format!("{name} percentile band"),
+            });
+        }
+    }
+    out
+}
+
+/// The caption's words on the bands drawn (empty without bands).
+fn band_words(results: &AuditResults) -> String {
+    let Some(b) = &results.bands else {
+        return String::new();
+    };
+    let fmt = crate::report::format::sig;
+    let new_obs = match b.new_observation {
+        NewObservation::InterpolatedSigma => "\u{3c3} interpolated at x",
+        NewObservation::ScaledSigma => "\u{3c3} interpolated at x times \u{221a}(\u{3c7}\u{b2}/dof)",
+        NewObservation::ResidualVariance => "the residual standard deviation s",
+    };
+    let mut w = format!(
+        " with its pointwise {} confidence band (dashed, f \u{b1} k u_f, k = {}) and prediction band \
+         (dotted, adding one new observation of standard uncertainty {new_obs})",
+        crate::report::format::percent(b.level, 4),
+        fmt(b.coverage_factor, 4)
+    );
+    let resampled: Vec<&str> = [
+        b.bootstrap.as_ref().map(|_| "bootstrap"),
+        b.monte_carlo.as_ref().map(|_| "Monte Carlo"),
+    ]
+    .into_iter()
+    .flatten()
+    .collect();
+    if !resampled.is_empty() {
+        w.push_str(&format!(
+            ", and the {} percentile band{} of the replicate curves (long dashes)",
+            resampled.join(" and "),
+            if resampled.len() > 1 { "s" } else { "" }
+        ));
+    }
+    w
+}
+
 /// The fit figure, or None when there are no points.
 pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportError> {
     let data = &results.data;
@@ -65,11 +141,13 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             .as_ref()
             .map(|c| c.x.iter().copied().zip(c.y.iter().copied()).collect())
             .unwrap_or_default();
+        let bands = band_lines(results);
         let xr = svg::extent(x.iter().copied().chain(curve.iter().map(|p| p.0)));
         let yr = svg::extent(
             (0..n)
                 .flat_map(|i| [data.y[i] - err(i), data.y[i] + err(i)])
-                .chain(curve.iter().map(|p| p.1)),
+                .chain(curve.iter().map(|p| p.1))
+                .chain(bands.iter().flat_map(|b| b.lines.iter().flatten().map(|p| p.1))),
         );
         let (Some(xr), Some(yr)) = (xr, yr) else {
             return Ok(None);
@@ -94,6 +172,9 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
                 Stroke::new(Dash::Solid, 2, 0),
                 Some("fitted model"),
             )?;
+            for b in &bands {
+                c.lines(&b.lines, b.stroke, Some(&b.label))?;
+            }
             svg::legend(&side, &c.legend)?;
             let mut r = svg::chart(&bottom, None, xr, rr, x_name, res_label)?;
             r.lines(
@@ -108,12 +189,13 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             file: "fit.svg".into(),
             title: "Data and fitted model".into(),
             caption: format!(
-                "Top: {y_name} against {x_name}, {}, and the fitted model. Bottom: {} of each point.",
+                "Top: {y_name} against {x_name}, {}, and the fitted model{}. Bottom: {} of each point.",
                 if sigma.is_some() {
                     "error bars \u{b1}1 standard uncertainty"
                 } else {
                     "no uncertainties given"
                 },
+                band_words(results),
                 residual_words(results)
             ),
             svg: svg_text,
