@@ -213,7 +213,7 @@ fn bench(label: &str, model: &dyn ModelFn, data: &Dataset) {
         .unwrap()
         .install(|| bootstrap::run_with(&ctx, &bs, true, &NoProgress));
     println!(
-        "{label}: full bootstrap::run_with (BCa, {} jackknife refits) on 2 threads {:.3} s",
+        "{label}: full bootstrap::run_with (BCa from {} linearised leave-one-out values) on 2 threads {:.3} s",
         full.jackknife_refits,
         t0.elapsed().as_secs_f64()
     );
