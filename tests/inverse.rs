@@ -189,3 +189,18 @@ fn bad_inverse_entries_name_the_key() {
         }
     }
 }
+
+#[test]
+fn inverse_needs_exactly_one_x_column() {
+    // Two x columns: an x0 cannot be read off a curve, and the error names
+    // the key to fix.
+    let csv_text = "conc,temp,resp\n1,20,1.0\n2,21,1.9\n3,22,2.8\n4,23,3.9\n5,24,4.7\n";
+    let study_text = "[data]\nfile = \"data.csv\"\nx = [\"conc\", \"temp\"]\ny = \"resp\"\n\n[model]\n\
+                      formula = \"b0 + b1*conc + 0*temp\"\n\n[parameters]\nb0 = { start = 0 }\nb1 = { start = 1 }\n\n\
+                      [[inverse]]\nname = \"A\"\ny = 3.2\n";
+    let msg = run(study_text, csv_text, &[]).unwrap_err();
+    assert!(
+        msg.contains("inverse") && msg.contains("exactly one x column"),
+        "{msg}"
+    );
+}
