@@ -233,6 +233,23 @@ pub struct EndCheck {
     pub active: usize,
 }
 
+impl EndCheck {
+    /// Why the end point is not a verified minimum, most specific cause
+    /// first: a plateau, a runaway, or (failing the optimality test) a
+    /// stall; None for a verified minimum.
+    pub fn failure(&self) -> Option<StopReason> {
+        if self.plateau.is_some() {
+            Some(StopReason::Plateau)
+        } else if self.runaway.is_some() {
+            Some(StopReason::Runaway)
+        } else if !self.optimal {
+            Some(StopReason::Stalled)
+        } else {
+            None
+        }
+    }
+}
+
 /// Tolerance of the first-order optimality test: the Gauss-Newton step
 /// from a converged end point moves the parameters by less than this many
 /// standard errors (in the Mahalanobis metric of the covariance), i.e.

@@ -653,17 +653,12 @@ pub(crate) fn judge(out: &mut Refit) {
         out.converged = false;
         return;
     }
-    if out.end.plateau.is_some() {
-        out.converged = false;
-        out.stop = StopReason::Plateau;
-    } else if out.end.runaway.is_some() {
-        out.converged = false;
-        out.stop = StopReason::Runaway;
-    } else if !out.end.optimal {
-        out.converged = false;
-        out.stop = StopReason::Stalled;
-    } else {
-        out.converged = true;
+    match out.end.failure() {
+        Some(stop) => {
+            out.converged = false;
+            out.stop = stop;
+        }
+        None => out.converged = true,
     }
 }
 

@@ -352,22 +352,26 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     if total.chi2.is_finite() {
         if let Ok(end) = rf.check_at(problem, &view, &current, &start_point, &start_columns) {
             total.end = end;
-            let verified = end.optimal && end.plateau.is_none() && end.runaway.is_none();
-            if verified && total.stop != StopReason::NonFinite {
-                total.converged = true;
-                if !total.stop.is_convergence() {
-                    total.stop = StopReason::Gradient;
+            match end.failure() {
+                None if total.stop != StopReason::NonFinite => {
+                    total.converged = true;
+                    if !total.stop.is_convergence() {
+                        total.stop = StopReason::Gradient;
+                    }
                 }
-            } else {
+                None => total.converged = false,
                 // Not a verified minimum. A plateau or a runaway is the
-                // most specific cause, whichever rule stopped the search.
-                total.converged = false;
-                if end.plateau.is_some() {
-                    total.stop = StopReason::Plateau;
-                } else if end.runaway.is_some() {
-                    total.stop = StopReason::Runaway;
-                } else if total.stop.is_convergence() {
-                    total.stop = StopReason::Stalled;
+                // most specific cause, whichever rule stopped the search;
+                // a stall replaces only a stop that claimed convergence.
+                Some(StopReason::Stalled) => {
+                    total.converged = false;
+                    if total.stop.is_convergence() {
+                        total.stop = StopReason::Stalled;
+                    }
+                }
+                Some(stop) => {
+                    total.converged = false;
+                    total.stop = stop;
                 }
             }
         }
