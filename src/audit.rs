@@ -6,6 +6,7 @@ use serde::{Deserialize, Serialize};
 use crate::data::Dataset;
 use crate::diagnostics::bands::Bands;
 use crate::diagnostics::contour::ContourResult;
+use crate::diagnostics::coverage::CoverageResult;
 use crate::diagnostics::derived::{DerivedQuantity, DerivedResult};
 use crate::diagnostics::inverse::{InverseModel, InverseRequest, InverseResult};
 use crate::diagnostics::multistart::MultistartResult;
@@ -143,6 +144,10 @@ pub struct AuditResults {
     pub contours: Option<Vec<ContourResult>>,
     /// Multi-start search.
     pub multistart: Option<MultistartResult>,
+    /// Coverage of the study's own intervals, simulated at the fit (absent
+    /// when it did not run; it is not in the default battery).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub coverage: Option<CoverageResult>,
     /// Verdict per parameter.
     pub verdicts: Vec<Verdict>,
     /// Derived quantities of the study's `[derived]` table, in file order
@@ -254,6 +259,7 @@ pub fn run(
     let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| diagnostics::monte_carlo::run(&ctx, progress));
     let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
     let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
+    let coverage = wants(Diagnostic::Coverage).then(|| diagnostics::coverage::run(&ctx, progress));
 
     let verdict_inputs = VerdictInputs {
         fit: &audited,
@@ -265,7 +271,10 @@ pub fn run(
         sigma_given: input.data.has_sigma(),
         level: input.settings.level,
     };
-    let verdicts = verdict::decide(&verdict_inputs);
+    let mut verdicts = verdict::decide(&verdict_inputs);
+    if let Some(c) = &coverage {
+        verdict::apply_coverage(&mut verdicts, c, profile.as_ref(), input.settings.tolerance);
+    }
     let derived = diagnostics::derived::evaluate(input.derived, &verdict_inputs);
     let inverse = match input.inverse_model {
         Some(im) if !input.inverse.is_empty() => diagnostics::inverse::evaluate(
@@ -338,6 +347,7 @@ pub fn run(
         profile,
         contours,
         multistart,
+        coverage,
         verdicts,
         derived,
         inverse,

@@ -74,7 +74,8 @@ struct AuditArgs {
     #[arg(long)]
     out: Option<PathBuf>,
     /// Comma-separated diagnostics to run: bootstrap, monte-carlo, profile,
-    /// contours, multistart [default: all].
+    /// contours, multistart, coverage [default: all but coverage; coverage
+    /// too when the study sets audit.coverage.enabled].
     #[arg(long, value_delimiter = ',', value_parser = parse_diagnostic)]
     only: Option<Vec<Diagnostic>>,
     /// Replicates of both bootstrap and Monte Carlo (overrides the study).
@@ -119,11 +120,11 @@ enum MethodArg {
 const STEEPEST_MIN_ITERATIONS: usize = 100_000;
 
 fn parse_diagnostic(s: &str) -> Result<Diagnostic, String> {
-    Diagnostic::ALL
+    Diagnostic::SELECTABLE
         .into_iter()
         .find(|d| d.cli_name() == s.trim())
         .ok_or_else(|| {
-            let names: Vec<_> = Diagnostic::ALL.iter().map(|d| d.cli_name()).collect();
+            let names: Vec<_> = Diagnostic::SELECTABLE.iter().map(|d| d.cli_name()).collect();
             format!("unknown diagnostic '{s}'; choose from {}", names.join(", "))
         })
 }
@@ -239,7 +240,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         .unwrap_or_else(|| Path::new("out").join(cli_support::folder_name(&study.name)));
     fitaudit::output::preflight(&out)?;
     let options = AuditOptions {
-        only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
+        only: args.only.clone().unwrap_or_else(|| study.audit.battery()),
         command_line: command_line(),
         write_replicates: args.replicates_csv,
     };

@@ -19,6 +19,8 @@ pub enum Stream {
     MonteCarlo,
     /// Multi-start starting points.
     Multistart,
+    /// Coverage simulation: data sets drawn at the fitted values.
+    Coverage,
     /// Tests and examples that need their own numbers.
     Other(u32),
 }
@@ -29,6 +31,7 @@ impl Stream {
             Stream::Bootstrap => (1u32, 0u32),
             Stream::MonteCarlo => (2, 0),
             Stream::Multistart => (3, 0),
+            Stream::Coverage => (5, 0),
             Stream::Other(k) => (4, k),
         };
         let mut t = [0u8; 8];

@@ -24,6 +24,8 @@ pub struct AuditSettings {
     pub contours: ContourSettings,
     /// Multi-start settings.
     pub multistart: MultistartSettings,
+    /// Coverage-simulation settings.
+    pub coverage: CoverageSettings,
     /// Relative tolerance below which a disagreement between a resampled and
     /// the analytic uncertainty does not count (0.2 = 20 %).
     pub tolerance: f64,
@@ -39,6 +41,7 @@ impl Default for AuditSettings {
             profile: ProfileSettings::default(),
             contours: ContourSettings::default(),
             multistart: MultistartSettings::default(),
+            coverage: CoverageSettings::default(),
             tolerance: 0.2,
         }
     }
@@ -189,6 +192,34 @@ impl Default for MultistartSettings {
     }
 }
 
+/// `[audit] coverage = {...}`: the coverage simulation of the study's own
+/// intervals (data sets drawn at the fitted values with the study's error
+/// model, each refitted and its intervals recomputed).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct CoverageSettings {
+    /// Simulated data sets (each costs one refit plus a profile crossing
+    /// search per free parameter).
+    pub replicates: usize,
+    /// Run it in the default battery (when `--only` is not given); it is
+    /// not part of the default battery otherwise.
+    pub enabled: bool,
+    /// Degrees of freedom of Student-t noise; normal noise when absent.
+    /// Absent here, the Monte Carlo's `student_t_dof` is used, so both
+    /// simulations share one error model.
+    pub student_t_dof: Option<f64>,
+}
+
+impl Default for CoverageSettings {
+    fn default() -> Self {
+        CoverageSettings {
+            replicates: 1000,
+            enabled: false,
+            student_t_dof: None,
+        }
+    }
+}
+
 /// Which diagnostics an audit runs.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
@@ -203,10 +234,14 @@ pub enum Diagnostic {
     Contours,
     /// Multi-start search.
     Multistart,
+    /// Coverage of the study's own intervals, simulated at the fit.
+    Coverage,
 }
 
 impl Diagnostic {
-    /// All diagnostics, in run order.
+    /// The default battery, in run order (every diagnostic but the
+    /// coverage simulation, which is opt-in: see [`Diagnostic::SELECTABLE`]
+    /// and [`AuditSettings::battery`]).
     pub const ALL: [Diagnostic; 5] = [
         Diagnostic::Bootstrap,
         Diagnostic::MonteCarlo,
@@ -223,11 +258,33 @@ impl Diagnostic {
             Diagnostic::Profile => "profile",
             Diagnostic::Contours => "contours",
             Diagnostic::Multistart => "multistart",
+            Diagnostic::Coverage => "coverage",
         }
     }
+
+    /// Every diagnostic `--only` accepts: the default battery and the
+    /// coverage simulation.
+    pub const SELECTABLE: [Diagnostic; 6] = [
+        Diagnostic::Bootstrap,
+        Diagnostic::MonteCarlo,
+        Diagnostic::Profile,
+        Diagnostic::Contours,
+        Diagnostic::Multistart,
+        Diagnostic::Coverage,
+    ];
 }
 
 impl AuditSettings {
+    /// The diagnostics run when `--only` is not given: [`Diagnostic::ALL`],
+    /// plus the coverage simulation when `coverage.enabled`.
+    pub fn battery(&self) -> Vec<Diagnostic> {
+        let mut v = Diagnostic::ALL.to_vec();
+        if self.coverage.enabled {
+            v.push(Diagnostic::Coverage);
+        }
+        v
+    }
+
     /// Checks value ranges; returns the offending key and why.
     pub fn validate(&self) -> Result<(), (String, String)> {
         let bad = |k: &str, why: &str| Err((k.to_string(), why.to_string()));
@@ -253,6 +310,17 @@ impl AuditSettings {
                 "audit.monte_carlo.adaptive_tolerance",
                 "must lie strictly between 0 and 1",
             );
+        }
+        if self.coverage.replicates < 2 {
+            return bad("audit.coverage.replicates", "must be at least 2");
+        }
+        if let Some(nu) = self.coverage.student_t_dof {
+            if !(nu.is_finite() && nu > 2.0) {
+                return bad(
+                    "audit.coverage.student_t_dof",
+                    "must be a number greater than 2 (the variance must exist)",
+                );
+            }
         }
         if self.profile.points < 5 {
             return bad("audit.profile.points", "must be at least 5");

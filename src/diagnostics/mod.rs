@@ -10,6 +10,7 @@ use crate::settings::AuditSettings;
 pub mod bands;
 pub mod bootstrap;
 pub mod contour;
+pub mod coverage;
 pub mod derived;
 pub mod influence;
 pub mod inverse;

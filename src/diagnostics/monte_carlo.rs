@@ -173,27 +173,48 @@ pub fn trials(
     indices: std::ops::Range<usize>,
     progress: &dyn Progress,
 ) -> Vec<Outcome> {
-    let data = ctx.data;
-    let n = data.len();
+    let n = ctx.data.len();
     let seed = ctx.settings.seed;
-    let s = noise_scale(ctx);
-    let sigma: Vec<f64> = data.sigma_or_ones().iter().map(|v| v * s).collect();
-    let given_sigma = data.sigma_or_ones();
-    let fitted = ctx.fitted_values();
-    let t = settings
-        .student_t_dof
-        .and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt())));
+    let noise = Noise::new(ctx, settings.student_t_dof);
+    let given_sigma = ctx.data.sigma_or_ones();
     resample::refit_replicates(ctx, indices, n, false, progress, |k, smp| {
         let mut rng = rng::stream(seed, Stream::MonteCarlo, k as u64);
-        for (y, (f, sg)) in smp.y.iter_mut().zip(fitted.iter().zip(&sigma)) {
-            let e: f64 = match &t {
-                Some((d, scale)) => d.sample(&mut rng) * scale,
+        noise.draw(&mut rng, &mut smp.y);
+        smp.sigma.copy_from_slice(&given_sigma);
+    })
+}
+
+/// The simulated error model: `y*_i = f(x_i; a_hat) + s * sigma_i * e_i`
+/// with `e_i` standard normal or unit-variance Student-t (module
+/// documentation). Shared by the Monte Carlo and the coverage simulation.
+pub struct Noise {
+    fitted: Vec<f64>,
+    sigma: Vec<f64>,
+    t: Option<(StudentT<f64>, f64)>,
+}
+
+impl Noise {
+    /// The error model of `ctx` (noise scale [`noise_scale`]), with
+    /// Student-t noise of `student_t_dof` degrees of freedom when given.
+    pub fn new(ctx: &Fitted, student_t_dof: Option<f64>) -> Noise {
+        let s = noise_scale(ctx);
+        Noise {
+            fitted: ctx.fitted_values(),
+            sigma: ctx.data.sigma_or_ones().iter().map(|v| v * s).collect(),
+            t: student_t_dof.and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt()))),
+        }
+    }
+
+    /// Writes one simulated response per point into `y`, drawing from `rng`.
+    pub fn draw<R: Rng>(&self, rng: &mut R, y: &mut [f64]) {
+        for (y, (f, sg)) in y.iter_mut().zip(self.fitted.iter().zip(&self.sigma)) {
+            let e: f64 = match &self.t {
+                Some((d, scale)) => d.sample(rng) * scale,
                 None => rng.sample(StandardNormal),
             };
             *y = f + sg * e;
         }
-        smp.sigma.copy_from_slice(&given_sigma);
-    })
+    }
 }
 
 #[cfg(test)]

@@ -194,6 +194,73 @@ pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ProfileResult {
     }
 }
 
+/// The two ends of one parameter's profile interval from the crossing
+/// search alone (no display grid): the outward explorations of
+/// [`run`] followed by the same Brent refinement of each crossing. What the
+/// coverage simulation computes on every simulated data set.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CrossingEnds {
+    /// Lower end (the last value scanned when not found).
+    pub lower: f64,
+    /// Upper end.
+    pub upper: f64,
+    /// How the scan below the estimate ended.
+    pub lower_status: EndStatus,
+    /// How the scan above the estimate ended.
+    pub upper_status: EndStatus,
+    /// Refits run.
+    pub refits: usize,
+    /// Refits that failed.
+    pub failed: usize,
+}
+
+/// The profile interval of parameter `j` of `ctx` at the audit level: the
+/// crossings of `chi2_min + q * s` (threshold and scale as in [`run`])
+/// below and above the estimate, each explored outward from the fit
+/// (warm-started from the previous point) and refined by Brent's method.
+pub fn crossing_ends(ctx: &Fitted, j: usize) -> CrossingEnds {
+    let ctx: &Fitted = ctx;
+    let q = threshold_for(ctx.fit, ctx.settings.level);
+    let scale = chi2_scale(ctx.fit);
+    let chi2_min = ctx.fit.chi2;
+    let mut sc = Scanner::new(ctx);
+    let base = ctx.values();
+    let est = base[j];
+    let s = step_scale(ctx, j);
+    let threshold = q * scale;
+    let q_units = if q.is_finite() && q > 0.0 { q } else { 1.0 };
+    let target = Target {
+        aim: 1.69 * threshold,
+        accept: 1.2 * threshold,
+        first: s * (1.69 * q_units).sqrt(),
+        limit: SCAN_LIMIT_SCALES * s,
+    };
+    let mut ends = [(f64::NAN, EndStatus::Unresolved); 2];
+    for (k, dir) in [-1.0, 1.0].into_iter().enumerate() {
+        let walk = explore(&mut sc, j, dir, &base, chi2_min, target);
+        let end = walk.end;
+        let side = locate(&mut sc, j, est, &base, chi2_min, threshold, s, walk.nodes);
+        let status = if side.crossing.is_some() {
+            EndStatus::Found
+        } else {
+            match end {
+                WalkEnd::Bound => EndStatus::Bound,
+                WalkEnd::Limit => EndStatus::ScanLimit,
+                WalkEnd::Reached | WalkEnd::Failed => EndStatus::Unresolved,
+            }
+        };
+        ends[k] = (side.end, status);
+    }
+    CrossingEnds {
+        lower: ends[0].0,
+        upper: ends[1].0,
+        lower_status: ends[0].1,
+        upper_status: ends[1].1,
+        refits: sc.refits,
+        failed: sc.failed,
+    }
+}
+
 /// One side of a profile after the grid and the root finding.
 struct Side {
     /// Grid points in outward order.

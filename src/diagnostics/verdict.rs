@@ -56,6 +56,16 @@
 //!    chi2/dof would multiply every `u` by `R`; a clear departure means the
 //!    stated sigma or the model is wrong.
 //!
+//! 10. **Coverage** (`coverage`, when the coverage simulation ran; see
+//!     [`apply_coverage`]). The simulated coverage `c` of `value +- k u`
+//!     over `n` replicates against the level `L`: clear when `|c - L|`
+//!     exceeds [`CLEAR_SE`] standard errors `sqrt(L (1 - L) / n)` (the
+//!     binomial scatter of `c` if the interval were exact); the size of the
+//!     departure is the width factor `w = z_L / z_c` (`z_p` the normal
+//!     quantile at `(1 + p) / 2`: the factor by which `u` would have to be
+//!     multiplied for a normal estimate to cover `L`); `|w - 1| > tol` ->
+//!     *doubtful*, beyond [`SD_FAIL_FACTOR`]` * tol` -> *fails*.
+//!
 //! **The interval to quote** ([`Quote`]): `value +- k u` (`k` the coverage
 //! factor of the analytic interval at the level) when the verdict holds;
 //! the profile interval when the profile is closed but its half-widths
@@ -75,6 +85,7 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
+use super::coverage::{width_factor, CoverageKind, CoverageResult, IntervalCoverage};
 use super::multistart::MultistartResult;
 use super::profile::{EndStatus, ProfileResult};
 use super::resample::{ResampleResult, ResampledParameter};
@@ -120,6 +131,8 @@ pub enum Rule {
     FailedRefits,
     /// Chi-squared against its degrees of freedom (Birge ratio).
     GoodnessOfFit,
+    /// Simulated coverage of `value +- k u` against the level.
+    Coverage,
 }
 
 /// The part of the audit a finding reads.
@@ -136,6 +149,8 @@ pub enum Source {
     Profile,
     /// The multi-start search.
     Multistart,
+    /// The coverage simulation.
+    Coverage,
 }
 
 /// One rule's finding on one parameter, as data.
@@ -198,6 +213,10 @@ pub enum NoQuote {
     ProfileAgrees,
     /// The analytic interval is doubted and no profile ran.
     ProfileNotRun,
+    /// The simulated coverage of the analytic interval is off the level
+    /// and that of the profile interval is off too (or the profile does
+    /// not close).
+    CoverageOff,
     /// A derived quantity whose analytic interval is doubted: no profile
     /// interval is computed for derived quantities.
     NoDerivedProfile,
@@ -265,6 +284,11 @@ pub struct VerdictInputs<'a> {
     /// Confidence level of the quoted interval.
     pub level: f64,
 }
+
+/// Standard errors (at the nominal level) beyond which a simulated
+/// coverage is clearly off the level (common practice: 3 sigma, a
+/// two-sided chance of about 0.27 % for an exact interval).
+pub const CLEAR_SE: f64 = 3.0;
 
 /// The coverage factor `k` of the analytic interval `value +- k u` at
 /// `level`: the fit's own ([`FitResult::coverage_factor`]: normal with
@@ -442,6 +466,117 @@ fn choose_quote(
             None,
         ),
         _ => (None, Some(NoQuote::ProfileAgrees)),
+    }
+}
+
+/// Whether a simulated coverage is clearly off the level and by more than
+/// the tolerance (rule 10): `(clear, width factor, status)`; `None` when
+/// no replicate had the interval.
+pub fn coverage_departure(ic: &IntervalCoverage, level: f64, tol: f64) -> Option<(bool, f64, Status)> {
+    if ic.counted == 0 || !ic.coverage.is_finite() {
+        return None;
+    }
+    let clear = (ic.coverage - level).abs() > CLEAR_SE * ic.null_std_error;
+    let w = width_factor(ic.coverage, level);
+    let dev = if w.is_nan() {
+        f64::INFINITY
+    } else {
+        (w - 1.0).abs()
+    };
+    Some((clear, w, departure_status(clear, dev, tol)))
+}
+
+/// Rule 10 and the quote with it in mind: adds the `coverage` finding to
+/// each verdict with a simulated analytic coverage, raises its status, and
+/// re-chooses its quote. A coverage objection replaces an analytic quote
+/// (and a none for lack of an alternative, [`NoQuote::ProfileAgrees`]) by
+/// the base fit's profile interval when that is closed and its own
+/// simulated coverage is not off the level, else by none
+/// ([`NoQuote::CoverageOff`], or [`NoQuote::ProfileNotRun`]); a profile
+/// quote whose simulated coverage is off the level is withdrawn
+/// ([`NoQuote::CoverageOff`]).
+pub fn apply_coverage(
+    verdicts: &mut [Verdict],
+    coverage: &CoverageResult,
+    profile: Option<&ProfileResult>,
+    tol: f64,
+) {
+    let tol = if tol.is_finite() && tol >= 0.0 { tol } else { 0.0 };
+    let level = coverage.level;
+    for v in verdicts.iter_mut() {
+        let Some(pc) = coverage.parameters.iter().find(|p| p.name == v.parameter) else {
+            continue;
+        };
+        let Some(an) = pc.kind(CoverageKind::Analytic) else {
+            continue;
+        };
+        let Some((clear, w, status)) = coverage_departure(an, level, tol) else {
+            continue;
+        };
+        let prof = pc.kind(CoverageKind::Profile);
+        let prof_dep = prof.and_then(|p| coverage_departure(p, level, tol));
+        let mut nums = numbers([
+            ("coverage", an.coverage),
+            ("std_error", an.std_error),
+            ("null_std_error", an.null_std_error),
+            ("counted", an.counted as f64),
+            ("level", level),
+            ("width_factor", w),
+            ("clear", if clear { 1.0 } else { 0.0 }),
+            ("clear_se", CLEAR_SE),
+            ("tolerance", tol),
+        ]);
+        if let (Some(p), Some((_, pw, ps))) = (prof, prof_dep) {
+            nums.insert("profile_coverage".into(), p.coverage);
+            nums.insert("profile_std_error".into(), p.std_error);
+            nums.insert("profile_width_factor".into(), pw);
+            nums.insert("profile_off".into(), if ps > Status::Holds { 1.0 } else { 0.0 });
+        }
+        v.findings.push(Finding {
+            rule: Rule::Coverage,
+            diagnostic: Source::Coverage,
+            status,
+            numbers: nums,
+            detail: None,
+        });
+        v.status = v.status.max(status);
+        let profile_ok = matches!(prof_dep, Some((_, _, Status::Holds)));
+        let closed = profile.and_then(|pr| {
+            pr.parameters
+                .iter()
+                .find(|q| q.name == v.parameter)
+                .filter(|q| q.lower_found && q.upper_found && q.lower.is_finite() && q.upper.is_finite())
+                .map(|q| (q.lower, q.upper, pr.level))
+        });
+        let objects = status > Status::Holds;
+        let kind = v.quote.as_ref().map(|q| q.kind);
+        let switch = match (kind, v.no_quote) {
+            (Some(QuoteKind::Profile), _) => !profile_ok,
+            (Some(QuoteKind::Analytic), _) | (None, Some(NoQuote::ProfileAgrees)) => objects,
+            _ => false,
+        };
+        if !switch {
+            continue;
+        }
+        match closed {
+            Some((lower, upper, level)) if profile_ok => {
+                v.quote = Some(Quote {
+                    kind: QuoteKind::Profile,
+                    lower,
+                    upper,
+                    level,
+                });
+                v.no_quote = None;
+            }
+            _ => {
+                v.quote = None;
+                v.no_quote = Some(if profile.is_none() {
+                    NoQuote::ProfileNotRun
+                } else {
+                    NoQuote::CoverageOff
+                });
+            }
+        }
     }
 }
 

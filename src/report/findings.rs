@@ -63,6 +63,7 @@ pub fn source_words(s: Source) -> &'static str {
         Source::MonteCarlo => "Monte Carlo",
         Source::Profile => "profile",
         Source::Multistart => "multi-start",
+        Source::Coverage => "coverage simulation",
     }
 }
 
@@ -261,7 +262,40 @@ pub fn sentence(f: &Finding) -> String {
                 )
             }
         }
+        Rule::Coverage => {
+            let head = format!(
+                "simulated at the fit ({} data sets), value +- k u contains the fitted value in {} +- {} of \
+                 them against the level {}",
+                num(n("counted")),
+                fixed3(n("coverage")),
+                fixed3(n("std_error")),
+                fixed3(n("level"))
+            );
+            let profile = if has("profile_coverage") {
+                format!(
+                    "; the profile interval covers {} +- {}",
+                    fixed3(n("profile_coverage")),
+                    fixed3(n("profile_std_error"))
+                )
+            } else {
+                String::new()
+            };
+            if f.status == Status::Holds {
+                format!("{head}{profile}: no clear departure beyond the tolerance")
+            } else {
+                format!(
+                    "{head}{profile}: u would have to be multiplied by {} to cover the level (more than \
+                     {} standard errors off)",
+                    fixed2(n("width_factor")),
+                    num(n("clear_se"))
+                )
+            }
+        }
     }
+}
+
+fn fixed3(x: f64) -> String {
+    format!("{x:.3}")
 }
 
 /// The sentences of a verdict: every finding when it holds, else only the
@@ -292,6 +326,10 @@ pub fn no_quote_words(n: NoQuote) -> &'static str {
         NoQuote::GoodnessOfFit => "none: chi2 disagrees with its degrees of freedom (sigma or model wrong)",
         NoQuote::ProfileAgrees => "none: the analytic interval is doubted and the profile agrees with it",
         NoQuote::ProfileNotRun => "none: the analytic interval is doubted and no profile ran",
+        NoQuote::CoverageOff => {
+            "none: the simulated coverage of the analytic interval is off the level, and the profile \
+             interval's is too (or the profile does not close)"
+        }
         NoQuote::NoDerivedProfile => {
             "none: the analytic interval is doubted, and derived quantities have no profile interval"
         }
