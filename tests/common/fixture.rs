@@ -538,7 +538,7 @@ pub fn cooling() -> AuditResults {
             data_sha256: Some(sha(sc.data)),
         },
         settings,
-        diagnostics_run: Diagnostic::ALL.to_vec(),
+        diagnostics_run: Diagnostic::SELECTABLE.to_vec(),
         start_fit: None,
         rebased: false,
         bootstrap: Some(bootstrap),
@@ -546,6 +546,7 @@ pub fn cooling() -> AuditResults {
         profile: Some(profile(&cov, &se, chi2)),
         contours: Some(contours(&cov, &se, chi2)),
         multistart: Some(ms),
+        coverage: Some(coverage(&se, level)),
         verdicts: verdicts(&se, level),
         derived,
         inverse,
@@ -708,7 +709,72 @@ pub fn rename(r: &mut AuditResults, new: [&str; 3]) {
             m.parameters.iter_mut().for_each(|p| map(&mut p.name));
         }
     }
+    if let Some(c) = r.coverage.as_mut() {
+        c.parameters.iter_mut().for_each(|p| map(&mut p.name));
+    }
     r.verdicts.iter_mut().for_each(|v| map(&mut v.parameter));
+}
+
+/// A coverage simulation summarised by the library from hand-made
+/// replicate outcomes: 300 replicates, one refit failed; replicate `k`'s
+/// analytic interval is `truth + d_k +- k u` with `d_k` spread evenly over
+/// `[-1.5, 1.5] k u` (so that about two thirds cover), the profile the
+/// same interval with its upper end open in every tenth replicate, and the
+/// quote the analytic interval except for every twentieth (none: the
+/// profile agrees).
+pub fn coverage(se: &[f64], level: f64) -> fitaudit::diagnostics::coverage::CoverageResult {
+    use fitaudit::diagnostics::coverage::{
+        summarise, CoverageSetup, ProfileEnds, ReplicateIntervals, ReplicateOutcome,
+    };
+    use fitaudit::diagnostics::verdict::NoQuote;
+    let r = 300;
+    let outcomes: Vec<ReplicateOutcome> = (0..r)
+        .map(|k| {
+            if k == 17 {
+                return ReplicateOutcome {
+                    index: k,
+                    failed: Some("not-converged".into()),
+                    parameters: Vec::new(),
+                    refits: 1,
+                };
+            }
+            let d = 3.0 * (k as f64 + 0.5) / r as f64 - 1.5;
+            let parameters = (0..3)
+                .map(|j| {
+                    let iv = [VALUES[j] + (d - 1.0) * se[j], VALUES[j] + (d + 1.0) * se[j]];
+                    ReplicateIntervals {
+                        analytic: Some(iv),
+                        profile: Some(ProfileEnds {
+                            lower: iv[0],
+                            upper: iv[1],
+                            open_below: false,
+                            open_above: k % 10 == 3,
+                        }),
+                        quote: (k % 20 != 5).then_some((QuoteKind::Analytic, iv)),
+                        no_quote: (k % 20 == 5).then_some(NoQuote::ProfileAgrees),
+                    }
+                })
+                .collect();
+            ReplicateOutcome {
+                index: k,
+                failed: None,
+                parameters,
+                refits: 40,
+            }
+        })
+        .collect();
+    summarise(
+        &CoverageSetup {
+            names: NAMES.iter().map(|s| s.to_string()).collect(),
+            truth: VALUES.to_vec(),
+            level,
+            replicates: r,
+            noise: "normal".into(),
+            student_t_dof: None,
+            noise_scale: 1.0,
+        },
+        &outcomes,
+    )
 }
 
 /// The cooling audit with hostile user strings everywhere a user can put
@@ -760,6 +826,7 @@ pub fn fit_only() -> AuditResults {
     r.profile = None;
     r.contours = None;
     r.multistart = None;
+    r.coverage = None;
     for v in &mut r.verdicts {
         v.status = Status::Holds;
         v.findings.clear();
