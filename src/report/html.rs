@@ -301,6 +301,17 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
         &(1..14).collect::<Vec<_>>(),
         Some("wide"),
     );
+    if let Some(t) = crate::report::coverage::table(results) {
+        o.push_str("<h3 id=\"coverage\">Coverage simulated at the fit</h3>\n");
+        table(&mut o, &t, &[2, 3, 4, 5, 6], Some("wide"));
+        let line = crate::report::coverage::summary_line(results).unwrap_or_default();
+        let _ = writeln!(
+            o,
+            "<p>{} {}</p>",
+            escape(crate::report::coverage::NOTE),
+            escape(&line)
+        );
+    }
     o.push_str("</section>\n");
 
     // Figures.

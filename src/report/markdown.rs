@@ -128,6 +128,12 @@ pub fn summary(results: &AuditResults) -> String {
         format::percent(results.settings.level, 4)
     );
     o.push_str(&table(&tables::comparison(results)));
+    if let Some(t) = crate::report::coverage::table(results) {
+        o.push_str("\n## Coverage simulated at the fit\n\n");
+        o.push_str(&table(&t));
+        let line = crate::report::coverage::summary_line(results).unwrap_or_default();
+        let _ = writeln!(o, "\n{} {}", escape(crate::report::coverage::NOTE), escape(&line));
+    }
     let _ = writeln!(o, "\n{}", escape(CAUTION));
     o
 }

@@ -20,6 +20,7 @@ use std::path::{Path, PathBuf};
 use crate::audit::{AuditOptions, AuditResults};
 use crate::output::{OutputError, Staging};
 
+pub mod coverage;
 pub mod csv;
 pub mod figures;
 pub mod findings;

@@ -785,6 +785,9 @@ pub fn failures(results: &AuditResults) -> Table {
         }
         None => rows.push(not_run("Multi-start")),
     }
+    if let Some(c) = &results.coverage {
+        rows.push(crate::report::coverage::failures_row(c));
+    }
     Table {
         header: vec![s("Diagnostic"), s("Work"), s("Failed"), s("Details")],
         rows,

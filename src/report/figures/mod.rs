@@ -10,6 +10,7 @@
 //! | `profile_<p>.svg` | chi-squared profile of one parameter, covariance parabola, threshold |
 //! | `contour_<p1>_<p2>.svg` | contour lines of one pair, covariance ellipses, bootstrap cloud |
 //! | `multistart.svg` | multi-start end points and the chi-squared and basin share of each minimum |
+//! | `coverage.svg` | simulated coverage of each parameter's intervals with its standard error, against the nominal level (when the coverage simulation ran) |
 //! | `correlation.svg` | correlation matrix of the base fit as a grey heat map with the values written in |
 //!
 //! Every figure is readable in greyscale: series differ by line style
@@ -22,6 +23,7 @@ use crate::report::{Renderer, ReportError};
 
 mod contour;
 mod correlation;
+mod coverage;
 mod fit;
 mod histogram;
 mod multistart;
@@ -115,6 +117,7 @@ pub fn build(results: &AuditResults) -> Result<Figures, ReportError> {
         }
     }
     list.extend(multistart::figure(results)?);
+    list.extend(coverage::figure(results)?);
     list.extend(correlation::figure(results)?);
     Ok(Figures { list })
 }

@@ -1,0 +1,161 @@
+//! The coverage table of the report and summary.md: per parameter and
+//! interval kind, the simulated coverage with its binomial standard error
+//! beside the nominal level (results.json `coverage`).
+
+use crate::audit::AuditResults;
+use crate::diagnostics::coverage::{CoverageKind, CoverageResult, IntervalCoverage};
+use crate::diagnostics::verdict::{self, Status};
+use crate::report::findings::no_quote_words;
+use crate::report::format;
+use crate::report::tables::Table;
+
+/// What the coverage table shows, for the text under it.
+pub const NOTE: &str = "Coverage simulated at the fit: data sets drawn at the fitted values with the \
+                        study's error model, each refitted and its intervals recomputed; the share that \
+                        contains the fitted value, with its binomial standard error. An open profile end \
+                        counts as covering on that side. It assumes that the fitted values are the truth \
+                        and that the stated error model is right.";
+
+/// The name of an interval kind in the table.
+pub fn kind_words(k: CoverageKind) -> &'static str {
+    match k {
+        CoverageKind::Analytic => "value \u{b1} k u",
+        CoverageKind::Profile => "profile",
+        CoverageKind::Quote => "quoted",
+    }
+}
+
+/// How a coverage compares with the level, in words: the verdict rule's
+/// reading (clearly off by more than 3 null standard errors, and by a width
+/// factor beyond the tolerance).
+pub fn assessment(ic: &IntervalCoverage, level: f64, tol: f64) -> String {
+    match verdict::coverage_departure(ic, level, tol) {
+        None => format::ABSENT.to_string(),
+        Some((false, _, _)) => "on the level".to_string(),
+        Some((true, w, st)) => {
+            let side = if ic.coverage > level { "above" } else { "below" };
+            let how = match st {
+                Status::Holds => "within the tolerance",
+                Status::Doubtful => "beyond the tolerance",
+                Status::Fails => "far beyond the tolerance",
+            };
+            format!(
+                "clearly {side} the level, {how}: u \u{d7} {} would cover it",
+                format::sig(w, 3)
+            )
+        }
+    }
+}
+
+/// The coverage table, when the simulation ran: parameter, interval,
+/// coverage +- SE, nominal level, data sets, misses below / above, open
+/// profile ends, and the assessment (for the quote, the kinds quoted).
+pub fn table(results: &AuditResults) -> Option<Table> {
+    let c: &CoverageResult = results.coverage.as_ref()?;
+    let tol = results.settings.tolerance;
+    let header = [
+        "Parameter",
+        "Interval",
+        "Coverage \u{b1} SE",
+        "Nominal",
+        "Data sets",
+        "Missed below / above",
+        "Open ends below / above",
+        "Assessment",
+    ];
+    let mut rows = Vec::new();
+    for p in &c.parameters {
+        for ic in &p.intervals {
+            let cov = if ic.counted == 0 {
+                format::ABSENT.to_string()
+            } else {
+                format!("{:.3} \u{b1} {:.3}", ic.coverage, ic.std_error)
+            };
+            let mut sets = ic.counted.to_string();
+            if ic.unavailable > 0 {
+                sets.push_str(&format!(" ({} without one)", ic.unavailable));
+            }
+            let open = if ic.kind == CoverageKind::Profile {
+                format!("{} / {}", ic.open_below, ic.open_above)
+            } else {
+                format::ABSENT.to_string()
+            };
+            let note = if ic.kind == CoverageKind::Quote {
+                let kinds: Vec<String> = ic
+                    .quotes
+                    .iter()
+                    .map(|(k, n)| format!("{} {n}", quote_key_words(k)))
+                    .collect();
+                let a = assessment(ic, c.level, tol);
+                format!("{a}; quoted: {}", kinds.join(", "))
+            } else {
+                assessment(ic, c.level, tol)
+            };
+            rows.push(vec![
+                p.name.clone(),
+                kind_words(ic.kind).to_string(),
+                cov,
+                format!("{:.4}", c.level),
+                sets,
+                format!("{} / {}", ic.missed_below, ic.missed_above),
+                open,
+                note,
+            ]);
+        }
+    }
+    Some(Table {
+        header: header.iter().map(|h| h.to_string()).collect(),
+        rows,
+    })
+}
+
+/// A key of `quotes` in words (`analytic`, `profile`, `none: <reason>`).
+fn quote_key_words(key: &str) -> String {
+    match key.strip_prefix("none: ") {
+        Some(code) => serde_json::from_value::<verdict::NoQuote>(serde_json::Value::String(code.into()))
+            .map(|n| no_quote_words(n).to_string())
+            .unwrap_or_else(|_| key.to_string()),
+        None => key.to_string(),
+    }
+}
+
+/// One line on the simulation itself: replicates, failures, noise, cost.
+pub fn summary_line(results: &AuditResults) -> Option<String> {
+    let c = results.coverage.as_ref()?;
+    let noise = match c.student_t_dof {
+        Some(nu) => format!("Student-t noise with {} degrees of freedom", format::sig(nu, 3)),
+        None => "normal noise".to_string(),
+    };
+    Some(format!(
+        "{} of {} simulated data sets refitted ({} failed{}), {noise}, noise scale {}; {} refits in all.",
+        c.run - c.failed,
+        c.replicates,
+        c.failed,
+        if c.failures.is_empty() {
+            String::new()
+        } else {
+            format!(
+                ": {}",
+                c.failures
+                    .iter()
+                    .map(|(k, n)| format!("{k} {n}"))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )
+        },
+        format::sig(c.noise_scale, 4),
+        c.refits
+    ))
+}
+
+/// The coverage simulation's row of the failures table: diagnostic, work
+/// done, failed, details.
+pub fn failures_row(c: &CoverageResult) -> Vec<String> {
+    let reasons: Vec<String> = c.failures.iter().map(|(k, n)| format!("{k}: {n}")).collect();
+    vec![
+        "Coverage".to_string(),
+        format!("{} data sets run of {}, {} refits", c.run, c.replicates, c.refits),
+        c.failed.to_string(),
+        reasons.join(", "),
+    ]
+}
