@@ -5,7 +5,8 @@
 //! binomial standard error.
 //!
 //! `cargo run --release --example validate_verdicts [DATASETS [REPLICATES [STARTS]]]`
-//! (defaults 400, 300, 32; `--case=NAME` runs one case) prints the tables and, with `--write`, puts
+//! (defaults 400, 300, 32; `--case=NAME` runs one case; `--coverage=N` adds
+//! the coverage simulation with N data sets to every audit) prints the tables and, with `--write`, puts
 //! them into docs/VALIDATION.md below the marker line that the NIST test
 //! (tests/nist_strd.rs) preserves.
 
@@ -26,6 +27,10 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         replicates: nums.get(1).copied().unwrap_or(300),
         starts: nums.get(2).copied().unwrap_or(32),
         seed: 15,
+        coverage_replicates: args
+            .iter()
+            .find_map(|a| a.strip_prefix("--coverage=").and_then(|n| n.parse().ok()))
+            .unwrap_or(0),
     };
     let t0 = Instant::now();
     let mut tallies = Vec::new();

@@ -4,7 +4,8 @@
 //! design and a stated sigma. [`run_case`] draws fresh noise for every data
 //! set (data set `k` from `rng::stream(seed, Stream::Other(case tag), k)`),
 //! audits it with bootstrap, Monte Carlo, profiles and the multi-start
-//! search (contours do not vote), and tallies per parameter: how often the
+//! search (contours do not vote), and with the coverage simulation when
+//! [`RunSize::coverage_replicates`] is not 0, and tallies per parameter: how often the
 //! verdict is not *holds*, how often each rule objects, and how often each
 //! interval (analytic `value +- k u`, profile, bootstrap percentile, BCa,
 //! Monte Carlo symmetric and shortest, and the `quote`) contains the truth.
@@ -162,6 +163,10 @@ pub struct RunSize {
     pub starts: usize,
     /// Seed of the noise and of every diagnostic.
     pub seed: u64,
+    /// Data sets of the coverage simulation per audited data set (0: the
+    /// coverage simulation does not run).
+    #[serde(default)]
+    pub coverage_replicates: usize,
 }
 
 /// A count out of a total.
@@ -268,14 +273,19 @@ pub fn audit_dataset(case: &Case, size: &RunSize, k: usize) -> Option<AuditResul
     spec.audit.monte_carlo.replicates = size.replicates;
     spec.audit.multistart.starts = size.starts;
     spec.audit.multistart.rebase = case.rebase;
+    spec.audit.coverage.replicates = size.coverage_replicates.max(2);
     let study = Study::from_dataset(spec, data, case.name).ok()?;
+    let mut only = vec![
+        Diagnostic::Bootstrap,
+        Diagnostic::MonteCarlo,
+        Diagnostic::Profile,
+        Diagnostic::Multistart,
+    ];
+    if size.coverage_replicates > 0 {
+        only.push(Diagnostic::Coverage);
+    }
     let options = AuditOptions {
-        only: vec![
-            Diagnostic::Bootstrap,
-            Diagnostic::MonteCarlo,
-            Diagnostic::Profile,
-            Diagnostic::Multistart,
-        ],
+        only,
         ..AuditOptions::default()
     };
     audit::run(&audit::input_from_study(&study), &options, &NoProgress).ok()

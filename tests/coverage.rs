@@ -8,6 +8,9 @@
 //! count, and index ranges computed apart and merged give the one-piece
 //! result (what shards do). Fixed seeds, modest sizes.
 
+#[path = "common/fixture.rs"]
+mod fixture;
+
 use fitaudit::data::Dataset;
 use fitaudit::diagnostics::coverage::{self, CoverageKind, CoverageResult};
 use fitaudit::diagnostics::verdict::{self, Rule, Status};
@@ -460,4 +463,50 @@ fn thread_count_and_index_ranges_do_not_change_the_result() {
     let ct = coverage::run(&ctx_t, &NoProgress);
     assert_eq!(ct.noise, "student-t");
     assert_ne!(ct.parameters, one.parameters);
+}
+
+#[test]
+fn report_tables_carry_the_counts_of_the_summary() {
+    // The fixture's 300 hand-made data sets (tests/common/fixture.rs): data
+    // set k (k = 17 failed) has the interval truth + d_k +- k u with
+    // d_k = 3 (k + 0.5) / 300 - 1.5, so it covers for 50 <= k <= 249 (200
+    // of 299), misses below the truth for k >= 250 (50) and above for
+    // k < 50 (49, without k = 17); the profile's upper end is open for
+    // k % 10 == 3 (30), turning the misses k = 3, 13, 23, 33, 43 into
+    // covers (205); the quote is withheld for k % 20 == 5 (15), 10 of them
+    // covering ones (190 of 284).
+    let r = fixture::cooling();
+    let c = r.coverage.as_ref().unwrap();
+    assert_eq!((c.run, c.failed, c.replicates), (300, 1, 300));
+    let t = &c.parameters[2];
+    let get = |k| t.kind(k).unwrap();
+    let a = get(CoverageKind::Analytic);
+    assert_eq!(
+        (a.covered, a.counted, a.missed_below, a.missed_above),
+        (200, 299, 50, 49)
+    );
+    let p = get(CoverageKind::Profile);
+    assert_eq!(
+        (p.covered, p.counted, p.open_above, p.missed_above),
+        (205, 299, 30, 44)
+    );
+    let q = get(CoverageKind::Quote);
+    assert_eq!((q.covered, q.counted, q.unavailable), (190, 284, 15));
+    assert_eq!(q.quotes.get("none: profile-agrees"), Some(&15));
+    // 200/299 = 0.6689, SE sqrt(0.6689 * 0.3311 / 299) = 0.0272: within 3
+    // null SE (0.0269 each) of 0.6827, "on the level".
+    let md = fitaudit::report::markdown::summary(&r);
+    assert!(md.contains("## Coverage simulated at the fit"), "{md}");
+    let row =
+        "| tau | value \u{b1} k u | 0.669 \u{b1} 0.027 | 0.6827 | 299 | 50 / 49 | \u{2014} | on the level |";
+    assert!(md.contains(row), "{md}");
+    let row = "| tau | profile | 0.686 \u{b1} 0.027 | 0.6827 | 299 | 50 / 44 | 0 / 30 | on the level |";
+    assert!(md.contains(row), "{md}");
+    assert!(
+        md.contains("299 of 300 simulated data sets refitted (1 failed: not-converged 1)"),
+        "{md}"
+    );
+    let html = fitaudit::report::html::page(&r, &fitaudit::report::figures::build(&r).unwrap());
+    assert!(html.contains("Coverage simulated at the fit"));
+    assert!(html.contains("0.669 \u{b1} 0.027"));
 }

@@ -79,9 +79,27 @@ fn every_figure_of_a_full_audit_with_its_stable_name() {
             "contour_T_env_tau.svg",
             "contour_dT_tau.svg",
             "multistart.svg",
+            "coverage.svg",
             "correlation.svg",
         ]
     );
+}
+
+#[test]
+fn coverage_figure_names_every_parameter_and_the_nominal_level() {
+    let f = build(&fixture::cooling());
+    let texts = svg_texts(&f.get("coverage.svg").unwrap().svg);
+    for name in ["T_env", "dT", "tau"] {
+        assert!(texts.iter().any(|t| t == name), "{name}: {texts:?}");
+    }
+    assert!(
+        texts.iter().any(|t| t.contains("nominal level 68.27 %")),
+        "{texts:?}"
+    );
+    // Without the simulation there is no coverage figure.
+    let mut r = fixture::cooling();
+    r.coverage = None;
+    assert!(figures::build(&r).unwrap().get("coverage.svg").is_none());
 }
 
 #[test]

@@ -1393,4 +1393,98 @@ mod tests {
         inp.monte_carlo = Some(&rr);
         assert_eq!(decide(&inp)[0].no_quote, Some(NoQuote::ProfileAgrees));
     }
+
+    fn coverage_of(name: &str, analytic: (usize, usize), profile: (usize, usize)) -> CoverageResult {
+        use crate::diagnostics::coverage::ParameterCoverage;
+        let ic = |kind, (covered, n): (usize, usize)| {
+            let c = covered as f64 / n as f64;
+            IntervalCoverage {
+                kind,
+                coverage: c,
+                std_error: (c * (1.0 - c) / n as f64).sqrt(),
+                null_std_error: (0.6827f64 * 0.3173 / n as f64).sqrt(),
+                counted: n,
+                covered,
+                missed_below: 0,
+                missed_above: n - covered,
+                unavailable: 0,
+                open_below: 0,
+                open_above: 0,
+                quotes: BTreeMap::new(),
+            }
+        };
+        CoverageResult {
+            replicates: analytic.1,
+            run: analytic.1,
+            failed: 0,
+            failures: BTreeMap::new(),
+            level: 0.6827,
+            noise: "normal".into(),
+            student_t_dof: None,
+            noise_scale: 1.0,
+            refits: 0,
+            parameters: vec![ParameterCoverage {
+                name: name.into(),
+                truth: 1.0,
+                intervals: vec![
+                    ic(CoverageKind::Analytic, analytic),
+                    ic(CoverageKind::Profile, profile),
+                ],
+            }],
+        }
+    }
+
+    #[test]
+    fn coverage_rule_statuses_and_quotes() {
+        let fit = fit_of(vec![param("a", 1.0, Some(0.1))]);
+        let pr = profile_of("a", 1.0, 0.9, 1.1, (true, true));
+        let run = |cov: &CoverageResult, profile: Option<&ProfileResult>| {
+            let mut inp = inputs(&fit);
+            inp.profile = profile;
+            let mut v = decide(&inp);
+            apply_coverage(&mut v, cov, profile, 0.2);
+            v.remove(0)
+        };
+        // 1000 data sets, null SE sqrt(0.6827 * 0.3173 / 1000) = 0.0147.
+        // 700 covered: 1.2 SE off, holds; the analytic quote stays.
+        let v = run(&coverage_of("a", (700, 1000), (690, 1000)), Some(&pr));
+        assert_eq!(v.status, Status::Holds);
+        assert_eq!(v.quote.as_ref().unwrap().kind, QuoteKind::Analytic);
+        // 800 covered: 8 SE off; w = z(0.6827) / z(0.9) = 1.0000 / 1.6449
+        // = 0.608 (normal quantiles, e.g. NIST/SEMATECH e-Handbook 1.3.6.7.1,
+        // from memory): |w - 1| = 0.39 in (0.2, 0.4]: doubtful. The profile
+        // covers 0.69, on the level: the quote moves to the profile interval.
+        let v = run(&coverage_of("a", (800, 1000), (690, 1000)), Some(&pr));
+        let f = v.findings.iter().find(|f| f.rule == Rule::Coverage).unwrap();
+        assert!(
+            (f.numbers["width_factor"] - 1.0 / 1.6449).abs() < 2e-3,
+            "{:?}",
+            f.numbers
+        );
+        assert_eq!(f.status, Status::Doubtful);
+        assert_eq!(v.status, Status::Doubtful);
+        let q = v.quote.as_ref().unwrap();
+        assert_eq!((q.kind, q.lower, q.upper), (QuoteKind::Profile, 0.9, 1.1));
+        // The profile off too: no quote.
+        let v = run(&coverage_of("a", (800, 1000), (800, 1000)), Some(&pr));
+        assert_eq!(
+            (v.quote.is_none(), v.no_quote),
+            (true, Some(NoQuote::CoverageOff))
+        );
+        // No profile ran: none, saying so.
+        let v = run(&coverage_of("a", (800, 1000), (690, 1000)), None);
+        assert_eq!(v.no_quote, Some(NoQuote::ProfileNotRun));
+        // 500 covered (under-covering): w = 1 / z(0.75) = 1 / 0.6745 = 1.48: fails.
+        let v = run(&coverage_of("a", (500, 1000), (690, 1000)), Some(&pr));
+        assert_eq!(v.status, Status::Fails);
+        // Too few data sets to be clear: 0.8 of 20 is 1.1 SE off: holds.
+        let v = run(&coverage_of("a", (16, 20), (14, 20)), Some(&pr));
+        assert_eq!(v.status, Status::Holds);
+        // A profile quote whose simulated coverage is off is withdrawn,
+        // even when the analytic coverage holds.
+        let skewed = profile_of("a", 1.0, 0.95, 1.3, (true, true));
+        let v = run(&coverage_of("a", (700, 1000), (800, 1000)), Some(&skewed));
+        assert_eq!(v.no_quote, Some(NoQuote::CoverageOff));
+        assert!(crate::report::findings::sentence(v.findings.last().unwrap()).contains("0.700"));
+    }
 }

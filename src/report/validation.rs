@@ -62,6 +62,13 @@ pub fn markdown(size: &RunSize, cases: &[CaseTally]) -> String {
         size.seed,
         100.0 * level
     );
+    if size.coverage_replicates > 0 {
+        let _ = writeln!(
+            o,
+            "Each audit also ran the coverage simulation with {} simulated data sets (rule `coverage`).\n",
+            size.coverage_replicates
+        );
+    }
     for c in cases {
         let _ = writeln!(
             o,
