@@ -536,7 +536,7 @@ pub fn summarise(setup: &CoverageSetup, outcomes: &[ReplicateOutcome]) -> Covera
 /// over-covers, above 1 when it under-covers). 0 at `c = 1`, infinite at
 /// `c = 0`, NaN when `c` or `L` is not a probability.
 pub fn width_factor(coverage: f64, level: f64) -> f64 {
-    if !(coverage >= 0.0 && coverage <= 1.0 && level > 0.0 && level < 1.0) {
+    if !((0.0..=1.0).contains(&coverage) && level > 0.0 && level < 1.0) {
         return f64::NAN;
     }
     let Ok(nd) = Normal::new(0.0, 1.0) else {

@@ -12,6 +12,9 @@ use crate::diagnostics::coverage::CoverageKind;
 use crate::diagnostics::verdict::CLEAR_SE;
 use crate::report::{format, ReportError};
 
+/// Points `(x, coverage, standard error)` of one interval kind.
+type Series = (CoverageKind, Vec<(f64, f64, f64)>);
+
 /// The marker of each interval kind.
 fn mark(kind: CoverageKind) -> Mark {
     match kind {
@@ -33,7 +36,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         CoverageKind::Profile => 0.0,
         CoverageKind::Quote => 0.2,
     };
-    let mut series: Vec<(CoverageKind, Vec<(f64, f64, f64)>)> = Vec::new();
+    let mut series: Vec<Series> = Vec::new();
     let mut band = Vec::new();
     for kind in [CoverageKind::Analytic, CoverageKind::Profile, CoverageKind::Quote] {
         let pts: Vec<(f64, f64, f64)> = c
