@@ -51,6 +51,7 @@ fn expected(with_csv: bool) -> BTreeSet<String> {
         "contour_T_env_tau.svg",
         "contour_dT_tau.svg",
         "multistart.svg",
+        "coverage.svg",
         "correlation.svg",
     ] {
         s.insert(format!("figures/{f}"));
@@ -164,9 +165,9 @@ fn summary_has_the_verdict_rows_and_escapes_pipes() {
     for line in h.lines().filter(|l| l.starts_with('|')) {
         let cells = line.replace("\\|", "").matches('|').count();
         // verdicts 4 columns (quote first), fit 6 (with U), comparison 15,
-        // derived quantities 10, inverse predictions 12.
+        // derived quantities 10, inverse predictions 12, coverage 8.
         assert!(
-            cells == 5 || cells == 7 || cells == 16 || cells == 11 || cells == 13,
+            cells == 5 || cells == 7 || cells == 16 || cells == 11 || cells == 13 || cells == 9,
             "{line}"
         );
     }
