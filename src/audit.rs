@@ -9,6 +9,7 @@ use crate::diagnostics::contour::ContourResult;
 use crate::diagnostics::derived::{DerivedQuantity, DerivedResult};
 use crate::diagnostics::inverse::{InverseModel, InverseRequest, InverseResult};
 use crate::diagnostics::multistart::MultistartResult;
+use crate::diagnostics::nonlinearity::NonlinearityResult;
 use crate::diagnostics::profile::ProfileResult;
 use crate::diagnostics::resample::ResampleResult;
 use crate::diagnostics::verdict::{self, Verdict, VerdictInputs};
@@ -143,6 +144,10 @@ pub struct AuditResults {
     pub contours: Option<Vec<ContourResult>>,
     /// Multi-start search.
     pub multistart: Option<MultistartResult>,
+    /// Curvature measures and Box's bias at the audited fit (every audit,
+    /// whatever `--only` selects).
+    #[serde(default)]
+    pub nonlinearity: NonlinearityResult,
     /// Verdict per parameter.
     pub verdicts: Vec<Verdict>,
     /// Derived quantities of the study's `[derived]` table, in file order
@@ -265,7 +270,9 @@ pub fn run(
         sigma_given: input.data.has_sigma(),
         level: input.settings.level,
     };
-    let verdicts = verdict::decide(&verdict_inputs);
+    let nonlinearity = diagnostics::nonlinearity::run(&ctx);
+    let mut verdicts = verdict::decide(&verdict_inputs);
+    diagnostics::nonlinearity::cite(&mut verdicts, &nonlinearity);
     let derived = diagnostics::derived::evaluate(input.derived, &verdict_inputs);
     let inverse = match input.inverse_model {
         Some(im) if !input.inverse.is_empty() => diagnostics::inverse::evaluate(
@@ -338,6 +345,7 @@ pub fn run(
         profile,
         contours,
         multistart,
+        nonlinearity,
         verdicts,
         derived,
         inverse,

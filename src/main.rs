@@ -179,10 +179,12 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 struct Wrapped<'a> {
                     fit: &'a fitaudit::fit::FitResult,
                     derived: &'a [fitaudit::diagnostics::derived::DerivedResult],
+                    nonlinearity: fitaudit::diagnostics::nonlinearity::NonlinearityResult,
                 }
                 let wrapped = Wrapped {
                     fit: &fit,
                     derived: &derived,
+                    nonlinearity: fitaudit::diagnostics::nonlinearity::compute(&study.model, &study.dataset, &fit),
                 };
                 emit(&(serde_json::to_string_pretty(&wrapped)? + "\n"))?;
             } else {

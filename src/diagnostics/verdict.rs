@@ -120,6 +120,10 @@ pub enum Rule {
     FailedRefits,
     /// Chi-squared against its degrees of freedom (Birge ratio).
     GoodnessOfFit,
+    /// The curvature measures or Box's bias explain a disagreement another
+    /// rule found (never decides: status always holds; see
+    /// [`super::nonlinearity::cite`]).
+    Nonlinearity,
 }
 
 /// The part of the audit a finding reads.

@@ -261,6 +261,7 @@ pub fn sentence(f: &Finding) -> String {
                 )
             }
         }
+        Rule::Nonlinearity => crate::report::nonlinearity::finding_sentence(f),
     }
 }
 
@@ -275,7 +276,7 @@ pub fn reasons(v: &Verdict) -> Vec<String> {
     } else {
         v.findings
             .iter()
-            .filter(|f| f.status != Status::Holds)
+            .filter(|f| f.status != Status::Holds || f.rule == Rule::Nonlinearity)
             .map(sentence)
             .collect()
     }

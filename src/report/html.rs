@@ -301,6 +301,7 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
         &(1..14).collect::<Vec<_>>(),
         Some("wide"),
     );
+    nonlinearity_part(&mut o, results);
     o.push_str("</section>\n");
 
     // Figures.
@@ -357,6 +358,22 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     );
     o.push_str("</body>\n</html>\n");
     o
+}
+
+/// The linear-approximation part of the interval comparison: curvature
+/// measures and Box's bias read in plain words, then their numbers.
+fn nonlinearity_part(o: &mut String, results: &AuditResults) {
+    use crate::report::nonlinearity as nl;
+    let r = &results.nonlinearity;
+    let _ = writeln!(o, "<h3 id=\"nonlinearity\">{}</h3>", nl::HEADING);
+    for p in nl::paragraphs(r) {
+        let _ = writeln!(o, "<p>{}</p>", escape(&p));
+    }
+    pairs(o, &nl::curvature_rows(r), &[]);
+    if !r.bias.is_empty() {
+        table(o, &nl::bias_table(r, &results.fit), &[1, 2, 3, 4, 5], None);
+    }
+    let _ = writeln!(o, "<p>{}</p>", escape(nl::NOTE));
 }
 
 /// Writes `report.html`.

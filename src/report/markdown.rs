@@ -128,8 +128,33 @@ pub fn summary(results: &AuditResults) -> String {
         format::percent(results.settings.level, 4)
     );
     o.push_str(&table(&tables::comparison(results)));
+    nonlinearity_part(&mut o, results);
     let _ = writeln!(o, "\n{}", escape(CAUTION));
     o
+}
+
+/// The linear-approximation section: curvature measures and Box's bias in
+/// plain words, then their numbers.
+fn nonlinearity_part(o: &mut String, results: &AuditResults) {
+    use crate::report::nonlinearity as nl;
+    let r = &results.nonlinearity;
+    let _ = writeln!(o, "\n## {}\n", nl::HEADING);
+    for p in nl::paragraphs(r) {
+        let _ = writeln!(o, "{}\n", escape(&p));
+    }
+    let rows: Vec<Vec<String>> = nl::curvature_rows(r)
+        .into_iter()
+        .map(|(k, v)| vec![k, v])
+        .collect();
+    o.push_str(&table(&Table {
+        header: vec!["Quantity".into(), "Value".into()],
+        rows,
+    }));
+    if !r.bias.is_empty() {
+        o.push('\n');
+        o.push_str(&table(&nl::bias_table(r, &results.fit)));
+    }
+    let _ = writeln!(o, "\n{}", escape(nl::NOTE));
 }
 
 /// Writes `summary.md`.

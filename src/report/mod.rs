@@ -27,6 +27,7 @@ pub mod format;
 pub mod html;
 pub mod json;
 pub mod markdown;
+pub mod nonlinearity;
 pub mod tables;
 pub mod text;
 pub mod validation;

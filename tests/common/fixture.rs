@@ -516,6 +516,9 @@ pub fn cooling() -> AuditResults {
             seed: 1,
         },
     );
+    // Curvature measures and Box's bias through the library (the native
+    // model has no exact second derivatives: central differences).
+    let nonlinearity = fitaudit::diagnostics::nonlinearity::compute(&native, &data, &fit);
     let sc = &fitaudit::demo::SCENARIOS[0];
     AuditResults {
         schema_version: SCHEMA_VERSION,
@@ -546,6 +549,7 @@ pub fn cooling() -> AuditResults {
         profile: Some(profile(&cov, &se, chi2)),
         contours: Some(contours(&cov, &se, chi2)),
         multistart: Some(ms),
+        nonlinearity,
         verdicts: verdicts(&se, level),
         derived,
         inverse,
