@@ -543,3 +543,145 @@ fn fixed_parameters_are_excluded_and_degenerate_fits_are_not_available() {
     // The default (a record without the measures) says not computed.
     assert_eq!(NonlinearityResult::default().not_available, Some(NotAvailable::NotComputed));
 }
+
+/// The explanation never decides: `cite` adds a `nonlinearity` finding with
+/// status holds only to a verdict another rule already doubts, and no
+/// verdict's status changes.
+#[test]
+fn citing_the_measures_never_changes_a_verdict() {
+    use fitaudit::diagnostics::nonlinearity::ParameterBias;
+    use fitaudit::diagnostics::verdict::{Finding, Rule, Source, Status, Verdict};
+    let finding = |rule, status| Finding {
+        rule,
+        diagnostic: Source::Profile,
+        status,
+        numbers: Default::default(),
+        detail: None,
+    };
+    let verdict = |name: &str, status, findings| Verdict {
+        parameter: name.into(),
+        status,
+        quote: None,
+        no_quote: None,
+        findings,
+    };
+    let bias = |name: &str, pct_u: f64| ParameterBias {
+        name: name.into(),
+        estimate: 10.0,
+        value: 0.01 * pct_u,
+        corrected: 10.0 - 0.01 * pct_u,
+        percent_of_estimate: Some(0.1 * pct_u),
+        percent_of_std_error: Some(pct_u),
+    };
+    let nl = NonlinearityResult {
+        not_available: None,
+        second_derivatives: Some(SecondDerivatives::Exact),
+        parameters: vec!["a".into(), "b".into(), "c".into()],
+        intrinsic_curvature: Some(0.05),
+        parameter_effects_curvature: Some(0.9),
+        critical_curvature: Some(0.46),
+        f_quantile: Some(1.18),
+        level: 0.6827,
+        scale: Some(1.0),
+        bias: vec![bias("a", 30.0), bias("b", 2.0), bias("c", 1.0)],
+    };
+    let mut vs = vec![
+        verdict("a", Status::Doubtful, vec![finding(Rule::ProfileHalfWidths, Status::Doubtful)]),
+        verdict("b", Status::Holds, vec![finding(Rule::ProfileHalfWidths, Status::Holds)]),
+        // Doubted by goodness of fit only: curvature cannot explain that.
+        verdict("c", Status::Doubtful, vec![finding(Rule::GoodnessOfFit, Status::Doubtful)]),
+    ];
+    nonlinearity::cite(&mut vs, &nl);
+    assert_eq!(
+        vs.iter().map(|v| v.status).collect::<Vec<_>>(),
+        [Status::Doubtful, Status::Holds, Status::Doubtful]
+    );
+    assert_eq!(vs[0].findings.len(), 2);
+    let f = &vs[0].findings[1];
+    assert_eq!((f.rule, f.status), (Rule::Nonlinearity, Status::Holds));
+    assert_eq!(f.detail.as_deref(), Some("parameter-effects"));
+    assert_eq!(f.numbers["bias_percent_of_std_error"], 30.0);
+    assert_eq!(vs[1].findings.len(), 1);
+    assert_eq!(vs[2].findings.len(), 1);
+    // The sentence of the finding quotes its numbers.
+    let reasons = fitaudit::report::findings::reasons(&vs[0]);
+    assert_eq!(reasons.len(), 2, "{reasons:?}");
+    assert!(reasons[1].contains("0.900") && reasons[1].contains("0.460"), "{}", reasons[1]);
+    assert!(reasons[1].contains("30 % of u"), "{}", reasons[1]);
+    // Flat surface and parametrisation, small bias: nothing to cite.
+    let mut flat = nl.clone();
+    flat.parameter_effects_curvature = Some(0.1);
+    flat.bias = vec![bias("a", 2.0)];
+    let mut vs2 = vec![verdict("a", Status::Doubtful, vec![finding(Rule::SpreadRatio, Status::Doubtful)])];
+    nonlinearity::cite(&mut vs2, &flat);
+    assert_eq!(vs2[0].findings.len(), 1);
+}
+
+/// Through the command line: `audit --only profile` still records the
+/// measures, `fit --json` carries the same ones, and summary.md and
+/// report.html read them in words (Puromycin data as above, level 0.95,
+/// no sigma: scale s = sqrt(chi2 / dof)).
+#[test]
+fn audit_and_fit_json_carry_the_measures_whatever_only_selects() {
+    let tmp = tempfile::tempdir().unwrap();
+    let conc = [0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10];
+    let rate = [76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0];
+    let mut csv = String::from("conc,rate\n");
+    for (c, r) in conc.iter().zip(&rate) {
+        csv.push_str(&format!("{c},{r}\n"));
+    }
+    std::fs::write(tmp.path().join("p.csv"), csv).unwrap();
+    let study = tmp.path().join("puromycin.toml");
+    std::fs::write(
+        &study,
+        "[data]\nfile = \"p.csv\"\nx = \"conc\"\ny = \"rate\"\n[model]\nformula = \"Vm*conc/(K + conc)\"\n\
+         [parameters]\nVm = { start = 200 }\nK = { start = 0.1 }\n[audit]\nlevel = 0.95\n",
+    )
+    .unwrap();
+    let out_dir = tmp.path().join("out");
+    let out = assert_cmd::Command::cargo_bin("fitaudit")
+        .unwrap()
+        .args(["audit", "--only", "profile", "--quiet", "--out"])
+        .arg(&out_dir)
+        .arg(&study)
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let results: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out_dir.join("results.json")).unwrap()).unwrap();
+    let nl = &results["nonlinearity"];
+    let out = assert_cmd::Command::cargo_bin("fitaudit")
+        .unwrap()
+        .args(["fit", "--json"])
+        .arg(&study)
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let fit_json: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(&fit_json["nonlinearity"], nl);
+    let root_f = FisherSnedecor::new(2.0, 10.0).unwrap().inverse_cdf(0.95).sqrt();
+    let cp = nl["parameter_effects_curvature"].as_f64().unwrap();
+    // Bates and Watts 1988, section 7.3 (as in the test above).
+    assert!((cp * root_f - 0.2121).abs() < 5e-5, "{cp}");
+    let fit = &results["fit"];
+    let s = (fit["chi2"].as_f64().unwrap() / fit["dof"].as_f64().unwrap()).sqrt();
+    assert!((nl["scale"].as_f64().unwrap() - s).abs() < 1e-12 * s);
+    let km = &nl["bias"][1];
+    assert_eq!(km["name"], "K");
+    let corrected = km["estimate"].as_f64().unwrap() - km["value"].as_f64().unwrap();
+    assert_eq!(km["corrected"].as_f64().unwrap(), corrected);
+    let summary = std::fs::read_to_string(out_dir.join("summary.md")).unwrap();
+    assert!(summary.contains("## Linear approximation"), "{summary}");
+    let crit = nl["critical_curvature"].as_f64().unwrap();
+    let line = format!(
+        "the intrinsic curvature {} and the parameter-effects curvature {} are both below the critical value {}",
+        fitaudit::report::format::sig(nl["intrinsic_curvature"].as_f64().unwrap(), 3),
+        fitaudit::report::format::sig(cp, 3),
+        fitaudit::report::format::sig(crit, 3)
+    );
+    assert!(summary.contains(&line), "{summary}");
+    let html = std::fs::read_to_string(out_dir.join("report.html")).unwrap();
+    assert!(html.contains("<h3 id=\"nonlinearity\">Linear approximation</h3>"));
+    assert!(html.contains("Bias-corrected estimate"));
+    assert!(html.contains(&line));
+}

@@ -153,7 +153,8 @@ pub struct NonlinearityResult {
     /// `F`: Fisher's F quantile at `level` with `p` and `dof` degrees of
     /// freedom, or with stated sigma the chi-squared quantile over `p`.
     pub f_quantile: Option<f64>,
-    /// The level of `F` (the audit level).
+    /// The level of `F` (the audit level; the default level in a record
+    /// without the measures).
     pub level: f64,
     /// The noise scale `s` of the relative curvatures and the bias: 1 with
     /// stated sigma (absolute covariance), `sqrt(chi2 / dof)` when scaled.
@@ -164,7 +165,7 @@ pub struct NonlinearityResult {
 
 impl Default for NonlinearityResult {
     fn default() -> Self {
-        Self::unavailable(NotAvailable::NotComputed, f64::NAN)
+        Self::unavailable(NotAvailable::NotComputed, crate::fit::DEFAULT_LEVEL)
     }
 }
 

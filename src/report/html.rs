@@ -8,7 +8,8 @@
 //!
 //! Sections, in order: the lead notice when the multi-start search found a
 //! better minimum; verdict summary; fit; goodness of fit; interval
-//! comparison; figures; diagnostic failures; settings and provenance;
+//! comparison (closed by the linear-approximation part: curvature measures
+//! and Box's bias); figures; diagnostic failures; settings and provenance;
 //! caution.
 
 use std::fmt::Write as _;
