@@ -184,7 +184,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 let wrapped = Wrapped {
                     fit: &fit,
                     derived: &derived,
-                    nonlinearity: fitaudit::diagnostics::nonlinearity::compute(&study.model, &study.dataset, &fit),
+                    nonlinearity: fitaudit::diagnostics::nonlinearity::compute(
+                        &study.model,
+                        &study.dataset,
+                        &fit,
+                    ),
                 };
                 emit(&(serde_json::to_string_pretty(&wrapped)? + "\n"))?;
             } else {

@@ -63,7 +63,10 @@ fn a_linear_model_has_zero_curvature_and_zero_bias() {
         .enumerate()
         .map(|(i, &t)| 1.0 + 2.0 * t.exp() - 0.5 * t.sin() + 0.1 * ((i * 7 % 5) as f64 - 2.0))
         .collect();
-    for (formula, sigma) in [("a + b*exp(x) + c*sin(x)", None), ("(a + b*x)*2 + c*x^2", Some(0.1))] {
+    for (formula, sigma) in [
+        ("a + b*exp(x) + c*sin(x)", None),
+        ("(a + b*x)*2 + c*x^2", Some(0.1)),
+    ] {
         let m = tape(formula, &["a", "b", "c"], &["x"]);
         let d = data(&x, &y, sigma);
         let f = fitted(&m, &["a", "b", "c"], &[1.0, 1.0, 1.0], &d, 0.95);
@@ -289,9 +292,19 @@ fn nist_exponential_rise_matches_the_textbook_computation() {
         let ci = r.intrinsic_curvature.unwrap();
         let cp = r.parameter_effects_curvature.unwrap();
         assert!(rel(ci, t.intrinsic) < 1e-9, "{name}: {ci} vs {}", t.intrinsic);
-        assert!(rel(cp, t.parameter_effects) < 1e-9, "{name}: {cp} vs {}", t.parameter_effects);
+        assert!(
+            rel(cp, t.parameter_effects) < 1e-9,
+            "{name}: {cp} vs {}",
+            t.parameter_effects
+        );
         for (k, bb) in r.bias.iter().enumerate() {
-            assert!(rel(bb.value, t.bias[k]) < 1e-9, "{name} {}: {} vs {}", bb.name, bb.value, t.bias[k]);
+            assert!(
+                rel(bb.value, t.bias[k]) < 1e-9,
+                "{name} {}: {} vs {}",
+                bb.name,
+                bb.value,
+                t.bias[k]
+            );
             let u = f.parameters[k].std_error.unwrap();
             assert!(rel(bb.percent_of_std_error.unwrap(), 100.0 * t.bias[k] / u) < 1e-9);
         }
@@ -351,7 +364,12 @@ fn three_parameters_match_sampled_directions() {
     let t = textbook(&v, &w, f.chi2 / f.dof as f64);
     let ci = r.intrinsic_curvature.unwrap();
     let cp = r.parameter_effects_curvature.unwrap();
-    assert!((ci - t.intrinsic).abs() < 4.0 * t.intrinsic_se, "{ci} vs {} +- {}", t.intrinsic, t.intrinsic_se);
+    assert!(
+        (ci - t.intrinsic).abs() < 4.0 * t.intrinsic_se,
+        "{ci} vs {} +- {}",
+        t.intrinsic,
+        t.intrinsic_se
+    );
     assert!(
         (cp - t.parameter_effects).abs() < 4.0 * t.parameter_effects_se,
         "{cp} vs {} +- {}",
@@ -359,7 +377,13 @@ fn three_parameters_match_sampled_directions() {
         t.parameter_effects_se
     );
     for (k, bb) in r.bias.iter().enumerate() {
-        assert!(((bb.value - t.bias[k]) / t.bias[k]).abs() < 1e-6, "{}: {} vs {}", bb.name, bb.value, t.bias[k]);
+        assert!(
+            ((bb.value - t.bias[k]) / t.bias[k]).abs() < 1e-6,
+            "{}: {} vs {}",
+            bb.name,
+            bb.value,
+            t.bias[k]
+        );
     }
 }
 
@@ -372,8 +396,12 @@ fn three_parameters_match_sampled_directions() {
 /// which a search for the book's example returned.
 #[test]
 fn puromycin_matches_the_published_rms_curvatures() {
-    let conc = [0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10];
-    let rate = [76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0];
+    let conc = [
+        0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10,
+    ];
+    let rate = [
+        76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0,
+    ];
     let m = tape("Vm*x/(K + x)", &["Vm", "K"], &["x"]);
     let d = data(&conc, &rate, None);
     let f = fitted(&m, &["Vm", "K"], &[200.0, 0.1], &d, 0.95);
@@ -416,13 +444,19 @@ fn reparametrisation_keeps_the_intrinsic_curvature_and_moves_the_bias_by_the_del
     let (i1, i2) = (r1.intrinsic_curvature.unwrap(), r2.intrinsic_curvature.unwrap());
     assert!(i1 > 1e-3, "{i1}");
     assert!((i1 - i2).abs() < 1e-6 * i1, "{i1} vs {i2}");
-    let (p1, p2) = (r1.parameter_effects_curvature.unwrap(), r2.parameter_effects_curvature.unwrap());
+    let (p1, p2) = (
+        r1.parameter_effects_curvature.unwrap(),
+        r2.parameter_effects_curvature.unwrap(),
+    );
     assert!((p1 - p2).abs() > 0.05 * p1, "{p1} vs {p2}");
     let k = f1.parameters[1].value;
     let var_k = f1.covariance[1][1];
     let expected = r1.bias[1].value / k - var_k / (2.0 * k * k);
     let got = r2.bias[1].value;
-    assert!((got - expected).abs() < 1e-6 * expected.abs(), "{got} vs {expected}");
+    assert!(
+        (got - expected).abs() < 1e-6 * expected.abs(),
+        "{got} vs {expected}"
+    );
     // The amplitude is the same parameter in both: the same bias.
     assert!((r1.bias[0].value - r2.bias[0].value).abs() < 1e-6 * r1.bias[0].value.abs());
 }
@@ -449,7 +483,10 @@ fn a_native_model_falls_back_to_central_differences() {
     assert_eq!(re.second_derivatives, Some(SecondDerivatives::Exact));
     assert_eq!(rn.second_derivatives, Some(SecondDerivatives::CentralDifferences));
     let close = |a: f64, b: f64| (a - b).abs() <= 1e-6 * b.abs();
-    assert!(close(rn.intrinsic_curvature.unwrap(), re.intrinsic_curvature.unwrap()));
+    assert!(close(
+        rn.intrinsic_curvature.unwrap(),
+        re.intrinsic_curvature.unwrap()
+    ));
     assert!(close(
         rn.parameter_effects_curvature.unwrap(),
         re.parameter_effects_curvature.unwrap()
@@ -460,7 +497,10 @@ fn a_native_model_falls_back_to_central_differences() {
     // Stated sigma, absolute covariance: the noise scale is 1 and F is the
     // chi-squared quantile over p (F with infinite denominator dof).
     assert_eq!(re.scale, Some(1.0));
-    let chi = statrs::distribution::ChiSquared::new(2.0).unwrap().inverse_cdf(0.6827) / 2.0;
+    let chi = statrs::distribution::ChiSquared::new(2.0)
+        .unwrap()
+        .inverse_cdf(0.6827)
+        / 2.0;
     assert!((re.f_quantile.unwrap() - chi).abs() < 1e-12);
 }
 
@@ -494,11 +534,16 @@ fn box_bias_agrees_with_a_monte_carlo_estimate() {
             let y: Vec<f64> = y0.iter().map(|v| v + nd.sample(&mut rng)).collect();
             let d = data(&x, &y, Some(sigma));
             let f = fit_from(&problem(&m, &["Vm", "K"], &truth, 0.6827), &d, &truth).ok()?;
-            f.converged.then(|| f.parameters.iter().map(|p| p.value).collect())
+            f.converged
+                .then(|| f.parameters.iter().map(|p| p.value).collect())
         })
         .collect();
     let ok: Vec<&Vec<f64>> = est.iter().flatten().collect();
-    assert!(ok.len() >= reps * 99 / 100, "{} of {reps} refits converged", ok.len());
+    assert!(
+        ok.len() >= reps * 99 / 100,
+        "{} of {reps} refits converged",
+        ok.len()
+    );
     let nn = ok.len() as f64;
     for j in 0..2 {
         let mean = ok.iter().map(|e| e[j]).sum::<f64>() / nn;
@@ -512,7 +557,10 @@ fn box_bias_agrees_with_a_monte_carlo_estimate() {
             100.0 * b / u[j]
         );
         assert!(b.abs() > 5.0 * se, "bias too small to test: {b} vs {se}");
-        assert!((mc_bias - b).abs() < 4.0 * se + 0.25 * b.abs(), "{mc_bias} vs {b} (se {se})");
+        assert!(
+            (mc_bias - b).abs() < 4.0 * se + 0.25 * b.abs(),
+            "{mc_bias} vs {b} (se {se})"
+        );
     }
 }
 
@@ -541,7 +589,10 @@ fn fixed_parameters_are_excluded_and_degenerate_fits_are_not_available() {
     let r3 = nonlinearity::compute(&m, &d, &unconverged);
     assert_eq!(r3.not_available, Some(NotAvailable::NotConverged));
     // The default (a record without the measures) says not computed.
-    assert_eq!(NonlinearityResult::default().not_available, Some(NotAvailable::NotComputed));
+    assert_eq!(
+        NonlinearityResult::default().not_available,
+        Some(NotAvailable::NotComputed)
+    );
 }
 
 /// The explanation never decides: `cite` adds a `nonlinearity` finding with
@@ -586,10 +637,22 @@ fn citing_the_measures_never_changes_a_verdict() {
         bias: vec![bias("a", 30.0), bias("b", 2.0), bias("c", 1.0)],
     };
     let mut vs = vec![
-        verdict("a", Status::Doubtful, vec![finding(Rule::ProfileHalfWidths, Status::Doubtful)]),
-        verdict("b", Status::Holds, vec![finding(Rule::ProfileHalfWidths, Status::Holds)]),
+        verdict(
+            "a",
+            Status::Doubtful,
+            vec![finding(Rule::ProfileHalfWidths, Status::Doubtful)],
+        ),
+        verdict(
+            "b",
+            Status::Holds,
+            vec![finding(Rule::ProfileHalfWidths, Status::Holds)],
+        ),
         // Doubted by goodness of fit only: curvature cannot explain that.
-        verdict("c", Status::Doubtful, vec![finding(Rule::GoodnessOfFit, Status::Doubtful)]),
+        verdict(
+            "c",
+            Status::Doubtful,
+            vec![finding(Rule::GoodnessOfFit, Status::Doubtful)],
+        ),
     ];
     nonlinearity::cite(&mut vs, &nl);
     assert_eq!(
@@ -606,13 +669,21 @@ fn citing_the_measures_never_changes_a_verdict() {
     // The sentence of the finding quotes its numbers.
     let reasons = fitaudit::report::findings::reasons(&vs[0]);
     assert_eq!(reasons.len(), 2, "{reasons:?}");
-    assert!(reasons[1].contains("0.900") && reasons[1].contains("0.460"), "{}", reasons[1]);
+    assert!(
+        reasons[1].contains("0.900") && reasons[1].contains("0.460"),
+        "{}",
+        reasons[1]
+    );
     assert!(reasons[1].contains("30 % of u"), "{}", reasons[1]);
     // Flat surface and parametrisation, small bias: nothing to cite.
     let mut flat = nl.clone();
     flat.parameter_effects_curvature = Some(0.1);
     flat.bias = vec![bias("a", 2.0)];
-    let mut vs2 = vec![verdict("a", Status::Doubtful, vec![finding(Rule::SpreadRatio, Status::Doubtful)])];
+    let mut vs2 = vec![verdict(
+        "a",
+        Status::Doubtful,
+        vec![finding(Rule::SpreadRatio, Status::Doubtful)],
+    )];
     nonlinearity::cite(&mut vs2, &flat);
     assert_eq!(vs2[0].findings.len(), 1);
 }
@@ -624,8 +695,12 @@ fn citing_the_measures_never_changes_a_verdict() {
 #[test]
 fn audit_and_fit_json_carry_the_measures_whatever_only_selects() {
     let tmp = tempfile::tempdir().unwrap();
-    let conc = [0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10];
-    let rate = [76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0];
+    let conc = [
+        0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10,
+    ];
+    let rate = [
+        76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0,
+    ];
     let mut csv = String::from("conc,rate\n");
     for (c, r) in conc.iter().zip(&rate) {
         csv.push_str(&format!("{c},{r}\n"));

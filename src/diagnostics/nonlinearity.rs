@@ -307,16 +307,32 @@ struct BlockEval {
 }
 
 /// Evaluates one block `[start, end)` of points; `None` when not finite.
+/// What every block evaluation reads.
+struct Pass<'a> {
+    model: &'a dyn ModelFn,
+    /// All parameter values.
+    params: &'a [f64],
+    /// Central-difference steps of the estimated parameters.
+    steps: &'a [f64],
+    /// Indices of the estimated parameters.
+    est: &'a [usize],
+    xs: &'a [&'a [f64]],
+    sigma: &'a [f64],
+}
+
 fn eval_block(
-    model: &dyn ModelFn,
-    params: &[f64],
-    steps: &[f64],
-    est: &[usize],
-    xs: &[&[f64]],
-    sigma: &[f64],
+    pass: &Pass,
     range: (usize, usize),
     source: &mut Option<SecondDerivatives>,
 ) -> Option<BlockEval> {
+    let Pass {
+        model,
+        params,
+        steps,
+        est,
+        xs,
+        sigma,
+    } = *pass;
     let (start, end) = range;
     let nb = end - start;
     let m = params.len();
@@ -414,15 +430,20 @@ fn accumulate(model: &dyn ModelFn, data: &Dataset, fit: &FitResult, est: &[usize
     let xs = data.x_slices();
     let sigma = data.sigma_or_ones();
     let mut source = None;
-    let blocks: Vec<(usize, usize)> = (0..n)
-        .step_by(BLOCK)
-        .map(|s| (s, (s + BLOCK).min(n)))
-        .collect();
+    let pass = Pass {
+        model,
+        params: &params,
+        steps: &steps,
+        est,
+        xs: &xs,
+        sigma: &sigma,
+    };
+    let blocks: Vec<(usize, usize)> = (0..n).step_by(BLOCK).map(|s| (s, (s + BLOCK).min(n))).collect();
     // Pass 1: V^T V and V^T W.
     let mut vtv = DMatrix::<f64>::zeros(p, p);
     let mut vtw = DMatrix::<f64>::zeros(p, p2);
     for &r in &blocks {
-        let be = eval_block(model, &params, &steps, est, &xs, &sigma, r, &mut source)?;
+        let be = eval_block(&pass, r, &mut source)?;
         let nb = r.1 - r.0;
         for a in 0..p {
             let va = &be.v[a * nb..(a + 1) * nb];
@@ -446,7 +467,7 @@ fn accumulate(model: &dyn ModelFn, data: &Dataset, fit: &FitResult, est: &[usize
     // Pass 2: Gram matrix of the normal parts W_q - V c_q.
     let mut normal = DMatrix::<f64>::zeros(p2, p2);
     for &r in &blocks {
-        let be = eval_block(model, &params, &steps, est, &xs, &sigma, r, &mut source)?;
+        let be = eval_block(&pass, r, &mut source)?;
         let nb = r.1 - r.0;
         let mut resid = be.w.clone();
         for q in 0..p2 {
@@ -551,11 +572,11 @@ fn measures(s: &Sums, p: usize, s2: f64) -> Option<Measures> {
     // Parameter effects.
     let mut sq = 0.0;
     let mut trace = vec![0.0; p];
-    for i in 0..p {
-        for j in 0..p {
-            sq += at[i][j].iter().map(|x| x * x).sum::<f64>();
+    for (i, row) in at.iter().enumerate() {
+        for a in row {
+            sq += a.iter().map(|x| x * x).sum::<f64>();
         }
-        for (t, x) in trace.iter_mut().zip(&at[i][i]) {
+        for (t, x) in trace.iter_mut().zip(&row[i]) {
             *t += x;
         }
     }

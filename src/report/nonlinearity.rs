@@ -75,7 +75,8 @@ pub fn curvature_rows(nl: &NonlinearityResult) -> Vec<(String, String)> {
             match nl.second_derivatives {
                 Some(SecondDerivatives::Exact) => "exact (symbolic)".into(),
                 Some(SecondDerivatives::CentralDifferences) => {
-                    "central differences of the exact Jacobian (the model has no exact second derivatives)".into()
+                    "central differences of the exact Jacobian (the model has no exact second derivatives)"
+                        .into()
                 }
                 None => format::ABSENT.to_string(),
             },
@@ -151,7 +152,10 @@ fn most_biased(nl: &NonlinearityResult) -> Option<&ParameterBias> {
 pub fn paragraphs(nl: &NonlinearityResult) -> Vec<String> {
     let mut out = Vec::new();
     if let Some(why) = nl.not_available {
-        out.push(format!("The curvature measures and the bias are {}.", not_available_words(why)));
+        out.push(format!(
+            "The curvature measures and the bias are {}.",
+            not_available_words(why)
+        ));
         return out;
     }
     let (Some(ci), Some(cp), Some(k)) = (
