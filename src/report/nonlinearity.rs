@@ -269,3 +269,67 @@ pub fn finding_sentence(f: &Finding) -> String {
         ),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn result(ci: f64, cp: f64) -> NonlinearityResult {
+        NonlinearityResult {
+            not_available: None,
+            second_derivatives: Some(SecondDerivatives::Exact),
+            parameters: vec!["k".into()],
+            intrinsic_curvature: Some(ci),
+            parameter_effects_curvature: Some(cp),
+            critical_curvature: Some(0.46),
+            f_quantile: Some(1.18),
+            level: 0.6827,
+            scale: Some(1.0),
+            bias: vec![ParameterBias {
+                name: "k".into(),
+                estimate: 2.0,
+                value: 0.05,
+                corrected: 1.95,
+                percent_of_estimate: Some(2.5),
+                percent_of_std_error: Some(25.0),
+            }],
+        }
+    }
+
+    /// Each reading names the curvature that exceeds the critical value,
+    /// and the marked bias with its percentages.
+    #[test]
+    fn paragraphs_name_what_exceeds_the_critical_value() {
+        let flat = paragraphs(&result(0.01, 0.1));
+        assert!(
+            flat[0].starts_with("The linear approximation behind value"),
+            "{}",
+            flat[0]
+        );
+        let curved = paragraphs(&result(0.01, 0.9));
+        assert!(
+            curved[0].starts_with("The parametrisation is curved"),
+            "{}",
+            curved[0]
+        );
+        assert!(curved[0].contains("log(k)"), "{}", curved[0]);
+        let intrinsic = paragraphs(&result(0.7, 0.9));
+        assert!(intrinsic[0].starts_with("The model surface itself is curved"));
+        assert!(intrinsic[0].contains("exceeds it too"));
+        assert!(
+            flat[1].contains("k by 0.050 (25 % of u, 2.5 % of the estimate)"),
+            "{}",
+            flat[1]
+        );
+    }
+
+    #[test]
+    fn not_available_says_so_instead_of_numbers() {
+        let mut r = result(0.01, 0.1);
+        r.not_available = Some(NotAvailable::RankDeficient);
+        let p = paragraphs(&r);
+        assert_eq!(p.len(), 1);
+        assert!(p[0].contains("rank-deficient"), "{}", p[0]);
+        assert_eq!(curvature_rows(&r).len(), 1);
+    }
+}
