@@ -142,14 +142,9 @@ fn nonlinearity_part(o: &mut String, results: &AuditResults) {
     for p in nl::paragraphs(r) {
         let _ = writeln!(o, "{}\n", escape(&p));
     }
-    let rows: Vec<Vec<String>> = nl::curvature_rows(r)
-        .into_iter()
-        .map(|(k, v)| vec![k, v])
-        .collect();
-    o.push_str(&table(&Table {
-        header: vec!["Quantity".into(), "Value".into()],
-        rows,
-    }));
+    for (k, v) in nl::curvature_rows(r) {
+        let _ = writeln!(o, "- {}: {}", escape(&k), escape(&v));
+    }
     if !r.bias.is_empty() {
         o.push('\n');
         o.push_str(&table(&nl::bias_table(r, &results.fit)));
