@@ -143,6 +143,9 @@ struct Textbook {
     /// Standard error of the sampled mean squares (0 for quadrature).
     intrinsic_se: f64,
     parameter_effects_se: f64,
+    /// Largest curvatures over the directions visited.
+    intrinsic_max: f64,
+    parameter_effects_max: f64,
     bias: Vec<f64>,
 }
 
@@ -176,6 +179,7 @@ fn textbook(v: &DMatrix<f64>, w: &[DMatrix<f64>], s2: f64) -> Textbook {
         (rho2 * normal.norm_squared(), rho2 * tangent.norm_squared())
     };
     let (mut si, mut sp, mut si2, mut sp2, count);
+    let (mut mi_max, mut mp_max) = (0.0f64, 0.0f64);
     si = 0.0;
     sp = 0.0;
     si2 = 0.0;
@@ -188,6 +192,8 @@ fn textbook(v: &DMatrix<f64>, w: &[DMatrix<f64>], s2: f64) -> Textbook {
             let (a, b) = mean_sq(&[t.cos(), t.sin()]);
             si += a;
             sp += b;
+            mi_max = mi_max.max(a);
+            mp_max = mp_max.max(b);
         }
     } else {
         count = 40_000;
@@ -200,6 +206,8 @@ fn textbook(v: &DMatrix<f64>, w: &[DMatrix<f64>], s2: f64) -> Textbook {
             let (a, b) = mean_sq(&h);
             si += a;
             sp += b;
+            mi_max = mi_max.max(a);
+            mp_max = mp_max.max(b);
             si2 += a * a;
             sp2 += b * b;
         }
@@ -223,6 +231,8 @@ fn textbook(v: &DMatrix<f64>, w: &[DMatrix<f64>], s2: f64) -> Textbook {
         // Delta method: se(sqrt(m)) = se(m) / (2 sqrt(m)).
         intrinsic_se: se(si2, mi) / (2.0 * mi.sqrt()),
         parameter_effects_se: se(sp2, mp) / (2.0 * mp.sqrt()),
+        intrinsic_max: mi_max.sqrt(),
+        parameter_effects_max: mp_max.sqrt(),
         bias: b.iter().copied().collect(),
     }
 }
@@ -308,10 +318,28 @@ fn nist_exponential_rise_matches_the_textbook_computation() {
             let u = f.parameters[k].std_error.unwrap();
             assert!(rel(bb.percent_of_std_error.unwrap(), 100.0 * t.bias[k] / u) < 1e-9);
         }
+        // The largest curvature: at least the best of 720 equally spaced
+        // directions, and above it by no more than the grid's resolution
+        // allows (angle step 0.0087: relative 1e-4 in the curvature).
+        for (got, grid) in [
+            (r.intrinsic_curvature_max.unwrap(), t.intrinsic_max),
+            (
+                r.parameter_effects_curvature_max.unwrap(),
+                t.parameter_effects_max,
+            ),
+        ] {
+            assert!(
+                got >= grid * (1.0 - 1e-9) && got <= grid * (1.0 + 1e-4),
+                "{name}: max {got} vs grid {grid}"
+            );
+        }
+        assert!(r.intrinsic_curvature_max.unwrap() >= ci && r.parameter_effects_curvature_max.unwrap() >= cp);
         let fq = FisherSnedecor::new(2.0, f.dof as f64).unwrap().inverse_cdf(0.95);
         assert!(rel(r.critical_curvature.unwrap(), 0.5 / fq.sqrt()) < 1e-12);
         eprintln!(
-            "{name}: intrinsic {ci:.4}, parameter effects {cp:.4}, critical {:.4}; bias {:?}",
+            "{name}: intrinsic {ci:.4} (max {:.4}), parameter effects {cp:.4} (max {:.4}), critical {:.4}; bias {:?}",
+            r.intrinsic_curvature_max.unwrap(),
+            r.parameter_effects_curvature_max.unwrap(),
             r.critical_curvature.unwrap(),
             r.bias
                 .iter()
@@ -376,6 +404,21 @@ fn three_parameters_match_sampled_directions() {
         t.parameter_effects,
         t.parameter_effects_se
     );
+    // The largest curvature: at least the best of the sampled directions,
+    // and within 1 % above it (40000 directions on the sphere are about
+    // 0.02 rad apart: relative 2e-4 in the curvature at a smooth maximum).
+    for (got, sampled) in [
+        (r.intrinsic_curvature_max.unwrap(), t.intrinsic_max),
+        (
+            r.parameter_effects_curvature_max.unwrap(),
+            t.parameter_effects_max,
+        ),
+    ] {
+        assert!(
+            got >= sampled * (1.0 - 1e-9) && got <= sampled * 1.01,
+            "max {got} vs sampled {sampled}"
+        );
+    }
     for (k, bb) in r.bias.iter().enumerate() {
         assert!(
             ((bb.value - t.bias[k]) / t.bias[k]).abs() < 1e-6,
@@ -412,7 +455,12 @@ fn puromycin_matches_the_published_rms_curvatures() {
     let cp = r.parameter_effects_curvature.unwrap() * root_f;
     let ci = r.intrinsic_curvature.unwrap() * root_f;
     eprintln!("Puromycin: parameter effects x sqrt(F) = {cp:.4}, intrinsic x sqrt(F) = {ci:.4}");
-    eprintln!("Puromycin bias: {:?}", r.bias);
+    eprintln!(
+        "Puromycin: largest curvatures x sqrt(F): parameter effects {:.4}, intrinsic {:.4}; bias {:?}",
+        r.parameter_effects_curvature_max.unwrap() * root_f,
+        r.intrinsic_curvature_max.unwrap() * root_f,
+        r.bias
+    );
     // Published to 4 and 2 significant digits: half a unit of the last digit.
     assert!((cp - 0.2121).abs() < 0.00005, "{cp}");
     assert!((ci - 0.092).abs() < 0.0005, "{ci}");
@@ -630,6 +678,8 @@ fn citing_the_measures_never_changes_a_verdict() {
         parameters: vec!["a".into(), "b".into(), "c".into()],
         intrinsic_curvature: Some(0.05),
         parameter_effects_curvature: Some(0.9),
+        intrinsic_curvature_max: Some(0.07),
+        parameter_effects_curvature_max: Some(1.1),
         critical_curvature: Some(0.46),
         f_quantile: Some(1.18),
         level: 0.6827,

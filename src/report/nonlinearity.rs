@@ -67,6 +67,14 @@ pub fn curvature_rows(nl: &NonlinearityResult) -> Vec<(String, String)> {
             opt(nl.parameter_effects_curvature),
         ),
         (
+            "Largest curvature over directions (intrinsic, parameter effects)".into(),
+            format!(
+                "{}, {}",
+                opt(nl.intrinsic_curvature_max),
+                opt(nl.parameter_effects_curvature_max)
+            ),
+        ),
+        (
             "Critical value 1/(2 sqrt(F))".into(),
             format!("{} ({f})", opt(nl.critical_curvature)),
         ),
@@ -203,6 +211,20 @@ pub fn paragraphs(nl: &NonlinearityResult) -> Vec<String> {
             }
         )),
     }
+    // The RMS value below the critical value while the worst direction exceeds it.
+    let worst = [
+        ("intrinsic", ci, nl.intrinsic_curvature_max),
+        ("parameter-effects", cp, nl.parameter_effects_curvature_max),
+    ];
+    for (what, rms, max) in worst {
+        if let Some(mx) = max.filter(|&mx| rms <= k && mx > k) {
+            out.push(format!(
+                "In its worst direction the {what} curvature reaches {}, above the critical value: the \
+                 approximation is adequate on average over directions but not along every one.",
+                n(mx)
+            ));
+        }
+    }
     let marked: Vec<&ParameterBias> = nl.bias.iter().filter(|b| b.is_marked()).collect();
     if marked.is_empty() {
         out.push(format!(
@@ -281,6 +303,8 @@ mod tests {
             parameters: vec!["k".into()],
             intrinsic_curvature: Some(ci),
             parameter_effects_curvature: Some(cp),
+            intrinsic_curvature_max: Some(1.2 * ci),
+            parameter_effects_curvature_max: Some(1.2 * cp),
             critical_curvature: Some(0.46),
             f_quantile: Some(1.18),
             level: 0.6827,
@@ -316,6 +340,13 @@ mod tests {
         let intrinsic = paragraphs(&result(0.7, 0.9));
         assert!(intrinsic[0].starts_with("The model surface itself is curved"));
         assert!(intrinsic[0].contains("exceeds it too"));
+        // RMS 0.4 below 0.46, worst direction 0.48 above it.
+        let edge = paragraphs(&result(0.01, 0.4));
+        assert!(
+            edge[1].contains("parameter-effects curvature reaches 0.480"),
+            "{}",
+            edge[1]
+        );
         assert!(
             flat[1].contains("k by 0.050 (25 % of u, 2.5 % of the estimate)"),
             "{}",
