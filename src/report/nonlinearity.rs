@@ -16,13 +16,13 @@ pub const HEADING: &str = "Linear approximation";
 
 /// What the measures are and where they mislead (printed under the table).
 pub const NOTE: &str = "Curvatures are relative (Bates and Watts 1980): the root mean square over all \
-directions of the curvature of the model surface (intrinsic) and of its parameter lines \
-(parameter effects), in units of the noise, at the solution only. Beyond the critical value \
+directions, and the largest, of the curvature of the model surface (intrinsic) and of its \
+parameter lines (parameter effects), in units of the noise, at the solution only. Beyond the critical value \
 1/(2 sqrt(F)) the surface bends visibly within the confidence region at the audit level. Box's bias \
 (Box 1971) is the expected error of the estimate to second order in the noise. Both come from \
 second derivatives at one point: they can miss nonlinearity farther out, where the profiles and the \
-resampling diagnostics are the better guide, and the RMS value can stay below the critical value \
-while one direction exceeds it.";
+resampling diagnostics are the better guide; the judgement uses the RMS value, which can stay below \
+the critical value while the largest exceeds it.";
 
 fn n(x: f64) -> String {
     format::sig(x, 3)
@@ -235,7 +235,7 @@ pub fn paragraphs(nl: &NonlinearityResult) -> Vec<String> {
     } else {
         let items: Vec<String> = marked
             .iter()
-            .map(|b| format!("{} by {}", b.name, bias_phrase(b)))
+            .map(|b| format!("{}: {}", b.name, bias_phrase(b)))
             .collect();
         out.push(format!(
             "Box's bias is marked (above {} % of the estimate or {} % of u, a rule of thumb) for {}: \
@@ -348,7 +348,7 @@ mod tests {
             edge[1]
         );
         assert!(
-            flat[1].contains("k by 0.050 (25 % of u, 2.5 % of the estimate)"),
+            flat[1].contains("k: 0.050 (25 % of u, 2.5 % of the estimate)"),
             "{}",
             flat[1]
         );
