@@ -810,3 +810,45 @@ fn audit_and_fit_json_carry_the_measures_whatever_only_selects() {
     assert!(html.contains("Bias-corrected estimate"));
     assert!(html.contains(&line));
 }
+
+/// The weighted problem: unequal stated sigma (absolute covariance, noise
+/// scale 1). The textbook computation on `J / sigma` and `H / sigma` (hand
+/// derivatives of the exponential rise) agrees with the library, and the
+/// weights matter (the unweighted measures differ).
+#[test]
+fn unequal_sigma_weights_the_jacobian_and_the_second_derivatives() {
+    let Some(p) = nist_problem("Misra1a") else { return };
+    let x = &p.x[0];
+    let sigma: Vec<f64> = (0..x.len()).map(|i| 0.05 + 0.02 * i as f64).collect();
+    let d = Dataset::single("x", x.clone(), "y", p.y.clone(), Some(sigma.clone()));
+    let m = tape("b1*(1-exp(-b2*x))", &["b1", "b2"], &["x"]);
+    let f = fit_from(
+        &problem(&m, &["b1", "b2"], &p.certified, 0.6827),
+        &d,
+        &p.certified,
+    )
+    .unwrap();
+    assert!(f.converged && !f.covariance_scaled);
+    let r = nonlinearity::compute(&m, &d, &f);
+    assert_eq!(r.scale, Some(1.0));
+    let b: Vec<f64> = f.parameters.iter().map(|q| q.value).collect();
+    let (v, w) = exponential_rise(&b, x);
+    let vw = DMatrix::from_fn(v.nrows(), 2, |i, j| v[(i, j)] / sigma[i]);
+    let ww: Vec<DMatrix<f64>> = w.iter().zip(&sigma).map(|(h, s)| h / *s).collect();
+    let t = textbook(&vw, &ww, 1.0);
+    let rel = |a: f64, b: f64| (a - b).abs() / b.abs();
+    assert!(rel(r.intrinsic_curvature.unwrap(), t.intrinsic) < 1e-9);
+    assert!(rel(r.parameter_effects_curvature.unwrap(), t.parameter_effects) < 1e-9);
+    for (k, bb) in r.bias.iter().enumerate() {
+        assert!(
+            rel(bb.value, t.bias[k]) < 1e-9,
+            "{}: {} vs {}",
+            bb.name,
+            bb.value,
+            t.bias[k]
+        );
+    }
+    // Without the weights (the same point, sigma 1) the numbers differ.
+    let unweighted = textbook(&v, &w, 1.0);
+    assert!(rel(unweighted.parameter_effects, t.parameter_effects) > 0.01);
+}
