@@ -60,10 +60,12 @@ use std::fmt;
 
 mod catalogue;
 mod graph;
+pub mod joint;
 mod ops;
 mod parser;
 mod tape;
 
+pub use joint::{JointModel, JointPart};
 pub use parser::MAX_DEPTH;
 
 /// The first point at which a model value or derivative was not finite.

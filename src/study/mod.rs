@@ -576,6 +576,7 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         y_name: d.y.clone(),
         y,
         sigma,
+        groups: Vec::new(),
     })
 }
 
