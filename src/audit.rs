@@ -393,7 +393,7 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
             study_sha256: study.study_sha256.clone(),
             data_sha256: study.data_sha256.clone(),
         },
-        model: &study.model,
+        model: study.model_fn(),
         params: study.parameters.clone(),
         fit_options: study.fit_options.clone(),
         data: &study.dataset,

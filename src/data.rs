@@ -39,6 +39,9 @@ pub struct DataGroup {
     /// Its data file as resolved, when read from one.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub file: Option<String>,
+    /// SHA-256 (hex) of its data file's bytes, when read from one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sha256: Option<String>,
     /// Its independent variables, in the order of the joint `x` columns
     /// (column `k` of the joint data holds this data set's `x_names[k]`).
     pub x_names: Vec<String>,
