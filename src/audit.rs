@@ -101,6 +101,39 @@ pub struct Curve {
     pub y: Vec<f64>,
 }
 
+/// One data set's share of a joint fit (a study of several `[[datasets]]`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DatasetShare {
+    /// The data set's name.
+    pub name: String,
+    /// Its formula.
+    pub formula: String,
+    /// Its number of points.
+    pub points: usize,
+    /// Index of its first point in the joint data (`data`, and the fits'
+    /// per-point arrays, before any display reduction).
+    pub start: usize,
+    /// The parameters its formula uses.
+    pub parameters: Vec<String>,
+    /// Of those, the ones another data set uses too.
+    pub shared: Vec<String>,
+    /// Its contribution to the joint chi-squared: the sum of its squared
+    /// normalised residuals (the contributions add up to `fit.chi2`).
+    pub chi2: f64,
+    /// `chi2 / fit.chi2` (0 when the joint chi-squared is 0).
+    pub chi2_fraction: f64,
+    /// Its share of the joint degrees of freedom: its points minus, for
+    /// each free parameter it uses, one over the number of data sets using
+    /// that parameter (the shares add up to `fit.dof`).
+    pub dof_share: f64,
+    /// `chi2 / dof_share` (none when the share is not positive): near the
+    /// joint reduced chi-squared when the data sets agree with the model
+    /// and their sigma alike.
+    pub reduced_chi2: Option<f64>,
+    /// Its fitted curve, when it has one independent variable.
+    pub curve: Option<Curve>,
+}
+
 /// Everything an audit computed: the content of `results.json`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct AuditResults {
@@ -153,6 +186,10 @@ pub struct AuditResults {
     /// order (empty without any).
     #[serde(default)]
     pub inverse: Vec<InverseResult>,
+    /// A study of several `[[datasets]]`: each data set's share of the
+    /// joint fit, in file order (empty for one data set).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub datasets: Vec<DatasetShare>,
     /// For a study of more than [`crate::reduction::RECORD_POINTS`]
     /// points: which points `data` and the fits' per-point arrays keep
     /// (every diagnostic ran on all of them); absent when all are kept.
@@ -293,6 +330,7 @@ pub fn run(
             monte_carlo.as_ref(),
         )
     });
+    let datasets = dataset_shares(input.model, input.data, &audited, &input.params);
     drop(ctx);
     let mut audited = audited;
     let mut start_fit = start_fit;
@@ -341,8 +379,76 @@ pub fn run(
         verdicts,
         derived,
         inverse,
+        datasets,
         reduction,
     })
+}
+
+/// Each data set's share of a joint fit (empty for one data set).
+pub fn dataset_shares(model: &dyn ModelFn, data: &Dataset, fit: &FitResult, params: &[ParamSpec]) -> Vec<DatasetShare> {
+    let groups = &data.groups;
+    let users = |name: &str| groups.iter().filter(|g| g.parameters.iter().any(|p| p == name)).count();
+    let values: Vec<f64> = fit.parameters.iter().map(|p| p.value).collect();
+    groups
+        .iter()
+        .enumerate()
+        .map(|(g, group)| {
+            let chi2: f64 = group
+                .range()
+                .map(|i| fit.residuals.get(i).map_or(0.0, |r| r * r))
+                .sum();
+            let dof_share = group.len as f64
+                - group
+                    .parameters
+                    .iter()
+                    .filter(|name| params.iter().any(|p| &p.name == *name && !p.fixed))
+                    .map(|name| 1.0 / users(name) as f64)
+                    .sum::<f64>();
+            let curve = (group.x_names.len() == 1).then(|| group_curve(model, data, g, &values)).flatten();
+            DatasetShare {
+                name: group.name.clone(),
+                formula: group.formula.clone(),
+                points: group.len,
+                start: group.start,
+                parameters: group.parameters.clone(),
+                shared: group.parameters.iter().filter(|p| users(p) > 1).cloned().collect(),
+                chi2,
+                chi2_fraction: if fit.chi2 > 0.0 { chi2 / fit.chi2 } else { 0.0 },
+                dof_share,
+                reduced_chi2: (dof_share > 0.0).then(|| chi2 / dof_share),
+                curve,
+            }
+        })
+        .collect()
+}
+
+/// Data set `g`'s model on 400 points spanning its (single) x column.
+fn group_curve(model: &dyn ModelFn, data: &Dataset, g: usize, params: &[f64]) -> Option<Curve> {
+    let r = data.groups[g].range();
+    let col = &data.x.first()?[r];
+    let lo = col.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = col.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !(lo.is_finite() && hi.is_finite()) {
+        return None;
+    }
+    let n = 400;
+    let xs: Vec<f64> = (0..n)
+        .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
+        .collect();
+    let zeros = vec![0.0; n];
+    let group = vec![g as f64; n];
+    let last = data.x.len() - 1;
+    let cols: Vec<&[f64]> = (0..data.x.len())
+        .map(|k| match k {
+            0 => xs.as_slice(),
+            k if k == last => group.as_slice(),
+            _ => zeros.as_slice(),
+        })
+        .collect();
+    let mut ys = vec![0.0; n];
+    let mut scratch = Vec::new();
+    let _ = model.eval(params, &cols, &mut ys, None, &mut scratch);
+    Some(Curve { x: xs, y: ys })
 }
 
 /// The full fit from the best minimum of the search, when it is a valid

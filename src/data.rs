@@ -47,6 +47,9 @@ pub struct DataGroup {
     pub x_names: Vec<String>,
     /// Its response column.
     pub y_name: String,
+    /// The parameters its formula uses, in parameter-vector order (a
+    /// parameter listed by several data sets is shared).
+    pub parameters: Vec<String>,
     /// Index of its first point in the joint data.
     pub start: usize,
     /// Its number of points.

@@ -134,6 +134,7 @@ struct Read {
     file: PathBuf,
     lines: Vec<usize>,
     sha256: String,
+    parameters: Vec<String>,
 }
 
 /// Resolves a study of `[[datasets]]` (see the module documentation).
@@ -272,6 +273,7 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             file,
             lines: raw.lines.clone(),
             sha256: sha256_hex(&bytes),
+            parameters: local_names,
         });
     }
     for (j, p) in params.iter().enumerate() {
@@ -446,6 +448,7 @@ fn concatenate(spec: &StudySpec, reads: &[Read]) -> Dataset {
             sha256: Some(r.sha256.clone()),
             x_names: r.data.x_names.clone(),
             y_name: r.data.y_name.clone(),
+            parameters: r.parameters.clone(),
             start: y.len(),
             len,
         });

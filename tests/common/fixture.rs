@@ -553,6 +553,7 @@ pub fn cooling() -> AuditResults {
         fit,
         curve: Some(curve),
         bands,
+        datasets: Vec::new(),
         reduction: None,
     }
 }
