@@ -21,6 +21,7 @@ use crate::audit::{AuditOptions, AuditResults};
 use crate::output::{OutputError, Staging};
 
 pub mod csv;
+pub mod datasets;
 pub mod figures;
 pub mod findings;
 pub mod format;
