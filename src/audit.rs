@@ -385,9 +385,19 @@ pub fn run(
 }
 
 /// Each data set's share of a joint fit (empty for one data set).
-pub fn dataset_shares(model: &dyn ModelFn, data: &Dataset, fit: &FitResult, params: &[ParamSpec]) -> Vec<DatasetShare> {
+pub fn dataset_shares(
+    model: &dyn ModelFn,
+    data: &Dataset,
+    fit: &FitResult,
+    params: &[ParamSpec],
+) -> Vec<DatasetShare> {
     let groups = &data.groups;
-    let users = |name: &str| groups.iter().filter(|g| g.parameters.iter().any(|p| p == name)).count();
+    let users = |name: &str| {
+        groups
+            .iter()
+            .filter(|g| g.parameters.iter().any(|p| p == name))
+            .count()
+    };
     let values: Vec<f64> = fit.parameters.iter().map(|p| p.value).collect();
     groups
         .iter()
@@ -404,14 +414,21 @@ pub fn dataset_shares(model: &dyn ModelFn, data: &Dataset, fit: &FitResult, para
                     .filter(|name| params.iter().any(|p| &p.name == *name && !p.fixed))
                     .map(|name| 1.0 / users(name) as f64)
                     .sum::<f64>();
-            let curve = (group.x_names.len() == 1).then(|| group_curve(model, data, g, &values)).flatten();
+            let curve = (group.x_names.len() == 1)
+                .then(|| group_curve(model, data, g, &values))
+                .flatten();
             DatasetShare {
                 name: group.name.clone(),
                 formula: group.formula.clone(),
                 points: group.len,
                 start: group.start,
                 parameters: group.parameters.clone(),
-                shared: group.parameters.iter().filter(|p| users(p) > 1).cloned().collect(),
+                shared: group
+                    .parameters
+                    .iter()
+                    .filter(|p| users(p) > 1)
+                    .cloned()
+                    .collect(),
                 chi2,
                 chi2_fraction: if fit.chi2 > 0.0 { chi2 / fit.chi2 } else { 0.0 },
                 dof_share,

@@ -138,7 +138,13 @@ fn two_lines_sharing_a_slope_match_the_weighted_normal_equations() {
         }
     }
     for (j, p) in f.parameters.iter().enumerate() {
-        assert!((p.value - beta[j]).abs() < 1e-9 * beta[j].abs().max(1.0), "{} {} {}", p.name, p.value, beta[j]);
+        assert!(
+            (p.value - beta[j]).abs() < 1e-9 * beta[j].abs().max(1.0),
+            "{} {} {}",
+            p.name,
+            p.value,
+            beta[j]
+        );
         let se = cov[j][j].sqrt();
         let got = p.std_error.unwrap();
         assert!((got - se).abs() < 1e-7 * se, "{} se {got} {se}", p.name);
@@ -224,7 +230,10 @@ fn profile_k(k: f64) -> (f64, [f64; 3]) {
     let chi2: f64 = d1
         .iter()
         .map(|p| w1 * (p[1] - a1 * (-k * p[0]).exp()).powi(2))
-        .chain(d2.iter().map(|p| w2 * (p[1] - a2 * (-k * p[0]).exp() - c).powi(2)))
+        .chain(
+            d2.iter()
+                .map(|p| w2 * (p[1] - a2 * (-k * p[0]).exp() - c).powi(2)),
+        )
         .sum();
     (chi2, [a1, a2, c])
 }
@@ -234,8 +243,14 @@ fn two_decays_sharing_a_rate_match_an_independent_profile_minimisation() {
     let (d1, d2) = decays();
     let dir = folder(&[
         ("study.toml", DECAYS_STUDY),
-        ("d1.csv", &csv("t,y", &d1.iter().map(|r| r.to_vec()).collect::<Vec<_>>())),
-        ("d2.csv", &csv("s,y", &d2.iter().map(|r| r.to_vec()).collect::<Vec<_>>())),
+        (
+            "d1.csv",
+            &csv("t,y", &d1.iter().map(|r| r.to_vec()).collect::<Vec<_>>()),
+        ),
+        (
+            "d2.csv",
+            &csv("s,y", &d2.iter().map(|r| r.to_vec()).collect::<Vec<_>>()),
+        ),
     ]);
     let s = load(dir.path(), "study.toml");
     let f = fit::fit(&s.problem(), &s.dataset).unwrap();
@@ -256,8 +271,16 @@ fn two_decays_sharing_a_rate_match_an_independent_profile_minimisation() {
     let k = 0.5 * (lo + hi);
     let (chi2, [a1, a2, c]) = profile_k(k);
     let got: Vec<f64> = f.parameters.iter().map(|p| p.value).collect();
-    for (name, g, want) in [("A1", got[0], a1), ("k", got[1], k), ("A2", got[2], a2), ("c", got[3], c)] {
-        assert!((g - want).abs() < 1e-6 * want.abs().max(0.1), "{name}: {g} vs {want}");
+    for (name, g, want) in [
+        ("A1", got[0], a1),
+        ("k", got[1], k),
+        ("A2", got[2], a2),
+        ("c", got[3], c),
+    ] {
+        assert!(
+            (g - want).abs() < 1e-6 * want.abs().max(0.1),
+            "{name}: {g} vs {want}"
+        );
     }
     assert!((f.chi2 - chi2).abs() < 1e-8 * chi2, "{} vs {chi2}", f.chi2);
     // The shared rate's standard error: the curvature of the profile
@@ -321,7 +344,15 @@ fn audit_cli(dir: &Path, study: &str, extra: &[&str]) -> serde_json::Value {
         .arg(dir.join(study))
         .arg("--out")
         .arg(&out)
-        .args(["--quiet", "--replicates", "150", "--starts", "16", "--threads", "2"])
+        .args([
+            "--quiet",
+            "--replicates",
+            "150",
+            "--starts",
+            "16",
+            "--threads",
+            "2",
+        ])
         .args(extra)
         .assert()
         .success();
@@ -330,7 +361,11 @@ fn audit_cli(dir: &Path, study: &str, extra: &[&str]) -> serde_json::Value {
 
 #[test]
 fn one_entry_equals_the_same_study_written_with_data_and_model() {
-    let dir = folder(&[("plain.toml", PLAIN), ("one.toml", ONE_ENTRY), ("c.csv", COOLING_CSV)]);
+    let dir = folder(&[
+        ("plain.toml", PLAIN),
+        ("one.toml", ONE_ENTRY),
+        ("c.csv", COOLING_CSV),
+    ]);
     let plain = audit_cli(dir.path(), "plain.toml", &[]);
     let one = audit_cli(dir.path(), "one.toml", &[]);
     // Every result field for field; what only names the study, the data's
@@ -433,9 +468,13 @@ fn three_folder(scheme: &str) -> tempfile::TempDir {
 }
 
 fn run_audit(s: &Study, threads: usize) -> audit::AuditResults {
-    let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .unwrap();
     let input = audit::input_from_study(s);
-    pool.install(|| audit::run(&input, &AuditOptions::default(), &NoProgress)).unwrap()
+    pool.install(|| audit::run(&input, &AuditOptions::default(), &NoProgress))
+        .unwrap()
 }
 
 #[test]
@@ -445,7 +484,11 @@ fn shares_add_up_to_the_joint_chi2_and_dof() {
     let r = run_audit(&s, 2);
     assert_eq!(r.datasets.len(), 3);
     let chi2: f64 = r.datasets.iter().map(|d| d.chi2).sum();
-    assert!((chi2 - r.fit.chi2).abs() < 1e-10 * r.fit.chi2, "{chi2} {}", r.fit.chi2);
+    assert!(
+        (chi2 - r.fit.chi2).abs() < 1e-10 * r.fit.chi2,
+        "{chi2} {}",
+        r.fit.chi2
+    );
     let dof: f64 = r.datasets.iter().map(|d| d.dof_share).sum();
     assert!((dof - r.fit.dof as f64).abs() < 1e-12, "{dof} {}", r.fit.dof);
     let fractions: f64 = r.datasets.iter().map(|d| d.chi2_fraction).sum();
@@ -487,7 +530,11 @@ fn the_case_bootstrap_never_mixes_data_sets() {
         let idx = bootstrap::case_indices(&s.dataset, s.audit.seed, k);
         assert_eq!(idx.len(), s.dataset.len());
         for (o, &i) in idx.iter().enumerate() {
-            assert_eq!(group_of(o), group_of(i), "replicate {k}: position {o} drew point {i}");
+            assert_eq!(
+                group_of(o),
+                group_of(i),
+                "replicate {k}: position {o} drew point {i}"
+            );
             drawn_from[i] += 1;
         }
     }

@@ -210,7 +210,7 @@ mod tests {
         assert_eq!(&j[0..4], &[1.0, 0.0, 0.0, 1.0]); // d/da
         assert_eq!(&j[4..8], &[1.0, 1.0, 1.0, 4.0]); // d/db
         assert_eq!(&j[8..12], &[0.0, 4.0, 9.0, 0.0]); // d/dc
-        // Value-only evaluation agrees.
+                                                      // Value-only evaluation agrees.
         let mut v2 = [0.0; 4];
         m.eval(&p, &[&t, &g], &mut v2, None, &mut s).unwrap();
         assert_eq!(v, v2);

@@ -27,7 +27,12 @@ pub fn table(results: &AuditResults) -> Table {
             if sigma { "chi2" } else { "Sum of squares" }.into(),
             "Share of total".into(),
             "dof share".into(),
-            if sigma { "chi2 / dof share" } else { "Sum / dof share" }.into(),
+            if sigma {
+                "chi2 / dof share"
+            } else {
+                "Sum / dof share"
+            }
+            .into(),
         ],
         rows: results
             .datasets

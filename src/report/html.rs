@@ -286,7 +286,12 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     pairs(&mut o, &tables::goodness(&results.fit), &[]);
     if !results.datasets.is_empty() {
         o.push_str("<h3>Data sets</h3>\n");
-        table(&mut o, &crate::report::datasets::table(results), &[2, 4, 5, 6, 7], Some("wide"));
+        table(
+            &mut o,
+            &crate::report::datasets::table(results),
+            &[2, 4, 5, 6, 7],
+            Some("wide"),
+        );
         let _ = writeln!(o, "<p>{}</p>", escape(crate::report::datasets::NOTE));
     }
     o.push_str("</section>\n");

@@ -45,7 +45,9 @@ use std::path::{Path, PathBuf};
 
 use super::error::{self, At, Shadow, StudyError};
 use super::spec::{self, DataSpec, SigmaSpec, StudySpec};
-use super::{check_spec, dataset_from_table, invalid, key_column_at, parse_raw, sha256_hex, Study, StudyWarning};
+use super::{
+    check_spec, dataset_from_table, invalid, key_column_at, parse_raw, sha256_hex, Study, StudyWarning,
+};
 use crate::data::{DataGroup, Dataset};
 use crate::fit::FitOptions;
 use crate::model::{self, JointModel, JointPart, ModelErrorKind, ModelFn, Symbols};
@@ -169,17 +171,28 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
         let prefix = format!("datasets[{i}]");
         let key = |k: &str| format!("{prefix}.{k}");
         if entry.name.trim().is_empty() {
-            return Err(invalid(&spec, &key("name"), "is missing or empty: give every data set a name"));
+            return Err(invalid(
+                &spec,
+                &key("name"),
+                "is missing or empty: give every data set a name",
+            ));
         }
         if let Some(j) = spec.datasets[..i].iter().position(|e| e.name == entry.name) {
             return Err(invalid(
                 &spec,
                 &key("name"),
-                format!("`{}` is also the name of datasets[{j}]: every data set needs its own name", entry.name),
+                format!(
+                    "`{}` is also the name of datasets[{j}]: every data set needs its own name",
+                    entry.name
+                ),
             ));
         }
         if entry.formula.trim().is_empty() {
-            return Err(invalid(&spec, &key("formula"), "is missing or empty: write the data set's model formula"));
+            return Err(invalid(
+                &spec,
+                &key("formula"),
+                "is missing or empty: write the data set's model formula",
+            ));
         }
         if entry.file.as_os_str().is_empty() {
             return Err(invalid(
@@ -192,7 +205,11 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             return Err(invalid(
                 &spec,
                 &key("x"),
-                format!("names {} columns; a data set may have at most {}", entry.x.len(), model::joint::MAX_VARS),
+                format!(
+                    "names {} columns; a data set may have at most {}",
+                    entry.x.len(),
+                    model::joint::MAX_VARS
+                ),
             ));
         }
         // The entry read as [data] + [model], its keys renamed.
@@ -200,9 +217,10 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
         sub.datasets = Vec::new();
         sub.data = entry.data_spec();
         sub.model.formula = entry.formula.clone();
-        sub.locations = spec
-            .locations
-            .renamed(&[(&format!("{prefix}."), "data."), (&key("formula"), "model.formula")]);
+        sub.locations = spec.locations.renamed(&[
+            (&format!("{prefix}."), "data."),
+            (&key("formula"), "model.formula"),
+        ]);
         let file = base_dir.join(&entry.file);
         let bytes = std::fs::read(&file).map_err(|source| StudyError::ReadDatasetFile {
             at: Box::new(At::file(&file)),
@@ -239,15 +257,29 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
                 format!(
                     "{} while datasets[0] {}: either every data set states sigma or none does \
                      (without sigma one residual variance is estimated for all data sets together)",
-                    if entry.sigma.is_some() { "is given" } else { "is absent" },
-                    if spec.datasets[0].sigma.is_some() { "gives one" } else { "gives none" },
+                    if entry.sigma.is_some() {
+                        "is given"
+                    } else {
+                        "is absent"
+                    },
+                    if spec.datasets[0].sigma.is_some() {
+                        "gives one"
+                    } else {
+                        "gives none"
+                    },
                 ),
             ));
         }
         let tape = compile_entry(&spec, &key("formula"), &entry.formula, &names, &data.x_names)?;
         let local: Vec<usize> = (0..names.len()).filter(|&j| tape.uses_parameter(j)).collect();
         let local_names: Vec<String> = local.iter().map(|&j| names[j].clone()).collect();
-        let local_tape = compile_entry(&spec, &key("formula"), &entry.formula, &local_names, &data.x_names)?;
+        let local_tape = compile_entry(
+            &spec,
+            &key("formula"),
+            &entry.formula,
+            &local_names,
+            &data.x_names,
+        )?;
         for &j in &local {
             used_by[j].push(i);
         }
@@ -267,7 +299,10 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
                 }
             }
         }
-        parts.push(JointPart { tape: local_tape, map: local });
+        parts.push(JointPart {
+            tape: local_tape,
+            map: local,
+        });
         reads.push(Read {
             data,
             file,
@@ -331,7 +366,13 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
         });
     }
     let first = &spec.datasets[0];
-    let model = compile_entry(&spec, "datasets[0].formula", &first.formula, &names, &reads[0].data.x_names)?;
+    let model = compile_entry(
+        &spec,
+        "datasets[0].formula",
+        &first.formula,
+        &names,
+        &reads[0].data.x_names,
+    )?;
     let derived = super::compile_derived(&spec, &names)?;
     let formula = spec
         .datasets

@@ -223,18 +223,25 @@ impl Study {
         if !spec.datasets.is_empty() {
             return joint::from_spec(spec, base_dir, name);
         }
-        if !spec.locations.is_empty() {
-            for (table, what) in [("data", "[data] (the data file and its columns)"), ("model", "[model] (the formula)")] {
-                if !spec.locations.has_table(table) {
-                    return Err(invalid(
-                        &spec,
-                        table,
-                        format!(
-                            "is missing: a study needs {what}, or instead of [data] and [model] one or more \
-                             [[datasets]] entries, each with name, file, x, y and formula"
-                        ),
-                    ));
-                }
+        let from_file = !spec.locations.is_empty();
+        let missing = [
+            (
+                "data",
+                "[data] (the data file and its columns)",
+                spec.data == DataSpec::default(),
+            ),
+            ("model", "[model] (the formula)", spec.model.formula.is_empty()),
+        ];
+        for (table, what, empty) in missing {
+            if !spec.locations.has_table(table) && (from_file || empty) {
+                return Err(invalid(
+                    &spec,
+                    table,
+                    format!(
+                        "is missing: a study needs {what}, or instead of [data] and [model] one or more \
+                         [[datasets]] entries, each with name, file, x, y and formula"
+                    ),
+                ));
             }
         }
         let (params, options) = check_spec(&spec)?;
