@@ -132,6 +132,19 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     } else {
         let _ = writeln!(s, "data       {} points", d.len());
     }
+    for g in &d.groups {
+        let _ = writeln!(
+            s,
+            "data set   {}: {} ({} points), x {}, y {}, formula {}, parameters {}",
+            g.name,
+            g.file.as_deref().unwrap_or("-"),
+            g.len,
+            g.x_names.join(", "),
+            g.y_name,
+            g.formula,
+            g.parameters.join(", ")
+        );
+    }
     let _ = writeln!(s, "x          {}", d.x_names.join(", "));
     let _ = writeln!(s, "y          {}", d.y_name);
     let _ = writeln!(

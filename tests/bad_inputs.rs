@@ -654,7 +654,11 @@ fn cases() -> Vec<Case> {
             csv: None,
             args: AUDIT,
             code: 2,
-            expect: &["study.toml", "`data`", "cannot be used together with [[datasets]]"],
+            expect: &[
+                "study.toml",
+                "`data`",
+                "cannot be used together with [[datasets]]",
+            ],
         },
         Case {
             name: "joint: [model] together with [[datasets]]",

@@ -161,7 +161,13 @@ fn joint_model_refits_allocate_nothing() {
     let y: Vec<f64> = t
         .iter()
         .zip(&g)
-        .map(|(&t, &g)| if g == 0.0 { 2.0 * (-0.7 * t).exp() } else { 1.5 * (-0.7 * t).exp() + 0.3 })
+        .map(|(&t, &g)| {
+            if g == 0.0 {
+                2.0 * (-0.7 * t).exp()
+            } else {
+                1.5 * (-0.7 * t).exp() + 0.3
+            }
+        })
         .collect();
     let sigma = vec![0.01; t.len()];
     let xs: Vec<&[f64]> = vec![&t, &g];

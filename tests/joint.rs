@@ -575,7 +575,12 @@ fn the_arrhenius_example_recovers_its_generating_values() {
     assert!(f.converged);
     for (p, truth) in f.parameters.iter().zip([1.00, 0.98, 1.02, 0.05, 60000.0]) {
         let u = p.std_error.unwrap();
-        assert!((p.value - truth).abs() < 3.0 * u, "{} = {} +- {u}, generated {truth}", p.name, p.value);
+        assert!(
+            (p.value - truth).abs() < 3.0 * u,
+            "{} = {} +- {u}, generated {truth}",
+            p.name,
+            p.value
+        );
     }
     let shares = audit::dataset_shares(s.model_fn(), &s.dataset, &f, &s.parameters);
     let shared: Vec<Vec<String>> = shares.iter().map(|d| d.shared.clone()).collect();
@@ -583,5 +588,8 @@ fn the_arrhenius_example_recovers_its_generating_values() {
     assert_eq!(shared[1], vec!["k_45".to_string()]);
     assert_eq!(shares.iter().map(|d| d.points).sum::<usize>(), 49);
     // The 45 degC run does not involve Ea at all.
-    assert_eq!(s.dataset.groups[1].parameters, vec!["c0_45".to_string(), "k_45".to_string()]);
+    assert_eq!(
+        s.dataset.groups[1].parameters,
+        vec!["c0_45".to_string(), "k_45".to_string()]
+    );
 }

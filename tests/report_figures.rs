@@ -270,8 +270,14 @@ fn a_joint_study_has_a_fit_figure_per_data_set_on_its_own_points() {
     assert!(files.contains(&"fit.svg"));
     for (name, points) in [("early", 20usize), ("late", 16)] {
         let file = format!("fit_{name}.svg");
-        let fig = f.get(&file).unwrap_or_else(|| panic!("{file} missing: {files:?}"));
-        assert!(fig.caption.starts_with(&format!("Data set {name} (")), "{}", fig.caption);
+        let fig = f
+            .get(&file)
+            .unwrap_or_else(|| panic!("{file} missing: {files:?}"));
+        assert!(
+            fig.caption.starts_with(&format!("Data set {name} (")),
+            "{}",
+            fig.caption
+        );
         let doc = roxmltree::Document::parse(&fig.svg).unwrap();
         // One open circle per point in the data panel (error bars are
         // lines), one filled circle per point in the residual panel, plus

@@ -102,7 +102,7 @@ pub fn residual_pool(ctx: &Fitted) -> Vec<f64> {
 /// set of a joint study (`0..n` for one data set).
 pub fn strata(data: &crate::data::Dataset) -> Vec<std::ops::Range<usize>> {
     if data.groups.is_empty() {
-        vec![0..data.len()]
+        std::iter::once(0..data.len()).collect()
     } else {
         data.groups.iter().map(|g| g.range()).collect()
     }

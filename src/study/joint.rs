@@ -146,10 +146,8 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             return Err(invalid(
                 &spec,
                 table,
-                format!(
-                    "cannot be used together with [[datasets]]: write each data set's file, columns and \
-                     formula in its [[datasets]] entry, or use [data] and [model] without [[datasets]]"
-                ),
+                "cannot be used together with [[datasets]]: write each data set's file, columns and \
+                 formula in its [[datasets]] entry, or use [data] and [model] without [[datasets]]",
             ));
         }
     }

@@ -832,7 +832,9 @@ pub fn joint() -> AuditResults {
     let n = r.data.len();
     let split = 20;
     let names: Vec<String> = r.fit.parameters.iter().map(|p| p.name.clone()).collect();
-    r.data.x.push((0..n).map(|i| if i < split { 0.0 } else { 1.0 }).collect());
+    r.data
+        .x
+        .push((0..n).map(|i| if i < split { 0.0 } else { 1.0 }).collect());
     r.data.x_names.push("dataset".into());
     let m = names.len() as f64;
     let mut shares = Vec::new();
