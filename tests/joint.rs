@@ -593,3 +593,62 @@ fn the_arrhenius_example_recovers_its_generating_values() {
         vec!["c0_45".to_string(), "k_45".to_string()]
     );
 }
+
+#[test]
+fn a_large_joint_study_keeps_each_data_set_in_its_display_reduction() {
+    // 2600 + 2400 points: above the 4000 points a record keeps, so the
+    // record holds a display reduction; each data set's kept points must
+    // stay its own (its range in `data.groups` recomputed).
+    let rows = |n: usize, amp: f64, phase: f64| {
+        let r: Vec<Vec<f64>> = (0..n)
+            .map(|i| {
+                let t = 10.0 * i as f64 / n as f64;
+                vec![t, amp * (-0.3 * t).exp() + 0.01 * (phase + 3.7 * i as f64).sin()]
+            })
+            .collect();
+        csv("t,y", &r)
+    };
+    let study = DECAYS_STUDY
+        .replace("\"d2.csv\"\nx = \"s\"", "\"d2.csv\"\nx = \"t\"")
+        .replace("*s)", "*t)");
+    let dir = folder(&[
+        ("study.toml", &study),
+        ("d1.csv", &rows(2600, 1.3, 0.0)),
+        ("d2.csv", &rows(2400, 2.1, 1.0)),
+    ]);
+    let s = load(dir.path(), "study.toml");
+    let input = audit::input_from_study(&s);
+    let options = AuditOptions {
+        only: vec![Diagnostic::Profile],
+        ..AuditOptions::default()
+    };
+    let mut settings = input.settings.clone();
+    settings.profile.points = 7;
+    let input = audit::AuditInput { settings, ..input };
+    let r = audit::run(&input, &options, &NoProgress).unwrap();
+    let red = r.reduction.as_ref().expect("a display reduction");
+    assert_eq!(red.points, 5000);
+    let groups = &r.data.groups;
+    assert_eq!(groups[0].len + groups[1].len, red.kept);
+    assert_eq!(groups[1].start, groups[0].len);
+    for (g, group) in groups.iter().enumerate() {
+        let original = r.datasets[g].start..r.datasets[g].start + r.datasets[g].points;
+        assert!(group.len > 100, "{}", group.len);
+        for &i in &red.indices[group.range()] {
+            assert!(
+                original.contains(&i),
+                "data set {g}: kept point {i} outside {original:?}"
+            );
+        }
+        // The data-set column of the kept points says the same.
+        assert!(r.data.x.last().unwrap()[group.range()]
+            .iter()
+            .all(|&v| v == g as f64));
+    }
+    // The chi2 contributions are of all points, not of the kept ones.
+    let total: f64 = r.datasets.iter().map(|d| d.chi2).sum();
+    assert!((total - r.fit.chi2).abs() < 1e-9 * r.fit.chi2);
+    // Each data set's figure draws its kept points.
+    let figs = fitaudit::report::figures::build(&r).unwrap();
+    assert!(figs.get("fit_first.svg").is_some() && figs.get("fit_second.svg").is_some());
+}
