@@ -174,20 +174,26 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 &study.audit,
                 study.dataset.has_sigma(),
             );
+            let datasets =
+                fitaudit::audit::dataset_shares(study.model_fn(), &study.dataset, &fit, &study.parameters);
             if json {
                 #[derive(serde::Serialize)]
                 struct Wrapped<'a> {
                     fit: &'a fitaudit::fit::FitResult,
                     derived: &'a [fitaudit::diagnostics::derived::DerivedResult],
+                    #[serde(skip_serializing_if = "<[_]>::is_empty")]
+                    datasets: &'a [fitaudit::audit::DatasetShare],
                 }
                 let wrapped = Wrapped {
                     fit: &fit,
                     derived: &derived,
+                    datasets: &datasets,
                 };
                 emit(&(serde_json::to_string_pretty(&wrapped)? + "\n"))?;
             } else {
                 emit(&text::fit_table(study.title.as_deref(), &study.parameters, &fit))?;
                 emit(&text::derived_table(&fit, &derived))?;
+                emit(&text::datasets_table(&datasets, fit.sigma_given))?;
             }
             Ok(ExitCode::SUCCESS)
         }

@@ -652,3 +652,42 @@ fn a_large_joint_study_keeps_each_data_set_in_its_display_reduction() {
     let figs = fitaudit::report::figures::build(&r).unwrap();
     assert!(figs.get("fit_first.svg").is_some() && figs.get("fit_second.svg").is_some());
 }
+
+#[test]
+fn fit_prints_each_data_sets_share_and_carries_it_in_json() {
+    let dir = lines_folder();
+    let study = dir.path().join("study.toml");
+    let out = Command::cargo_bin("fitaudit")
+        .unwrap()
+        .args(["fit", "--json"])
+        .arg(&study)
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let chi2 = v["fit"]["chi2"].as_f64().unwrap();
+    let parts: Vec<f64> = v["datasets"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|d| d["chi2"].as_f64().unwrap())
+        .collect();
+    assert_eq!(parts.len(), 2);
+    assert!((parts.iter().sum::<f64>() - chi2).abs() < 1e-10 * chi2);
+    // Line A has 6 points and its own intercept; the slope is shared by
+    // both: 6 - 1 - 1/2 and 5 - 1 - 1/2.
+    assert_eq!(v["datasets"][0]["dof_share"].as_f64().unwrap(), 4.5);
+    assert_eq!(v["datasets"][1]["dof_share"].as_f64().unwrap(), 3.5);
+    let text = Command::cargo_bin("fitaudit")
+        .unwrap()
+        .arg("fit")
+        .arg(&study)
+        .output()
+        .unwrap();
+    let text = String::from_utf8(text.stdout).unwrap();
+    assert!(text.contains("data set  points  parameters"), "{text}");
+    assert!(
+        text.lines().any(|l| l.starts_with("A ") && l.contains("a1, b*")),
+        "{text}"
+    );
+}

@@ -2,7 +2,7 @@
 //! points, chi-squared contribution and share of the degrees of freedom,
 //! for the HTML page and summary.md.
 
-use crate::audit::AuditResults;
+use crate::audit::{AuditResults, DatasetShare};
 use crate::report::format;
 use crate::report::tables::Table;
 
@@ -17,7 +17,11 @@ with their sigma: look at that data set's fit figure before quoting the shared p
 /// of the joint chi2, dof share and chi2 per dof share; one row per data
 /// set (no rows for a study of one data set).
 pub fn table(results: &AuditResults) -> Table {
-    let sigma = results.fit.sigma_given;
+    table_of(&results.datasets, results.fit.sigma_given)
+}
+
+/// [`table`] from the shares themselves (for `fitaudit fit`).
+pub fn table_of(shares: &[DatasetShare], sigma: bool) -> Table {
     Table {
         header: vec![
             "Data set".into(),
@@ -34,8 +38,7 @@ pub fn table(results: &AuditResults) -> Table {
             }
             .into(),
         ],
-        rows: results
-            .datasets
+        rows: shares
             .iter()
             .map(|d| {
                 let params = d

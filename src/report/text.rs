@@ -168,6 +168,40 @@ pub fn derived_table(fit: &FitResult, derived: &[crate::diagnostics::derived::De
     )
 }
 
+/// The data sets of a joint fit: points, parameters (shared ones starred),
+/// chi2 contribution, its share, dof share and chi2 per dof share; empty
+/// for one data set.
+pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool) -> String {
+    if shares.is_empty() {
+        return String::new();
+    }
+    let t = crate::report::datasets::table_of(shares, sigma_given);
+    // The formula is long and already printed by `check`: the terminal
+    // table leaves it out; headings start in lower case as in `fit_table`.
+    let without_formula = |r: &[String]| -> Vec<String> {
+        r.iter()
+            .enumerate()
+            .filter(|(j, _)| *j != 1)
+            .map(|(_, c)| c.clone())
+            .collect()
+    };
+    let header = without_formula(&t.header)
+        .into_iter()
+        .map(|h| {
+            let mut c = h.chars();
+            c.next()
+                .map(|f| f.to_lowercase().collect::<String>() + c.as_str())
+                .unwrap_or_default()
+        })
+        .collect();
+    let mut rows = vec![header];
+    rows.extend(t.rows.iter().map(|r| without_formula(r)));
+    format!(
+        "\n{}(one joint fit; * marks a shared parameter; the contributions add up to chi2, the dof shares to dof)\n",
+        columns(&rows, &[1, 3, 4, 5, 6])
+    )
+}
+
 /// One line per parameter: name, the interval to quote, status, first
 /// reason; led by a warning
 /// line when the multi-start search found a better minimum than the base fit.
