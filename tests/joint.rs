@@ -691,3 +691,49 @@ fn fit_prints_each_data_sets_share_and_carries_it_in_json() {
         "{text}"
     );
 }
+
+#[test]
+fn the_residual_bootstrap_resamples_each_data_sets_own_residuals() {
+    // Two constants, one per data set (no x columns, no shared parameter),
+    // sigma 1 stated for both, but data set `quiet` scatters by 0.1 and
+    // `loud` by 1. For y = mu the residual bootstrap's replicate is
+    // ybar + mean of n residuals drawn from the pool of r_i / sqrt(1 - 1/n)
+    // re-centred, so its standard deviation is sqrt(sum r_i^2 / (n (n - 1))),
+    // the standard error of a mean (Davison and Hinkley 1997, sec. 2.3
+    // and 6.2.3, leverage 1/n). Drawing from one pool of both data sets
+    // would give both the same spread.
+    let w = [0.9, -1.3, 0.4, 1.6, -0.2, -0.8, 1.1, -1.7, 0.6, -0.5, 1.2, -1.3];
+    let quiet: Vec<f64> = w.iter().map(|v| 5.0 + 0.1 * v).collect();
+    let loud: Vec<f64> = w[..10].iter().rev().map(|v| 3.0 + 1.0 * v).collect();
+    let col = |ys: &[f64]| {
+        let rows: Vec<Vec<f64>> = ys.iter().map(|&y| vec![y]).collect();
+        csv("y", &rows)
+    };
+    let study = "[[datasets]]\nname = \"quiet\"\nfile = \"q.csv\"\nx = []\ny = \"y\"\nsigma = 1\nformula = \"mu1\"\n\n\
+                 [[datasets]]\nname = \"loud\"\nfile = \"l.csv\"\nx = []\ny = \"y\"\nsigma = 1\nformula = \"mu2\"\n\n\
+                 [parameters]\nmu1 = { start = 4 }\nmu2 = { start = 2 }\n\n\
+                 [audit]\nseed = 11\nbootstrap = { scheme = \"residual\", replicates = 2000 }\n";
+    let dir = folder(&[("study.toml", study), ("q.csv", &col(&quiet)), ("l.csv", &col(&loud))]);
+    let s = load(dir.path(), "study.toml");
+    let f = fit::fit(&s.problem(), &s.dataset).unwrap();
+    let input = audit::input_from_study(&s);
+    let ctx = fitaudit::diagnostics::Fitted {
+        problem: input.problem(),
+        data: &s.dataset,
+        fit: &f,
+        settings: &s.audit,
+    };
+    let b = bootstrap::run(&ctx, &NoProgress);
+    let se_mean = |ys: &[f64]| {
+        let n = ys.len() as f64;
+        let m = ys.iter().sum::<f64>() / n;
+        (ys.iter().map(|y| (y - m).powi(2)).sum::<f64>() / (n * (n - 1.0))).sqrt()
+    };
+    for (j, ys) in [(0, &quiet), (1, &loud)] {
+        let want = se_mean(ys);
+        let got = b.parameters[j].std;
+        // 2000 replicates: the SD of an SD estimate is about 1/sqrt(2B) = 1.6 %.
+        assert!((got / want - 1.0).abs() < 0.06, "{}: {got} vs {want}", b.parameters[j].name);
+    }
+    assert!(b.parameters[1].std > 5.0 * b.parameters[0].std);
+}

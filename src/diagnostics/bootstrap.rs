@@ -17,6 +17,13 @@
 //!   multipliers (`-(sqrt 5 - 1)/2` with probability `(sqrt 5 + 1)/(2 sqrt 5)`,
 //!   else `(sqrt 5 + 1)/2`; mean 0, variance 1, third moment 1).
 //!
+//! With several data sets (a study of `[[datasets]]`, see
+//! [`crate::data::Dataset::groups`]) the case and residual schemes are
+//! stratified: each data set's points are drawn from that data set only,
+//! and each point's residual from its own data set's pool (re-centred on
+//! that data set's mean), so a resample keeps every data set's size and
+//! never mixes them ([`case_draw`], [`strata`]).
+//!
 //! A point with leverage 1 (to 1e-10) has no residual information: it is
 //! left out of the residual pool and gets a zero wild residual. Without
 //! sigma in the data every sigma is 1 (the residuals are then raw).
