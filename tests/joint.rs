@@ -713,7 +713,11 @@ fn the_residual_bootstrap_resamples_each_data_sets_own_residuals() {
                  [[datasets]]\nname = \"loud\"\nfile = \"l.csv\"\nx = []\ny = \"y\"\nsigma = 1\nformula = \"mu2\"\n\n\
                  [parameters]\nmu1 = { start = 4 }\nmu2 = { start = 2 }\n\n\
                  [audit]\nseed = 11\nbootstrap = { scheme = \"residual\", replicates = 2000 }\n";
-    let dir = folder(&[("study.toml", study), ("q.csv", &col(&quiet)), ("l.csv", &col(&loud))]);
+    let dir = folder(&[
+        ("study.toml", study),
+        ("q.csv", &col(&quiet)),
+        ("l.csv", &col(&loud)),
+    ]);
     let s = load(dir.path(), "study.toml");
     let f = fit::fit(&s.problem(), &s.dataset).unwrap();
     let input = audit::input_from_study(&s);
@@ -733,7 +737,11 @@ fn the_residual_bootstrap_resamples_each_data_sets_own_residuals() {
         let want = se_mean(ys);
         let got = b.parameters[j].std;
         // 2000 replicates: the SD of an SD estimate is about 1/sqrt(2B) = 1.6 %.
-        assert!((got / want - 1.0).abs() < 0.06, "{}: {got} vs {want}", b.parameters[j].name);
+        assert!(
+            (got / want - 1.0).abs() < 0.06,
+            "{}: {got} vs {want}",
+            b.parameters[j].name
+        );
     }
     assert!(b.parameters[1].std > 5.0 * b.parameters[0].std);
 }
