@@ -774,6 +774,27 @@ fn cases() -> Vec<Case> {
             expect: &["`inverse[0]`", "single data set"],
         },
         Case {
+            name: "joint: x header that is not a name, in a data set",
+            study: joint("x = \"t\"", 0, "x = \"t (s)\""),
+            csv: csv_with(|l| l[0] = l[0].replacen("t,", "t (s),", 1)),
+            args: AUDIT,
+            code: 2,
+            expect: &[
+                "`datasets[0].x`",
+                "`t (s)`",
+                "columns = { t = \"t (s)\" }",
+                "in datasets[0]",
+            ],
+        },
+        Case {
+            name: "joint: alias that is not a name, in a data set",
+            study: joint("sigma = \"u\"", 0, "sigma = \"u\"\ncolumns = { 1u = \"u\" }"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[0].columns.1u`", "alias"],
+        },
+        Case {
             name: "joint: the base joint study fits",
             study: Some(JOINT.to_string()),
             csv: None,
