@@ -41,7 +41,8 @@ pub fn classify_error(err: &(dyn std::error::Error + 'static)) -> u8 {
                 | B::EmptyFolder(_)
                 | B::Study(_)
                 | B::Audit(_)
-                | B::Output(_) => return 2,
+                | B::Output(_)
+                | B::Io { .. } => return 2,
                 B::Report(crate::report::ReportError::Output(_)) => return 2,
                 _ => {}
             }

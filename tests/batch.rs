@@ -24,7 +24,11 @@ fn studies(dir: &Path) -> Vec<PathBuf> {
     }
     let broken = std::fs::read_to_string(dir.join("cooling.toml")).unwrap() + "\nbogus_key = 1\n";
     std::fs::write(dir.join("broken.toml"), broken).unwrap();
-    vec![dir.join("cooling.toml"), dir.join("broken.toml"), dir.join("vibration.toml")]
+    vec![
+        dir.join("cooling.toml"),
+        dir.join("broken.toml"),
+        dir.join("vibration.toml"),
+    ]
 }
 
 const FAST: [&str; 5] = ["--replicates", "30", "--starts", "16", "--quiet"];
@@ -82,12 +86,32 @@ fn a_failing_study_gets_its_row_the_others_run_and_the_exit_status_is_the_graves
     for row in [&rows[0], &rows[2]] {
         let name = row["name"].as_str().unwrap();
         let r = json(&out.join(name).join("results.json"));
-        let count = |s: &str| r["verdicts"].as_array().unwrap().iter().filter(|v| v["status"] == s).count();
+        let count = |s: &str| {
+            r["verdicts"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .filter(|v| v["status"] == s)
+                .count()
+        };
         assert_eq!(row["holds"].as_u64().unwrap() as usize, count("holds"), "{name}");
-        assert_eq!(row["doubtful"].as_u64().unwrap() as usize, count("doubtful"), "{name}");
+        assert_eq!(
+            row["doubtful"].as_u64().unwrap() as usize,
+            count("doubtful"),
+            "{name}"
+        );
         assert_eq!(row["fails"].as_u64().unwrap() as usize, count("fails"), "{name}");
-        let free = r["fit"]["parameters"].as_array().unwrap().iter().filter(|p| p["fixed"] == false).count();
-        assert_eq!(count("holds") + count("doubtful") + count("fails"), free, "{name}: one verdict per free parameter");
+        let free = r["fit"]["parameters"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|p| p["fixed"] == false)
+            .count();
+        assert_eq!(
+            count("holds") + count("doubtful") + count("fails"),
+            free,
+            "{name}: one verdict per free parameter"
+        );
         assert_eq!(row["report"], format!("{name}/report.html"));
         assert!(out.join(name).join("report.html").is_file());
         if row["rebased"] == true {
@@ -107,9 +131,24 @@ fn a_failing_study_gets_its_row_the_others_run_and_the_exit_status_is_the_graves
     // --strict, 0.
     let two = [paths[0].clone(), paths[2].clone()];
     let out2 = dir.path().join("batch2");
-    let o = fitaudit().arg("audit").args(&two).args(FAST).arg("--strict").arg("--out").arg(&out2).output().unwrap();
+    let o = fitaudit()
+        .arg("audit")
+        .args(&two)
+        .args(FAST)
+        .arg("--strict")
+        .arg("--out")
+        .arg(&out2)
+        .output()
+        .unwrap();
     assert_eq!(o.status.code(), Some(3));
-    let o = fitaudit().arg("audit").args(&two).args(FAST).arg("--out").arg(&out2).output().unwrap();
+    let o = fitaudit()
+        .arg("audit")
+        .args(&two)
+        .args(FAST)
+        .arg("--out")
+        .arg(&out2)
+        .output()
+        .unwrap();
     assert_eq!(o.status.code(), Some(0));
 }
 
@@ -129,13 +168,23 @@ fn a_folder_is_a_batch_of_its_study_files_in_name_order() {
         .unwrap();
     assert_eq!(o.status.code(), Some(2));
     let index = json(&out.join("index.json"));
-    let names: Vec<&str> = index["studies"].as_array().unwrap().iter().map(|r| r["name"].as_str().unwrap()).collect();
+    let names: Vec<&str> = index["studies"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| r["name"].as_str().unwrap())
+        .collect();
     assert_eq!(names, ["broken", "cooling", "vibration"]);
     assert_eq!(paths.len(), 3);
     // An empty folder is bad input.
     let empty = dir.path().join("empty");
     std::fs::create_dir(&empty).unwrap();
-    let o = fitaudit().arg("audit").arg(&empty).arg("--quiet").output().unwrap();
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&empty)
+        .arg("--quiet")
+        .output()
+        .unwrap();
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("holds no study file"));
 }
@@ -145,7 +194,15 @@ fn a_sharded_batch_merges_into_the_batch_run() {
     let dir = tempfile::tempdir().unwrap();
     let paths = studies(dir.path());
     let run = dir.path().join("batch");
-    let o = fitaudit().arg("audit").args(&paths).args(FAST).arg("--strict").arg("--out").arg(&run).output().unwrap();
+    let o = fitaudit()
+        .arg("audit")
+        .args(&paths)
+        .args(FAST)
+        .arg("--strict")
+        .arg("--out")
+        .arg(&run)
+        .output()
+        .unwrap();
     assert_eq!(o.status.code(), Some(2));
     // N = 2 deals the three studies out whole; N = 5 slices each one's work.
     for n in [2usize, 5] {
@@ -165,7 +222,14 @@ fn a_sharded_batch_merges_into_the_batch_run() {
             parts.push(p);
         }
         let merged = dir.path().join(format!("merged-{n}"));
-        let o = fitaudit().arg("merge").args(&parts).arg("--out").arg(&merged).arg("--quiet").output().unwrap();
+        let o = fitaudit()
+            .arg("merge")
+            .args(&parts)
+            .arg("--out")
+            .arg(&merged)
+            .arg("--quiet")
+            .output()
+            .unwrap();
         assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
         assert_eq!(
             rows_without_dates(json(&merged.join("index.json"))),

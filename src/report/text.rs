@@ -260,55 +260,6 @@ pub fn catalogue_table(functions: &[FunctionInfo], constants: &[(&str, f64)]) ->
     out
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn catalogue_lists_functions_then_constants() {
-        let entries = [
-            FunctionInfo {
-                name: "exp",
-                arity: 1,
-                description: "exponential",
-            },
-            FunctionInfo {
-                name: "atan2",
-                arity: 2,
-                description: "angle of (x, y)",
-            },
-        ];
-        let t = catalogue_table(&entries, &[("pi", std::f64::consts::PI)]);
-        assert_eq!(
-            t,
-            "Functions:\n  exp(x)       exponential\n  atan2(x, y)  angle of (x, y)\n\n\
-             Constants:\n  pi  3.141592653589793\n"
-        );
-        assert_eq!(
-            catalogue_table(&[], &[]),
-            "No functions or constants are known to this build.\n"
-        );
-        // The language's own catalogue: exp is there, and pi and e with their
-        // values (mathematical constants to 16 digits).
-        let real = models_table();
-        assert!(real.lines().any(|l| l.starts_with("  exp(x) ")), "{real}");
-        assert!(real.lines().any(|l| l == "  pi  3.141592653589793"), "{real}");
-        assert!(
-            real.lines().any(|l| l.trim_end() == "  e   2.718281828459045"),
-            "{real}"
-        );
-    }
-
-    #[test]
-    fn columns_align_by_characters() {
-        let rows = vec![
-            vec!["\u{3c4}".to_string(), "1.5".into()],
-            vec!["tau".to_string(), "10.25".into()],
-        ];
-        assert_eq!(columns(&rows, &[1]), "\u{3c4}      1.5\ntau  10.25\n");
-    }
-}
-
 /// What `fitaudit audit` prints after a batch: one line per study.
 pub fn index_lines(index: &crate::batch::BatchIndex) -> String {
     let mut out = String::new();
@@ -357,4 +308,53 @@ pub fn part_lines(part: &crate::batch::PartFile) -> String {
         let _ = writeln!(out, "  {:<14} {what}", s.name);
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn catalogue_lists_functions_then_constants() {
+        let entries = [
+            FunctionInfo {
+                name: "exp",
+                arity: 1,
+                description: "exponential",
+            },
+            FunctionInfo {
+                name: "atan2",
+                arity: 2,
+                description: "angle of (x, y)",
+            },
+        ];
+        let t = catalogue_table(&entries, &[("pi", std::f64::consts::PI)]);
+        assert_eq!(
+            t,
+            "Functions:\n  exp(x)       exponential\n  atan2(x, y)  angle of (x, y)\n\n\
+             Constants:\n  pi  3.141592653589793\n"
+        );
+        assert_eq!(
+            catalogue_table(&[], &[]),
+            "No functions or constants are known to this build.\n"
+        );
+        // The language's own catalogue: exp is there, and pi and e with their
+        // values (mathematical constants to 16 digits).
+        let real = models_table();
+        assert!(real.lines().any(|l| l.starts_with("  exp(x) ")), "{real}");
+        assert!(real.lines().any(|l| l == "  pi  3.141592653589793"), "{real}");
+        assert!(
+            real.lines().any(|l| l.trim_end() == "  e   2.718281828459045"),
+            "{real}"
+        );
+    }
+
+    #[test]
+    fn columns_align_by_characters() {
+        let rows = vec![
+            vec!["\u{3c4}".to_string(), "1.5".into()],
+            vec!["tau".to_string(), "10.25".into()],
+        ];
+        assert_eq!(columns(&rows, &[1]), "\u{3c4}      1.5\ntau  10.25\n");
+    }
 }
