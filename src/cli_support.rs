@@ -115,6 +115,7 @@ struct LineState {
     done: u64,
     started: Instant,
     last: Instant,
+    printed: bool,
 }
 
 /// Interval of the progress lines when stderr is not a terminal.
@@ -129,6 +130,7 @@ impl TerminalProgress {
     /// A progress reporter: silent when `quiet`, a bar on a terminal,
     /// otherwise a line every `interval` while a stage runs.
     pub fn with_interval(quiet: bool, interval: Duration) -> Self {
+        // An interval of zero prints a line at every update.
         let mode = if quiet {
             Mode::Off
         } else if std::io::stderr().is_terminal() {
@@ -170,6 +172,7 @@ impl Progress for TerminalProgress {
                         done: 0,
                         started: now,
                         last: now,
+                        printed: false,
                     });
                 }
             }
@@ -197,6 +200,7 @@ impl Progress for TerminalProgress {
                         let now = Instant::now();
                         if now.duration_since(st.last) >= interval {
                             st.last = now;
+                            st.printed = true;
                             eprintln!(
                                 "{}",
                                 progress_line(&st.stage, st.done, st.total, now - st.started)
@@ -219,7 +223,7 @@ impl Progress for TerminalProgress {
         if let Ok(mut slot) = self.lines.lock() {
             if let Some(st) = slot.take() {
                 // A stage that logged a line closes with its final count.
-                if st.last != st.started {
+                if st.printed {
                     eprintln!(
                         "{}",
                         progress_line(&st.stage, st.done, st.total, st.started.elapsed())
@@ -324,6 +328,19 @@ pub fn demo_summary(summary: &crate::demo::DemoSummary) -> String {
 #[cfg(test)]
 mod tests {
     use super::folder_name;
+
+    #[test]
+    fn progress_lines_give_count_share_and_elapsed_time() {
+        // 1/3 = 33.3 %; 75 s = 1 min 15 s (arithmetic identities).
+        assert_eq!(
+            super::progress_line("bootstrap", 1, 3, std::time::Duration::from_millis(75_400)),
+            "progress: bootstrap 1/3 (33.3 %), 1m 15s elapsed"
+        );
+        assert_eq!(
+            super::progress_line("profile", 0, 0, std::time::Duration::ZERO),
+            "progress: profile 0/0 (100.0 %), 0s elapsed"
+        );
+    }
 
     #[test]
     fn folder_names_cannot_escape() {

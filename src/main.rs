@@ -98,8 +98,9 @@ struct AuditArgs {
     /// the studies) and write a part folder for `fitaudit merge`.
     #[arg(long, value_name = "K/N")]
     shard: Option<fitaudit::shard::Slice>,
-    /// Seconds between progress lines when stderr is not a terminal.
-    #[arg(long, default_value_t = 30.0, value_name = "SECONDS")]
+    /// Seconds between progress lines when stderr is not a terminal (0:
+    /// a line at every update).
+    #[arg(long, default_value_t = 30.0, value_name = "SECONDS", value_parser = parse_seconds)]
     progress_interval: f64,
     /// Comma-separated diagnostics to run: bootstrap, monte-carlo, profile,
     /// contours, multistart [default: all].
@@ -161,6 +162,13 @@ fn parse_positive(s: &str) -> Result<usize, String> {
         Ok(0) => Err("must be at least 1".into()),
         Ok(n) => Ok(n),
         Err(_) => Err(format!("'{s}' is not a positive whole number")),
+    }
+}
+
+fn parse_seconds(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if v.is_finite() && (0.0..=1e6).contains(&v) => Ok(v),
+        _ => Err(format!("'{s}' is not a number of seconds from 0 to 1e6")),
     }
 }
 
@@ -259,7 +267,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
     };
     let is_batch = batch::is_batch(&args.studies);
     let studies = batch::expand(&args.studies)?;
-    let interval = std::time::Duration::from_secs_f64(args.progress_interval.max(0.1));
+    let interval = std::time::Duration::from_secs_f64(args.progress_interval);
     if !is_batch && args.shard.is_none() {
         let study = overrides.load(&studies[0])?;
         let out = args

@@ -288,6 +288,44 @@ mod tests {
     }
 
     #[test]
+    fn part_encoding_keeps_every_f64_bit_for_bit() {
+        // CBOR (RFC 8949) stores binary64 floats; NaN and the infinities,
+        // which JSON cannot hold, come back too.
+        let values = vec![
+            0.1 + 0.2,
+            -0.0,
+            f64::MIN_POSITIVE,
+            5e-324,
+            1.0e308,
+            std::f64::consts::PI,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+        ];
+        let p = Pieces::new(
+            9,
+            0..2,
+            vec![
+                StoredOutcome::Ok(values.clone()),
+                StoredOutcome::Failed("non-finite".into()),
+            ],
+        );
+        let nan = Pieces::new(1, 0..1, vec![f64::NAN]);
+        let mut bytes = Vec::new();
+        ciborium::into_writer(&(p.clone(), nan), &mut bytes).unwrap();
+        let (back, nan_back): (Pieces<StoredOutcome>, Pieces<f64>) =
+            ciborium::from_reader(bytes.as_slice()).unwrap();
+        let StoredOutcome::Ok(v) = &back.items[0] else {
+            panic!("outcome kind lost")
+        };
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(v), bits(&values));
+        assert_eq!(back.items[1], StoredOutcome::Failed("non-finite".into()));
+        assert!(nan_back.items[0].is_nan());
+        assert_eq!(back.items[1].clone().load(), Ok(Outcome::Failed("non-finite")));
+        assert!(StoredOutcome::Failed("other".into()).load().is_err());
+    }
+
+    #[test]
     fn join_refuses_gaps_and_overlaps() {
         let p = |s: usize, v: Vec<u8>| Pieces {
             total: 4,

@@ -258,3 +258,60 @@ fn bad_shard_arguments_are_usage_errors() {
         assert!(String::from_utf8_lossy(&o.stderr).contains("K/N"), "{bad}");
     }
 }
+
+#[test]
+fn a_shard_logs_progress_lines_when_stderr_is_not_a_terminal() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = write_study(dir.path(), "decay", "");
+    // stderr is a pipe here; an interval of 0 logs every update.
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args([
+            "--only",
+            "bootstrap",
+            "--shard",
+            "2/3",
+            "--progress-interval",
+            "0",
+            "--out",
+        ])
+        .arg(dir.path().join("p"))
+        .output()
+        .unwrap();
+    assert!(o.status.success());
+    let err = String::from_utf8_lossy(&o.stderr);
+    // Shard 2/3 of 45 replicates holds replicates 15..30: 15 of them, and
+    // the closing line reports all 15 (100.0 %).
+    assert!(
+        err.contains("progress: bootstrap (residual) 15/15 (100.0 %)"),
+        "{err}"
+    );
+    assert!(
+        !err.contains('\u{1b}'),
+        "no terminal control codes in a log: {err}"
+    );
+    // --quiet silences it, and a bad interval is a usage error.
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args([
+            "--only",
+            "bootstrap",
+            "--quiet",
+            "--progress-interval",
+            "0",
+            "--out",
+        ])
+        .arg(dir.path().join("q"))
+        .output()
+        .unwrap();
+    assert!(o.status.success() && o.stderr.is_empty());
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args(["--progress-interval", "nan"])
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+}
