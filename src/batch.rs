@@ -48,9 +48,6 @@ pub enum BatchError {
     /// Parts that do not belong together, or a missing or duplicated part.
     #[error(transparent)]
     Parts(#[from] PartsError),
-    /// A study path that is neither a study file nor a folder of them.
-    #[error("{0}: no such study file or folder")]
-    NoStudy(PathBuf),
     /// A folder without study files.
     #[error("folder {0} holds no study file (*.toml)")]
     EmptyFolder(PathBuf),
@@ -125,8 +122,8 @@ impl Overrides {
     }
 }
 
-/// The study files named: files as given, folders replaced by their
-/// `*.toml` files in name order.
+/// The study files named: files as given (a missing one is kept, to fail
+/// as it loads), folders replaced by their `*.toml` files in name order.
 pub fn expand(paths: &[PathBuf]) -> Result<Vec<PathBuf>, BatchError> {
     let mut out = Vec::new();
     for p in paths {
@@ -144,10 +141,10 @@ pub fn expand(paths: &[PathBuf]) -> Result<Vec<PathBuf>, BatchError> {
                 return Err(BatchError::EmptyFolder(p.clone()));
             }
             out.extend(found);
-        } else if p.exists() {
-            out.push(p.clone());
         } else {
-            return Err(BatchError::NoStudy(p.clone()));
+            // A missing file fails to load like any bad study: in a batch
+            // it gets its row with the error.
+            out.push(p.clone());
         }
     }
     Ok(out)

@@ -36,13 +36,9 @@ pub fn classify_error(err: &(dyn std::error::Error + 'static)) -> u8 {
         if let Some(b) = cause.downcast_ref::<crate::batch::BatchError>() {
             use crate::batch::BatchError as B;
             match b {
-                B::Parts(_)
-                | B::NoStudy(_)
-                | B::EmptyFolder(_)
-                | B::Study(_)
-                | B::Audit(_)
-                | B::Output(_)
-                | B::Io { .. } => return 2,
+                B::Parts(_) | B::EmptyFolder(_) | B::Study(_) | B::Audit(_) | B::Output(_) | B::Io { .. } => {
+                    return 2
+                }
                 B::Report(crate::report::ReportError::Output(_)) => return 2,
                 _ => {}
             }

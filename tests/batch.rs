@@ -129,6 +129,25 @@ fn a_failing_study_gets_its_row_the_others_run_and_the_exit_status_is_the_graves
 
     // Without the broken study, the gravest is --strict's 3; without
     // --strict, 0.
+    // A missing study file is a study that fails to load: its row says so.
+    let with_missing = [paths[0].clone(), dir.path().join("absent.toml")];
+    let out3 = dir.path().join("batch3");
+    let o = fitaudit()
+        .arg("audit")
+        .args(&with_missing)
+        .args(["--only", "bootstrap", "--replicates", "20", "--quiet", "--out"])
+        .arg(&out3)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    let index = json(&out3.join("index.json"));
+    assert_eq!(index["studies"][0]["status"], "audited");
+    assert_eq!(index["studies"][1]["status"], "error");
+    assert!(index["studies"][1]["error"]
+        .as_str()
+        .unwrap()
+        .contains("absent.toml"));
+
     let two = [paths[0].clone(), paths[2].clone()];
     let out2 = dir.path().join("batch2");
     let o = fitaudit()
