@@ -52,6 +52,14 @@ pub enum AuditError {
         /// Why.
         source: fit::FitError,
     },
+    /// The slices of a study's work do not join (a merge of foreign parts).
+    #[error("study {study}: the parts do not join: {why}")]
+    Parts {
+        /// Study name.
+        study: String,
+        /// Why.
+        why: String,
+    },
 }
 
 /// Identification of the study in the record.
@@ -241,32 +249,49 @@ impl AuditInput<'_> {
 /// minimum and every other diagnostic and the verdicts run at it: `fit` is
 /// then that fit, `start_fit` the fit from the study's start and `rebased`
 /// true.
+///
+/// This is the merge of one part: [`compute`] of the whole slice, then
+/// [`summarise`], the same two steps a sharded run takes on several machines.
 pub fn run(
     input: &AuditInput,
     options: &AuditOptions,
     progress: &dyn Progress,
 ) -> Result<AuditResults, AuditError> {
-    let problem = input.problem();
-    let base = fit::fit(&problem, input.data).map_err(|source| AuditError::BaseFit {
+    let work = compute(input, options, crate::shard::Slice::whole(), progress)?;
+    let joined = crate::shard::Work::join(vec![work]).map_err(|why| AuditError::Parts {
+        study: input.info.name.clone(),
+        why,
+    })?;
+    summarise(input, options, joined)
+}
+
+/// The fit the battery runs at, with the fit from the study's start when
+/// the audit was re-based (deterministic: the same in every shard).
+struct Settled<'a> {
+    audited: FitResult,
+    start_fit: Option<FitResult>,
+    problem: Problem<'a>,
+    multistart: Option<MultistartResult>,
+}
+
+fn base_fit(input: &AuditInput) -> Result<FitResult, AuditError> {
+    fit::fit(&input.problem(), input.data).map_err(|source| AuditError::BaseFit {
         study: input.info.name.clone(),
         source,
-    })?;
-    let wants = |d: Diagnostic| options.only.contains(&d);
+    })
+}
 
-    let mut multistart = wants(Diagnostic::Multistart).then(|| {
-        let ctx = Fitted {
-            problem: input.problem(),
-            data: input.data,
-            fit: &base,
-            settings: &input.settings,
-        };
-        diagnostics::multistart::run(&ctx, progress)
-    });
+fn settle<'a>(
+    input: &'a AuditInput,
+    base: FitResult,
+    mut multistart: Option<MultistartResult>,
+) -> Settled<'a> {
+    let problem = input.problem();
     let rebased_fit = match &multistart {
         Some(ms) if input.settings.multistart.rebase && !ms.base_is_best => rebase(&problem, input.data, ms),
         _ => None,
     };
-    let (audited, start_fit, problem) = match rebased_fit {
+    match rebased_fit {
         Some(best) => {
             if let Some(ms) = multistart.as_mut() {
                 ms.audited_is_best = true;
@@ -275,22 +300,127 @@ pub fn run(
             for (spec, p) in problem.params.iter_mut().zip(&best.parameters) {
                 spec.start = p.value;
             }
-            (best, Some(base), problem)
+            Settled {
+                audited: best,
+                start_fit: Some(base),
+                problem,
+                multistart,
+            }
         }
-        None => (base, None, problem),
+        None => Settled {
+            audited: base,
+            start_fit: None,
+            problem,
+            multistart,
+        },
+    }
+}
+
+/// Computes slice `slice` of the study's work and returns its raw
+/// outcomes (see [`crate::shard`]): the base fit and the multi-start
+/// search in full, then the slice's bootstrap replicates, Monte Carlo
+/// trials, profiles and contour maps.
+pub fn compute(
+    input: &AuditInput,
+    options: &AuditOptions,
+    slice: crate::shard::Slice,
+    progress: &dyn Progress,
+) -> Result<crate::shard::Work, AuditError> {
+    use crate::shard::{Pieces, StoredOutcome};
+    let base = base_fit(input)?;
+    let wants = |d: Diagnostic| options.only.contains(&d);
+    let multistart = wants(Diagnostic::Multistart).then(|| {
+        let ctx = Fitted {
+            problem: input.problem(),
+            data: input.data,
+            fit: &base,
+            settings: &input.settings,
+        };
+        diagnostics::multistart::run(&ctx, progress)
+    });
+    let raw_multistart = multistart.clone();
+    let settled = settle(input, base, multistart);
+    let ctx = Fitted {
+        problem: settled.problem,
+        data: input.data,
+        fit: &settled.audited,
+        settings: &input.settings,
     };
+    let store =
+        |v: Vec<diagnostics::resample::Outcome>| v.iter().map(StoredOutcome::store).collect::<Vec<_>>();
+    let bootstrap = wants(Diagnostic::Bootstrap).then(|| {
+        let s = &input.settings.bootstrap;
+        let range = slice.range(s.replicates);
+        progress.start(
+            &format!("bootstrap ({})", diagnostics::bootstrap::scheme_name(s.scheme)),
+            range.len() as u64,
+        );
+        let o = diagnostics::bootstrap::replicates(&ctx, s, range.clone(), progress);
+        progress.finish();
+        Pieces::new(s.replicates, range, store(o))
+    });
+    let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| {
+        let s = &input.settings.monte_carlo;
+        let range = slice.range(s.replicates);
+        let o = diagnostics::monte_carlo::outcomes(&ctx, s, range.clone(), progress);
+        // An adaptive run of the whole range may stop early: the list is then shorter.
+        let total = if slice.is_whole() { o.len() } else { s.replicates };
+        Pieces::new(total, range, store(o))
+    });
+    let profile = wants(Diagnostic::Profile).then(|| {
+        let total = diagnostics::profile::free_parameters(&ctx).len();
+        let range = slice.range(total);
+        Pieces::new(
+            total,
+            range.clone(),
+            diagnostics::profile::profiles(&ctx, range, progress),
+        )
+    });
+    let contours = wants(Diagnostic::Contours).then(|| {
+        let total = diagnostics::contour::choose_pairs(&ctx).len();
+        let range = slice.range(total);
+        Pieces::new(
+            total,
+            range.clone(),
+            diagnostics::contour::maps(&ctx, range, progress),
+        )
+    });
+    Ok(crate::shard::Work {
+        multistart: raw_multistart,
+        bootstrap,
+        monte_carlo,
+        profile,
+        contours,
+    })
+}
+
+/// The pure summary step: the whole record from the study's work joined
+/// from all its slices (one slice on one machine). The base fit and the
+/// re-basing are recomputed (deterministic); every statistic reads the
+/// joined outcomes in index order.
+pub fn summarise(
+    input: &AuditInput,
+    options: &AuditOptions,
+    work: crate::shard::Joined,
+) -> Result<AuditResults, AuditError> {
+    let base = base_fit(input)?;
+    let settled = settle(input, base, work.multistart);
+    let (audited, start_fit, multistart) = (settled.audited, settled.start_fit, settled.multistart);
     let rebased = start_fit.is_some();
     let ctx = Fitted {
-        problem,
+        problem: settled.problem,
         data: input.data,
         fit: &audited,
         settings: &input.settings,
     };
-
-    let bootstrap = wants(Diagnostic::Bootstrap).then(|| diagnostics::bootstrap::run(&ctx, progress));
-    let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| diagnostics::monte_carlo::run(&ctx, progress));
-    let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
-    let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
+    let bootstrap = work
+        .bootstrap
+        .map(|o| diagnostics::bootstrap::summarise(&ctx, &input.settings.bootstrap, true, o));
+    let monte_carlo = work
+        .monte_carlo
+        .map(|o| diagnostics::monte_carlo::summarise(&ctx, &input.settings.monte_carlo, o));
+    let profile = work.profile.map(|p| diagnostics::profile::assemble(&ctx, p));
+    let contours = work.contours;
 
     let verdict_inputs = VerdictInputs {
         fit: &audited,

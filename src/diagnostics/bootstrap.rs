@@ -54,8 +54,22 @@ pub fn run_with(
     let b = settings.replicates;
     progress.start(&format!("bootstrap ({})", scheme_name(settings.scheme)), b as u64);
     let outcomes = replicates(ctx, settings, 0..b, progress);
-    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     progress.finish();
+    summarise(ctx, settings, bca, outcomes)
+}
+
+/// The pure summary step: the result from the outcomes of every replicate
+/// `0..settings.replicates` in replicate order (from one run, or joined
+/// from the slices of several shards: the same outcomes give the same
+/// result bit for bit). `bca` adds the linearised jackknife (no refits).
+pub fn summarise(
+    ctx: &Fitted,
+    settings: &BootstrapSettings,
+    bca: bool,
+    outcomes: Vec<Outcome>,
+) -> ResampleResult {
+    let b = settings.replicates;
+    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     resample::assemble(
         ctx,
         Assembly {

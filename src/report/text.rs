@@ -294,6 +294,56 @@ pub fn catalogue_table(functions: &[FunctionInfo], constants: &[(&str, f64)]) ->
     out
 }
 
+/// What `fitaudit audit` prints after a batch: one line per study.
+pub fn index_lines(index: &crate::batch::BatchIndex) -> String {
+    let mut out = String::new();
+    for r in &index.studies {
+        match &r.error {
+            Some(e) => {
+                let _ = writeln!(out, "  {:<14} error (exit status {}): {e}", r.name, r.exit_status);
+            }
+            None => {
+                let notice = match (r.rebased, r.best_chi2) {
+                    (true, _) => "; the start reaches a local minimum: audited at the best minimum found",
+                    (false, Some(_)) => "; a lower minimum than the start's was found but not audited",
+                    _ => "",
+                };
+                let _ = writeln!(
+                    out,
+                    "  {:<14} {} holds, {} doubtful, {} fails{notice}  -> {}",
+                    r.name,
+                    r.holds,
+                    r.doubtful,
+                    r.fails,
+                    r.report.as_deref().unwrap_or("")
+                );
+            }
+        }
+    }
+    let _ = writeln!(
+        out,
+        "exit status {} (the gravest of {} studies)",
+        index.exit_status,
+        index.studies.len()
+    );
+    out
+}
+
+/// What `fitaudit audit --shard` prints: which work the part holds.
+pub fn part_lines(part: &crate::batch::PartFile) -> String {
+    let mut out = String::new();
+    for s in &part.studies {
+        let what = match (&s.error, s.slice) {
+            (Some((e, _)), _) => format!("error: {e}"),
+            (None, Some(sl)) if sl.is_whole() => "whole study".to_string(),
+            (None, Some(sl)) => format!("slice {sl} of its work"),
+            (None, None) => "in another shard".to_string(),
+        };
+        let _ = writeln!(out, "  {:<14} {what}", s.name);
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
