@@ -261,3 +261,33 @@ fn residuals_without_sigma_are_standardised_by_s_and_say_so() {
     let texts = svg_texts(&f.get("fit.svg").unwrap().svg).join(" ");
     assert!(texts.contains("normalised residual"));
 }
+
+#[test]
+fn a_joint_study_has_a_fit_figure_per_data_set_on_its_own_points() {
+    let r = fixture::joint();
+    let f = build(&r);
+    let files = f.files();
+    assert!(files.contains(&"fit.svg"));
+    for (name, points) in [("early", 20usize), ("late", 16)] {
+        let file = format!("fit_{name}.svg");
+        let fig = f
+            .get(&file)
+            .unwrap_or_else(|| panic!("{file} missing: {files:?}"));
+        assert!(
+            fig.caption.starts_with(&format!("Data set {name} (")),
+            "{}",
+            fig.caption
+        );
+        let doc = roxmltree::Document::parse(&fig.svg).unwrap();
+        // One open circle per point in the data panel (error bars are
+        // lines), one filled circle per point in the residual panel, plus
+        // the legend's marker.
+        let circles = doc.descendants().filter(|n| n.has_tag_name("circle")).count();
+        assert_eq!(circles, 2 * points + 1, "{file}");
+        let texts = svg_texts(&fig.svg);
+        assert!(texts.iter().filter(|t| *t == "t_s").count() >= 2, "{texts:?}");
+    }
+    // The data sets' figures come right after the joint residual figures.
+    let at = |name: &str| files.iter().position(|f| *f == name).unwrap();
+    assert_eq!(at("fit_early.svg"), at("residuals_x.svg") + 1);
+}

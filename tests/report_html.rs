@@ -228,3 +228,43 @@ fn a_profile_below_the_base_fit_also_leads_and_skipped_pairs_are_listed() {
     assert!(all.contains("the base fit is not the minimum"));
     assert!(!s.contains("fig-contour_dT_tau"));
 }
+
+#[test]
+fn a_joint_study_has_the_data_set_table_and_a_figure_per_data_set() {
+    let r = fixture::joint();
+    let s = page(&r);
+    let doc = parse(&s).unwrap();
+    assert_self_contained(&s);
+    assert!(headings(&doc, "h3").iter().any(|h| h == "Data sets"));
+    let rows: Vec<Vec<String>> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("tr"))
+        .map(|tr| {
+            tr.children()
+                .filter(|c| c.is_element())
+                .map(|c| text_of(c).trim().to_string())
+                .collect()
+        })
+        .collect();
+    for d in &r.datasets {
+        let row = rows
+            .iter()
+            .find(|row| row[0] == d.name)
+            .unwrap_or_else(|| panic!("row {}", d.name));
+        // The numbers of the record, formatted as the table formats them.
+        assert_eq!(row[2], d.points.to_string());
+        assert_eq!(row[3], "T_env*, dT*, tau*");
+        assert_eq!(row[4], format::chi2(d.chi2));
+        assert_eq!(row[6], format::sig(d.dof_share, 4));
+    }
+    // The fixture's shares: 20 and 16 points, three parameters shared by
+    // both, so dof shares 18.5 and 14.5 (sum 33 = 36 - 3).
+    assert_eq!(
+        r.datasets[0].dof_share + r.datasets[1].dof_share,
+        r.fit.dof as f64
+    );
+    assert!(s.contains("2 data sets fitted jointly"));
+    for file in ["fit_early.svg", "fit_late.svg"] {
+        assert!(s.contains(file), "{file}");
+    }
+}

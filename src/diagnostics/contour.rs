@@ -246,12 +246,22 @@ pub fn choose_pairs(ctx: &Fitted) -> Vec<PairChoice> {
 
 /// Computes the contour maps.
 pub fn run(ctx: &Fitted, progress: &dyn Progress) -> Vec<ContourResult> {
+    maps(ctx, 0..choose_pairs(ctx).len(), progress)
+}
+
+/// The maps of pairs `items` (positions in [`choose_pairs`]), in that
+/// order. Each map (and each axis range) is computed on its own, so any
+/// split of the items gives the same maps, and the maps of all items in
+/// order are [`run`]'s result.
+pub fn maps(ctx: &Fitted, items: std::ops::Range<usize>, progress: &dyn Progress) -> Vec<ContourResult> {
     let probabilities = level_probabilities();
     let levels: Vec<f64> = probabilities.iter().map(|&p| level_for(ctx.fit, p)).collect();
     let l_max = levels.iter().copied().fold(0.0, f64::max);
     let scale = chi2_scale(ctx.fit);
     let n = ctx.settings.contours.grid.max(2);
-    let pairs = choose_pairs(ctx);
+    let all = choose_pairs(ctx);
+    let (lo, hi) = (items.start.min(all.len()), items.end.min(all.len()));
+    let pairs: Vec<PairChoice> = all.into_iter().skip(lo).take(hi.saturating_sub(lo)).collect();
 
     // Axis ranges, once per parameter involved.
     let needed: BTreeSet<usize> = pairs

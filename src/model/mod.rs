@@ -60,11 +60,13 @@ use std::fmt;
 
 mod catalogue;
 mod graph;
+pub mod joint;
 mod ops;
 mod parser;
 mod second;
 mod tape;
 
+pub use joint::{JointModel, JointPart};
 pub use parser::MAX_DEPTH;
 pub use second::{n_pairs, pair_index};
 

@@ -251,14 +251,24 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
 
     // Fit.
     let _ = writeln!(o, "<section id=\"fit\">\n<h2>{}</h2>", SECTIONS[1]);
-    let _ = writeln!(
-        o,
-        "<p>Model <code>{}</code> fitted to {} against {} by weighted least squares. Values are rounded \
-         at the second significant digit of their standard error.</p>",
-        escape(&results.study.formula),
-        escape(&results.data.y_name),
-        escape(&results.data.x_names.join(", "))
-    );
+    if results.datasets.is_empty() {
+        let _ = writeln!(
+            o,
+            "<p>Model <code>{}</code> fitted to {} against {} by weighted least squares. Values are rounded \
+             at the second significant digit of their standard error.</p>",
+            escape(&results.study.formula),
+            escape(&results.data.y_name),
+            escape(&results.data.x_names.join(", "))
+        );
+    } else {
+        let _ = writeln!(
+            o,
+            "<p>{} data sets fitted jointly by weighted least squares, each with its own formula, sharing \
+             the parameters they have in common (table \"Data sets\" under the goodness of fit). Values are \
+             rounded at the second significant digit of their standard error.</p>",
+            results.datasets.len()
+        );
+    }
     table(&mut o, &tables::fit_params(&results.fit), &[1, 2, 3], None);
     if !results.derived.is_empty() {
         o.push_str("<h3>Derived quantities</h3>\n");
@@ -285,6 +295,16 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     // Goodness of fit.
     let _ = writeln!(o, "<section id=\"goodness\">\n<h2>{}</h2>", SECTIONS[2]);
     pairs(&mut o, &tables::goodness(&results.fit), &[]);
+    if !results.datasets.is_empty() {
+        o.push_str("<h3>Data sets</h3>\n");
+        table(
+            &mut o,
+            &crate::report::datasets::table(results),
+            &[2, 4, 5, 6, 7],
+            Some("wide"),
+        );
+        let _ = writeln!(o, "<p>{}</p>", escape(crate::report::datasets::NOTE));
+    }
     o.push_str("</section>\n");
 
     // Interval comparison.

@@ -112,6 +112,11 @@ pub fn summary(results: &AuditResults) -> String {
     for line in tables::end_issue_words(f) {
         let _ = writeln!(o, "\nAt the end point: {}.", escape(&line));
     }
+    if !results.datasets.is_empty() {
+        o.push_str("\n## Data sets\n\n");
+        o.push_str(&table(&crate::report::datasets::table(results)));
+        let _ = writeln!(o, "\n{}", escape(crate::report::datasets::NOTE));
+    }
     if !results.derived.is_empty() {
         o.push_str("\n## Derived quantities\n\n");
         o.push_str(&table(&tables::derived(results)));

@@ -13,7 +13,8 @@
 //! | `bands.csv` | [`csv::BandsCsv`]: confidence and prediction bands on the curve grid (one x column) |
 //! | `replicates.csv` | [`csv::Replicates`]: on request, every replicate estimate |
 //!
-//! The terminal tables of the command line are in [`text`].
+//! The terminal tables of the command line are in [`text`]; the index of a
+//! batch (`index.html`, `index.json`) is in [`index`].
 
 use std::path::{Path, PathBuf};
 
@@ -21,10 +22,12 @@ use crate::audit::{AuditOptions, AuditResults};
 use crate::output::{OutputError, Staging};
 
 pub mod csv;
+pub mod datasets;
 pub mod figures;
 pub mod findings;
 pub mod format;
 pub mod html;
+pub mod index;
 pub mod json;
 pub mod markdown;
 pub mod nonlinearity;
@@ -98,6 +101,21 @@ pub fn write_report(
     let renderers = default_renderers(options);
     let refs: Vec<&dyn Renderer> = renderers.iter().map(|r| r.as_ref()).collect();
     write_with(results, &figures, out, &refs)
+}
+
+/// Every file [`write_report`] writes, as `(path relative to the report
+/// folder, contents)`, without touching the disk (a batch writes them
+/// under each study's subfolder of one staging folder).
+pub fn render_files(
+    results: &AuditResults,
+    options: &AuditOptions,
+) -> Result<Vec<(String, Vec<u8>)>, ReportError> {
+    let figures = figures::build(results)?;
+    let mut files = Vec::new();
+    for r in default_renderers(options) {
+        files.extend(r.render(results, &figures)?);
+    }
+    Ok(files)
 }
 
 /// Runs `renderers` and writes their files into `out` atomically: any error

@@ -168,6 +168,40 @@ pub fn derived_table(fit: &FitResult, derived: &[crate::diagnostics::derived::De
     )
 }
 
+/// The data sets of a joint fit: points, parameters (shared ones starred),
+/// chi2 contribution, its share, dof share and chi2 per dof share; empty
+/// for one data set.
+pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool) -> String {
+    if shares.is_empty() {
+        return String::new();
+    }
+    let t = crate::report::datasets::table_of(shares, sigma_given);
+    // The formula is long and already printed by `check`: the terminal
+    // table leaves it out; headings start in lower case as in `fit_table`.
+    let without_formula = |r: &[String]| -> Vec<String> {
+        r.iter()
+            .enumerate()
+            .filter(|(j, _)| *j != 1)
+            .map(|(_, c)| c.clone())
+            .collect()
+    };
+    let header = without_formula(&t.header)
+        .into_iter()
+        .map(|h| {
+            let mut c = h.chars();
+            c.next()
+                .map(|f| f.to_lowercase().collect::<String>() + c.as_str())
+                .unwrap_or_default()
+        })
+        .collect();
+    let mut rows = vec![header];
+    rows.extend(t.rows.iter().map(|r| without_formula(r)));
+    format!(
+        "\n{}(one joint fit; * marks a shared parameter; the contributions add up to chi2, the dof shares to dof)\n",
+        columns(&rows, &[1, 3, 4, 5, 6])
+    )
+}
+
 /// One line per parameter: name, the interval to quote, status, first
 /// reason; led by a warning
 /// line when the multi-start search found a better minimum than the base fit.
@@ -256,6 +290,56 @@ pub fn catalogue_table(functions: &[FunctionInfo], constants: &[(&str, f64)]) ->
             .collect();
         out.push_str("Constants:\n");
         out.push_str(&columns(&rows, &[]));
+    }
+    out
+}
+
+/// What `fitaudit audit` prints after a batch: one line per study.
+pub fn index_lines(index: &crate::batch::BatchIndex) -> String {
+    let mut out = String::new();
+    for r in &index.studies {
+        match &r.error {
+            Some(e) => {
+                let _ = writeln!(out, "  {:<14} error (exit status {}): {e}", r.name, r.exit_status);
+            }
+            None => {
+                let notice = match (r.rebased, r.best_chi2) {
+                    (true, _) => "; the start reaches a local minimum: audited at the best minimum found",
+                    (false, Some(_)) => "; a lower minimum than the start's was found but not audited",
+                    _ => "",
+                };
+                let _ = writeln!(
+                    out,
+                    "  {:<14} {} holds, {} doubtful, {} fails{notice}  -> {}",
+                    r.name,
+                    r.holds,
+                    r.doubtful,
+                    r.fails,
+                    r.report.as_deref().unwrap_or("")
+                );
+            }
+        }
+    }
+    let _ = writeln!(
+        out,
+        "exit status {} (the gravest of {} studies)",
+        index.exit_status,
+        index.studies.len()
+    );
+    out
+}
+
+/// What `fitaudit audit --shard` prints: which work the part holds.
+pub fn part_lines(part: &crate::batch::PartFile) -> String {
+    let mut out = String::new();
+    for s in &part.studies {
+        let what = match (&s.error, s.slice) {
+            (Some((e, _)), _) => format!("error: {e}"),
+            (None, Some(sl)) if sl.is_whole() => "whole study".to_string(),
+            (None, Some(sl)) => format!("slice {sl} of its work"),
+            (None, None) => "in another shard".to_string(),
+        };
+        let _ = writeln!(out, "  {:<14} {what}", s.name);
     }
     out
 }

@@ -23,10 +23,19 @@ pub struct StudySpec {
     /// Optional title shown in reports.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub title: Option<String>,
-    /// `[data]`: the data file and its columns.
+    /// `[data]`: the data file and its columns (absent, and empty, in a
+    /// study of several `[[datasets]]`).
+    #[serde(default)]
     pub data: DataSpec,
-    /// `[model]`: the formula.
+    /// `[model]`: the formula (absent, and empty, in a study of several
+    /// `[[datasets]]`).
+    #[serde(default)]
     pub model: ModelSpec,
+    /// `[[datasets]]`: several data sets fitted jointly, each with its own
+    /// file, columns, sigma and formula, sharing the parameters of
+    /// `[parameters]` by name (instead of `[data]` + `[model]`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub datasets: Vec<super::joint::DatasetEntry>,
     /// `[parameters]`, in the order of the file (= order of the parameter
     /// vector).
     #[serde(default, with = "ordered")]
@@ -265,6 +274,26 @@ impl Locations {
         self.map.is_empty()
     }
 
+    /// True when some key at or below `key` is recorded (`key` or `key.*`).
+    pub fn has_table(&self, key: &str) -> bool {
+        let dotted = format!("{key}.");
+        self.map.keys().any(|k| k == key || k.starts_with(&dotted))
+    }
+
+    /// A copy in which every key starting with `from` also appears with
+    /// `from` replaced by `to` (a `[[datasets]]` entry read as `[data]`).
+    pub(crate) fn renamed(&self, renames: &[(&str, &str)]) -> Locations {
+        let mut out = self.clone();
+        for (k, v) in &self.map {
+            for (from, to) in renames {
+                if let Some(rest) = k.strip_prefix(from) {
+                    out.map.insert(format!("{to}{rest}"), *v);
+                }
+            }
+        }
+        out
+    }
+
     /// `file, line, column` of a key, falling back to the nearest recorded
     /// parent key, then to the file alone.
     pub fn at(&self, file: &Path, key: &str) -> At {
@@ -333,6 +362,7 @@ impl StudySpec {
             constants: Vec::new(),
             derived: Vec::new(),
             inverse: Vec::new(),
+            datasets: Vec::new(),
             audit: AuditSettings::default(),
             fit: FitSpec::default(),
             origin: PathBuf::new(),
@@ -351,7 +381,7 @@ fn is_number_key(key: &str) -> bool {
     matches!(
         parts.as_slice(),
         ["parameters", _, "start" | "min" | "max"] | ["constants", _] | ["data", "sigma"]
-    )
+    ) || key.starts_with("datasets[") && key.ends_with("].sigma")
 }
 
 /// 1-based (line, character column) of a byte offset.
@@ -572,7 +602,7 @@ fn walk_value(v: &SpanNode, key: String, text: &str, locs: &mut Locations, raw: 
 // serde helpers
 
 /// A TOML table as an ordered list of (key, value), in file order.
-mod ordered {
+pub(super) mod ordered {
     use super::*;
 
     pub fn serialize<S: Serializer, V: Serialize>(v: &[(String, V)], s: S) -> Result<S::Ok, S::Error> {
@@ -611,7 +641,7 @@ mod ordered {
 }
 
 /// `"a"` or `["a", "b"]`.
-mod one_or_many {
+pub(super) mod one_or_many {
     use super::*;
 
     pub fn serialize<S: Serializer>(v: &[String], s: S) -> Result<S::Ok, S::Error> {

@@ -6,6 +6,7 @@
 //! | `fit.svg` | data with error bars and the fitted curve, normalised residuals below (several independent variables: observed against fitted, residuals against fitted) |
 //! | `residuals_qq.svg` | normal Q-Q plot of the normalised residuals (Hazen plotting positions) |
 //! | `residuals_x.svg` | normalised residuals against each independent variable |
+//! | `fit_<data set>.svg` | several `[[datasets]]`: one data set's points, error bars and fitted curve with its residuals below (as `fit.svg`, on its points alone) |
 //! | `hist_<p>.svg` | bootstrap and Monte Carlo estimates of one parameter, the analytic normal curve, every interval's ends |
 //! | `profile_<p>.svg` | chi-squared profile of one parameter, covariance parabola, threshold |
 //! | `contour_<p1>_<p2>.svg` | contour lines of one pair, covariance ellipses, bootstrap cloud |
@@ -22,6 +23,7 @@ use crate::report::{Renderer, ReportError};
 
 mod contour;
 mod correlation;
+mod datasets;
 mod fit;
 mod histogram;
 mod multistart;
@@ -70,6 +72,7 @@ pub fn build(results: &AuditResults) -> Result<Figures, ReportError> {
     let mut list = Vec::new();
     list.extend(fit::figure(results)?);
     list.extend(residuals::figures(results)?);
+    list.extend(datasets::figures(results)?);
     if let Some(red) = &results.reduction {
         for f in list
             .iter_mut()
