@@ -150,6 +150,61 @@ impl ModelFn for JointModel {
         }
     }
 
+    /// Exact second derivatives: each data set's tape on its run of points,
+    /// its local pairs scattered to the joint pairs of its parameters
+    /// (pairs of parameters it does not use are zero).
+    fn hessian(
+        &self,
+        params: &[f64],
+        x: &[&[f64]],
+        values: &mut [f64],
+        hess: &mut [f64],
+        scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
+        use super::{n_pairs, pair_index};
+        let n = values.len();
+        let m = self.n_params;
+        assert_eq!(params.len(), m, "parameter vector has the wrong length");
+        assert_eq!(hess.len(), n * n_pairs(m), "Hessian buffer length");
+        hess.fill(0.0);
+        let groups = x[self.group_column];
+        let mut bad: Option<usize> = None;
+        let mut i = 0;
+        while i < n {
+            let g = groups[i];
+            let mut e = i + 1;
+            while e < n && groups[e] == g {
+                e += 1;
+            }
+            let part = &self.parts[g as usize];
+            let ml = part.map.len();
+            let len = e - i;
+            let lp: Vec<f64> = part.map.iter().map(|&j| params[j]).collect();
+            let mut lh = vec![0.0; len * n_pairs(ml)];
+            let nv = part.tape.n_vars();
+            let cols: Vec<&[f64]> = x.iter().take(nv).map(|c| &c[i..e]).collect();
+            let r = part
+                .tape
+                .eval_hessian(&lp, &cols, &mut values[i..e], &mut lh, scratch);
+            for a in 0..ml {
+                for b in 0..=a {
+                    let (ja, jb) = (part.map[a], part.map[b]);
+                    let q = pair_index(ja, jb);
+                    let src = &lh[pair_index(a, b) * len..(pair_index(a, b) + 1) * len];
+                    hess[q * n + i..q * n + e].copy_from_slice(src);
+                }
+            }
+            if let Err(nf) = r {
+                bad = Some(bad.map_or(i + nf.point, |b| b.min(i + nf.point)));
+            }
+            i = e;
+        }
+        Some(match bad {
+            Some(point) => Err(NonFinite { point }),
+            None => Ok(()),
+        })
+    }
+
     /// A parameter is a position on joint column `k` when some data set's
     /// formula makes it a position on its `k`-th variable (the first such
     /// data set decides).
@@ -183,6 +238,43 @@ mod tests {
         JointPart {
             tape: compile(formula, &syms).unwrap(),
             map,
+        }
+    }
+
+    /// The joint second derivatives are each data set's own, at the joint
+    /// pairs of its parameters: set 0 is `a*exp(-b t)` (d2/(da db) =
+    /// -t exp(-b t), d2/db2 = a t^2 exp(-b t)), set 1 is `c*b^2*u`
+    /// (d2/db2 = 2 c u, d2/(db dc) = 2 b u); every other pair is 0 (calculus).
+    #[test]
+    fn second_derivatives_are_scattered_to_the_joint_pairs() {
+        use crate::model::{n_pairs, pair_index};
+        let m = JointModel::new(
+            vec![
+                part("a*exp(-b*t)", &["a", "b"], &["t"], vec![0, 1]),
+                part("c*b^2*u", &["b", "c"], &["u"], vec![1, 2]),
+            ],
+            3,
+            1,
+        );
+        let t = [0.5, 2.0, 1.5];
+        let grp = [0.0, 1.0, 1.0];
+        let (a, b, c) = (2.0, 0.3, -1.5);
+        let mut v = [0.0; 3];
+        let mut h = vec![f64::NAN; 3 * n_pairs(3)];
+        let r = m.hessian(&[a, b, c], &[&t, &grp], &mut v, &mut h, &mut Vec::new());
+        r.unwrap().unwrap();
+        let at = |j: usize, k: usize, i: usize| h[pair_index(j, k) * 3 + i];
+        let e = (-b * t[0]).exp();
+        assert!((at(0, 1, 0) + t[0] * e).abs() < 1e-14);
+        assert!((at(1, 1, 0) - a * t[0] * t[0] * e).abs() < 1e-14);
+        assert_eq!(at(2, 2, 0), 0.0);
+        assert_eq!(at(0, 2, 0), 0.0);
+        for i in 1..3 {
+            assert!((at(1, 1, i) - 2.0 * c * t[i]).abs() < 1e-14);
+            assert!((at(1, 2, i) - 2.0 * b * t[i]).abs() < 1e-14);
+            assert_eq!(at(0, 0, i), 0.0);
+            assert_eq!(at(0, 1, i), 0.0);
+            assert_eq!(at(2, 2, i), 0.0);
         }
     }
 
