@@ -269,9 +269,9 @@ mod tests {
         assert!((at(1, 1, 0) - a * t[0] * t[0] * e).abs() < 1e-14);
         assert_eq!(at(2, 2, 0), 0.0);
         assert_eq!(at(0, 2, 0), 0.0);
-        for i in 1..3 {
-            assert!((at(1, 1, i) - 2.0 * c * t[i]).abs() < 1e-14);
-            assert!((at(1, 2, i) - 2.0 * b * t[i]).abs() < 1e-14);
+        for (i, &ti) in t.iter().enumerate().skip(1) {
+            assert!((at(1, 1, i) - 2.0 * c * ti).abs() < 1e-14);
+            assert!((at(1, 2, i) - 2.0 * b * ti).abs() < 1e-14);
             assert_eq!(at(0, 0, i), 0.0);
             assert_eq!(at(0, 1, i), 0.0);
             assert_eq!(at(2, 2, i), 0.0);
