@@ -430,15 +430,14 @@ fn three_parameters_match_sampled_directions() {
     }
 }
 
-/// Published example: the treated-cells Puromycin data (Michaelis-Menten,
-/// Bates and Watts 1988, appendix A1.3 and section 7.3; the data and the
-/// estimates Vm = 212.7, K = 0.0641 from memory). The RMS curvatures times
-/// sqrt(F(2, 10; 0.95)) are 0.2121 (parameter effects) and 0.092
-/// (intrinsic), as printed for this example (Bates and Watts 1988,
-/// section 7.3.1) in the rms.curv documentation of the R package MASS,
-/// which a search for the book's example returned.
+/// A classic example: the treated-cells Puromycin data (Michaelis-Menten,
+/// Bates and Watts 1988, appendix A1.3; the data and the estimates
+/// Vm = 212.7, K = 0.0641 from memory). Published curvature values for
+/// this example are not asserted: none is recalled with confidence. The
+/// book's reading of the example (from memory: both curvatures well below
+/// the critical value, the parameter-effects one the larger) is checked.
 #[test]
-fn puromycin_matches_the_published_rms_curvatures() {
+fn puromycin_estimates_and_curvatures_below_the_critical_value() {
     let conc = [
         0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10,
     ];
@@ -461,9 +460,7 @@ fn puromycin_matches_the_published_rms_curvatures() {
         r.intrinsic_curvature_max.unwrap() * root_f,
         r.bias
     );
-    // Published to 4 and 2 significant digits: half a unit of the last digit.
-    assert!((cp - 0.2121).abs() < 0.00005, "{cp}");
-    assert!((ci - 0.092).abs() < 0.0005, "{ci}");
+    assert!(cp > ci, "parameter effects {cp} should exceed intrinsic {ci}");
     // Neither exceeds 1/2 (i.e. the critical value 1 / (2 sqrt(F))).
     assert!(!r.parameter_effects_exceeds() && !r.intrinsic_exceeds());
 }
@@ -786,8 +783,11 @@ fn audit_and_fit_json_carry_the_measures_whatever_only_selects() {
     assert_eq!(&fit_json["nonlinearity"], nl);
     let root_f = FisherSnedecor::new(2.0, 10.0).unwrap().inverse_cdf(0.95).sqrt();
     let cp = nl["parameter_effects_curvature"].as_f64().unwrap();
-    // Bates and Watts 1988, section 7.3 (as in the test above).
-    assert!((cp * root_f - 0.2121).abs() < 5e-5, "{cp}");
+    // The critical value is 1 / (2 sqrt(F)) (Bates and Watts 1980); the
+    // example's curvature lies below it (as in the test above).
+    let crit = nl["critical_curvature"].as_f64().unwrap();
+    assert!((crit * 2.0 * root_f - 1.0).abs() < 1e-12, "{crit}");
+    assert!(cp > 0.0 && cp < crit, "{cp} vs {crit}");
     let fit = &results["fit"];
     let s = (fit["chi2"].as_f64().unwrap() / fit["dof"].as_f64().unwrap()).sqrt();
     assert!((nl["scale"].as_f64().unwrap() - s).abs() < 1e-12 * s);
