@@ -1,10 +1,10 @@
 //! The figures: the expected files, well-formed self-contained SVG,
-//! labelled axes, greyscale only, escaped text, safe file names.
+//! labelled axes, colours of one palette only, escaped text, safe file names.
 
 #[path = "common/fixture.rs"]
 mod fixture;
 
-use fitaudit::report::figures::{self, multistart_plane_order, Figures};
+use fitaudit::report::figures::{self, multistart_plane_order, palette, Figures};
 
 fn svg_texts(svg: &str) -> Vec<String> {
     let doc = roxmltree::Document::parse(svg).expect("well-formed SVG");
@@ -28,16 +28,20 @@ fn check_svg(name: &str, svg: &str) {
     for bad in ["href", "<image", "url(", "@import", "<script", "@font-face"] {
         assert!(!svg.contains(bad), "{name} contains {bad}");
     }
-    // Greyscale: every colour has equal red, green and blue.
+    // One palette: every colour is a grey, one of the eight colours of
+    // Okabe and Ito (2008), or a tint of one (mixed with white).
     for node in doc.descendants() {
         for attr in ["fill", "stroke"] {
             if let Some(c) = node.attribute(attr) {
                 if let Some(hex) = c.strip_prefix('#') {
                     assert_eq!(hex.len(), 6, "{name}: colour {c}");
-                    assert!(
-                        hex[0..2] == hex[2..4] && hex[2..4] == hex[4..6],
-                        "{name}: colour {c} is not grey"
-                    );
+                    let v = |i: usize| u8::from_str_radix(&hex[i..i + 2], 16).unwrap();
+                    let (r, g, b) = (v(0), v(2), v(4));
+                    let grey = r == g && g == b;
+                    let in_palette = palette::OKABE_ITO.iter().any(|ink| {
+                        (0..=100).any(|k| palette::tint(*ink, k as f64 / 100.0) == palette::Ink(r, g, b))
+                    });
+                    assert!(grey || in_palette, "{name}: colour {c} is not of the palette");
                 } else {
                     assert!(c == "none" || c == "white" || c == "black", "{name}: colour {c}");
                 }

@@ -1,6 +1,7 @@
 //! `fit.svg`: the data with their error bars and the fitted curve, with the
 //! normalised residuals in a panel below.
 
+use super::palette::{self, grey, Series};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -61,23 +62,23 @@ fn band_lines(results: &AuditResults) -> Vec<BandLines> {
     let mut out = vec![
         BandLines {
             lines: vec![edge(&b.confidence_lower), edge(&b.confidence_upper)],
-            stroke: Stroke::new(Dash::Dashed, 1, 0),
+            stroke: Stroke::new(Dash::Dashed, 1, palette::VERMILLION),
             label: format!("{level} confidence band"),
         },
         BandLines {
             lines: vec![edge(&b.prediction_lower), edge(&b.prediction_upper)],
-            stroke: Stroke::new(Dash::Dotted, 1, 0),
+            stroke: Stroke::new(Dash::Dotted, 2, palette::REDDISH_PURPLE),
             label: format!("{level} prediction band"),
         },
     ];
-    for (name, rb, grey) in [
-        ("bootstrap", b.bootstrap.as_ref(), 90),
-        ("Monte Carlo", b.monte_carlo.as_ref(), 150),
+    for (name, rb, ink, width) in [
+        ("bootstrap", b.bootstrap.as_ref(), palette::SKY_BLUE, 2),
+        ("Monte Carlo", b.monte_carlo.as_ref(), palette::ORANGE, 1),
     ] {
         if let Some(rb) = rb {
             out.push(BandLines {
                 lines: vec![edge(&rb.lower), edge(&rb.upper)],
-                stroke: Stroke::new(Dash::Long, 1, grey),
+                stroke: Stroke::new(Dash::Long, width, ink),
                 label: format!("{name} percentile band"),
             });
         }
@@ -154,22 +155,22 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         };
         let res_pts: Vec<(f64, f64)> = x.iter().copied().zip(residuals.iter().copied()).collect();
         let rr = svg::extent(res_pts.iter().map(|p| p.1).chain([0.0])).unwrap_or((-1.0, 1.0));
-        let svg_text = svg::render("fit.svg", (720 + svg::LEGEND_WIDTH, 620), |root| {
-            let (plot, side) = root.split_horizontally(720);
+        let svg_text = svg::render("fit.svg", (720, 620 + svg::LEGEND_HEIGHT), |root| {
+            let (plot, side) = root.split_vertically(620);
             let (top, bottom) = plot.split_vertically(410);
             let mut c = svg::chart(&top, Some("Data and fitted model"), xr, yr, x_name, y_name)?;
             let bars: Vec<(f64, f64, f64)> = (0..n).map(|i| (x[i], data.y[i], err(i))).collect();
-            c.error_bars(&bars, 90)?;
+            c.error_bars(&bars, grey(120))?;
             let pts: Vec<(f64, f64)> = (0..n).map(|i| (x[i], data.y[i])).collect();
             let label = if sigma.is_some() {
                 "data \u{b1} \u{3c3}"
             } else {
                 "data"
             };
-            c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some(label))?;
+            c.points(&pts, Mark::new(Shape::Circle, 3, grey(0), false), Some(label))?;
             c.lines(
                 std::slice::from_ref(&curve),
-                Stroke::new(Dash::Solid, 2, 0),
+                Stroke::of(Series::Curve, 2),
                 Some("fitted model"),
             )?;
             for b in &bands {
@@ -179,10 +180,10 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             let mut r = svg::chart(&bottom, None, xr, rr, x_name, res_label)?;
             r.lines(
                 &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
-                Stroke::new(Dash::Solid, 1, 110),
+                Stroke::new(Dash::Solid, 1, grey(110)),
                 None,
             )?;
-            r.points(&res_pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+            r.points(&res_pts, Mark::new(Shape::Circle, 3, grey(0), true), None)?;
             Ok(())
         })?;
         return Ok(Some(Figure {
@@ -215,8 +216,8 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     let res_pts: Vec<(f64, f64)> = fitted.iter().copied().zip(residuals.iter().copied()).collect();
     let rr = svg::extent(res_pts.iter().map(|p| p.1).chain([0.0])).unwrap_or((-1.0, 1.0));
     let fitted_label = format!("fitted {y_name}");
-    let svg_text = svg::render("fit.svg", (720 + svg::LEGEND_WIDTH, 620), |root| {
-        let (plot, side) = root.split_horizontally(720);
+    let svg_text = svg::render("fit.svg", (720, 620 + svg::LEGEND_HEIGHT), |root| {
+        let (plot, side) = root.split_vertically(620);
         let (top, bottom) = plot.split_vertically(410);
         let mut c = svg::chart(
             &top,
@@ -227,21 +228,21 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             y_name,
         )?;
         let bars: Vec<(f64, f64, f64)> = (0..m).map(|i| (fitted[i], data.y[i], err(i))).collect();
-        c.error_bars(&bars, 90)?;
+        c.error_bars(&bars, grey(120))?;
         c.lines(
             &[vec![(lim.0, lim.0), (lim.1, lim.1)]],
-            Stroke::new(Dash::Dashed, 1, 0),
+            Stroke::new(Dash::Dashed, 1, grey(0)),
             Some("observed = fitted"),
         )?;
-        c.points(&obs, Mark::new(Shape::Circle, 3, 0, false), Some("data"))?;
+        c.points(&obs, Mark::new(Shape::Circle, 3, grey(0), false), Some("data"))?;
         svg::legend(&side, &c.legend)?;
         let mut r = svg::chart(&bottom, None, lim, rr, &fitted_label, res_label)?;
         r.lines(
             &[vec![(lim.0, 0.0), (lim.1, 0.0)]],
-            Stroke::new(Dash::Solid, 1, 110),
+            Stroke::new(Dash::Solid, 1, grey(110)),
             None,
         )?;
-        r.points(&res_pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+        r.points(&res_pts, Mark::new(Shape::Circle, 3, grey(0), true), None)?;
         Ok(())
     })?;
     Ok(Some(Figure {

@@ -12,8 +12,10 @@
 //! | `multistart.svg` | multi-start end points and the chi-squared and basin share of each minimum |
 //! | `correlation.svg` | correlation matrix of the base fit as a grey heat map with the values written in |
 //!
-//! Every figure is readable in greyscale: series differ by line style
-//! (solid, dashed, dotted, long dash) and marker shape, not by colour.
+//! Every figure takes its colours from [`palette`] (Okabe and Ito 2008,
+//! colour-blind safe) and is readable in greyscale too: series differ by
+//! line style (solid, dashed, dotted, long dash) and marker shape as well
+//! as by colour.
 //! A diagnostic that did not run simply has no figure.
 
 use crate::audit::AuditResults;
@@ -25,6 +27,7 @@ mod correlation;
 mod fit;
 mod histogram;
 mod multistart;
+pub mod palette;
 mod profile;
 mod residuals;
 pub mod svg;

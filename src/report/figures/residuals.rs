@@ -4,6 +4,7 @@
 use statrs::distribution::{ContinuousCDF, Normal};
 
 use super::fit::{plotted_residuals, residual_label, residual_words};
+use super::palette::{grey, Series};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -60,8 +61,8 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
     if pts.len() >= 3 {
         let lim = svg::extent(pts.iter().flat_map(|p| [p.0, p.1])).unwrap_or((-3.0, 3.0));
         let y_label = format!("ordered {}", residual_label(results));
-        let text = svg::render("residuals_qq.svg", (560 + svg::LEGEND_WIDTH, 520), |root| {
-            let (plot, side) = root.split_horizontally(560);
+        let text = svg::render("residuals_qq.svg", (560, 520 + svg::LEGEND_HEIGHT), |root| {
+            let (plot, side) = root.split_vertically(520);
             let mut c = svg::chart(
                 &plot,
                 Some("Normal Q-Q plot of the residuals"),
@@ -72,10 +73,10 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
             )?;
             c.lines(
                 &[vec![(lim.0, lim.0), (lim.1, lim.1)]],
-                Stroke::new(Dash::Dashed, 1, 0),
+                Stroke::of(Series::Analytic, 1),
                 Some("unit normal (residual = quantile)"),
             )?;
-            c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some("residuals"))?;
+            c.points(&pts, Mark::new(Shape::Circle, 3, grey(0), false), Some("residuals"))?;
             svg::legend(&side, &c.legend)?;
             Ok(())
         })?;
@@ -134,18 +135,18 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
             let mut c = svg::chart(panel, caption, xr, rr, name, residual_label(results))?;
             c.lines(
                 &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
-                Stroke::new(Dash::Solid, 1, 110),
+                Stroke::new(Dash::Solid, 1, grey(110)),
                 None,
             )?;
             for band in [-2.0, 2.0] {
                 c.lines(
                     &[vec![(xr.0, band), (xr.1, band)]],
-                    Stroke::new(Dash::Dotted, 1, 90),
+                    Stroke::new(Dash::Dotted, 1, grey(90)),
                     None,
                 )?;
             }
             let pts: Vec<(f64, f64)> = col.iter().copied().zip(res.iter().copied()).collect();
-            c.points(&pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+            c.points(&pts, Mark::new(Shape::Circle, 3, grey(0), true), None)?;
         }
         Ok(())
     })?;
