@@ -265,3 +265,44 @@ fn residuals_without_sigma_are_standardised_by_s_and_say_so() {
     let texts = svg_texts(&f.get("fit.svg").unwrap().svg).join(" ");
     assert!(texts.contains("normalised residual"));
 }
+
+#[test]
+fn report_settings_put_the_data_figure_on_log_axes() {
+    use fitaudit::study::AxisScale;
+    let mut r = fixture::cooling();
+    let linear = build(&r);
+    assert!(!linear.get("fit.svg").unwrap().caption.contains("logarithmic"));
+    r.report.y_axis = AxisScale::Log;
+    r.report.x_axis = AxisScale::Log;
+    let f = build(&r);
+    let fit = f.get("fit.svg").unwrap();
+    assert!(fit.caption.contains("both axes logarithmic"), "{}", fit.caption);
+    // Log ticks print the values 10^t (identity: log10 of a tick label is
+    // the chart coordinate); a t = 0 reading cannot be drawn and is counted.
+    let zeros = r.data.x[0].iter().filter(|t| **t <= 0.0).count();
+    if zeros > 0 {
+        assert!(fit.caption.contains(&format!("{zeros} points at or below zero")), "{}", fit.caption);
+    }
+    let texts = svg_texts(&fit.svg);
+    assert!(texts.iter().any(|t| t == "100" || t == "1000"), "{texts:?}");
+}
+
+#[test]
+fn single_variable_residual_figure_does_not_repeat_the_fit_panel() {
+    let f = build(&fixture::cooling());
+    let rx = f.get("residuals_x.svg").unwrap();
+    let texts = svg_texts(&rx.svg);
+    assert!(texts.iter().any(|t| t == "fitted temp_C"), "{texts:?}");
+    assert!(texts.iter().any(|t| t.starts_with("point number")), "{texts:?}");
+    assert!(!texts.iter().any(|t| t == "t_s"), "{texts:?}");
+}
+
+#[test]
+fn histogram_intervals_are_bars_in_a_strip_not_crowded_lines() {
+    let f = build(&fixture::cooling());
+    let t = svg_texts(&f.get("hist_tau.svg").unwrap().svg);
+    // One row label per interval type, each once.
+    for want in ["value \u{b1} ku", "percentile", "BCa", "Monte Carlo", "profile"] {
+        assert_eq!(t.iter().filter(|s| *s == want).count(), 1, "{want} in {t:?}");
+    }
+}

@@ -64,7 +64,8 @@ mod spec;
 pub use self::csv::{parse_raw, read_csv, RawTable, Table};
 pub use self::error::{At, Shadow, StudyError};
 pub use self::spec::{
-    DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec,
+    AxisScale, DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, ReportSpec,
+    SigmaSpec, StudySpec,
 };
 
 use crate::data::Dataset;
@@ -99,6 +100,8 @@ pub struct Study {
     pub audit: AuditSettings,
     /// `[fit]`, resolved.
     pub fit_options: FitOptions,
+    /// `[report]`: how the figures are drawn.
+    pub report: ReportSpec,
     /// The compiled formula.
     pub model: Tape,
     /// The `[derived]` quantities, compiled, in file order.
@@ -914,6 +917,7 @@ fn finish(
             ..options
         },
         audit: spec.audit,
+        report: spec.report,
         model: tape,
         derived,
         inverse,

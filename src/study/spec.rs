@@ -47,6 +47,9 @@ pub struct StudySpec {
     /// `[fit]`: optimiser settings.
     #[serde(default)]
     pub fit: FitSpec,
+    /// `[report]`: how the figures are drawn.
+    #[serde(default)]
+    pub report: ReportSpec,
     /// The study file this spec was read from (or a virtual name); not part
     /// of the file.
     #[serde(skip)]
@@ -54,6 +57,34 @@ pub struct StudySpec {
     /// Where each key sits in the study file; empty for a spec built in code.
     #[serde(skip)]
     pub locations: Locations,
+}
+
+/// `[report]`: presentation settings of the figures; they change no
+/// number of the audit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReportSpec {
+    /// Scale of the independent-variable axis of the data figures.
+    #[serde(default)]
+    pub x_axis: AxisScale,
+    /// Scale of the response axis of the data figure.
+    #[serde(default)]
+    pub y_axis: AxisScale,
+}
+
+/// Scale of a figure axis.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AxisScale {
+    /// Logarithmic when every value drawn is positive and they span more
+    /// than two decades (largest over smallest above 100), else linear.
+    #[default]
+    Auto,
+    /// Linear.
+    Linear,
+    /// Logarithmic (base 10); values at or below zero are left out and
+    /// the caption says how many.
+    Log,
 }
 
 /// `[data]`.
@@ -335,6 +366,7 @@ impl StudySpec {
             inverse: Vec::new(),
             audit: AuditSettings::default(),
             fit: FitSpec::default(),
+            report: ReportSpec::default(),
             origin: PathBuf::new(),
             locations: Locations::default(),
         }

@@ -554,6 +554,7 @@ pub fn cooling() -> AuditResults {
         curve: Some(curve),
         bands,
         reduction: None,
+        report: Default::default(),
     }
 }
 

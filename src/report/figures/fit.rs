@@ -2,7 +2,7 @@
 //! normalised residuals in a panel below.
 
 use super::palette::{self, grey, Series};
-use super::svg::{self, Dash, Mark, Shape, Stroke};
+use super::svg::{self, Dash, Mark, Scale, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
 use crate::diagnostics::bands::NewObservation;
@@ -86,6 +86,16 @@ fn band_lines(results: &AuditResults) -> Vec<BandLines> {
     out
 }
 
+/// Caption words on the axis scales: empty when both are linear.
+fn scale_words(sx: Scale, sy: Scale) -> String {
+    match (sx, sy) {
+        (Scale::Linear, Scale::Linear) => String::new(),
+        (Scale::Log, Scale::Log) => " (both axes logarithmic)".into(),
+        (Scale::Log, _) => sx.words("x"),
+        (_, Scale::Log) => sy.words("y"),
+    }
+}
+
 /// The caption's words on the bands drawn (empty without bands).
 fn band_words(results: &AuditResults) -> String {
     let Some(b) = &results.bands else {
@@ -143,13 +153,18 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             .map(|c| c.x.iter().copied().zip(c.y.iter().copied()).collect())
             .unwrap_or_default();
         let bands = band_lines(results);
-        let xr = svg::extent(x.iter().copied().chain(curve.iter().map(|p| p.0)));
-        let yr = svg::extent(
+        let sx = Scale::choose(results.report.x_axis, x.iter().copied());
+        let sy = Scale::choose(results.report.y_axis, data.y.iter().copied());
+        let xr = sx.extent(x.iter().copied().chain(curve.iter().map(|p| p.0)));
+        let yr = sy.extent(
             (0..n)
                 .flat_map(|i| [data.y[i] - err(i), data.y[i] + err(i)])
                 .chain(curve.iter().map(|p| p.1))
                 .chain(bands.iter().flat_map(|b| b.lines.iter().flatten().map(|p| p.1))),
         );
+        let left_out = (0..n)
+            .filter(|&i| !(sx.to_axis(x[i]).is_finite() && sy.to_axis(data.y[i]).is_finite()))
+            .count();
         let (Some(xr), Some(yr)) = (xr, yr) else {
             return Ok(None);
         };
@@ -158,7 +173,15 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         let svg_text = svg::render("fit.svg", (720, 620 + svg::LEGEND_HEIGHT), |root| {
             let (plot, side) = root.split_vertically(620);
             let (top, bottom) = plot.split_vertically(410);
-            let mut c = svg::chart(&top, Some("Data and fitted model"), xr, yr, x_name, y_name)?;
+            let mut c = svg::chart_scaled(
+                &top,
+                Some("Data and fitted model"),
+                xr,
+                yr,
+                x_name,
+                y_name,
+                (sx, sy),
+            )?;
             let bars: Vec<(f64, f64, f64)> = (0..n).map(|i| (x[i], data.y[i], err(i))).collect();
             c.error_bars(&bars, grey(120))?;
             let pts: Vec<(f64, f64)> = (0..n).map(|i| (x[i], data.y[i])).collect();
@@ -177,9 +200,13 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
                 c.lines(&b.lines, b.stroke, Some(&b.label))?;
             }
             svg::legend(&side, &c.legend)?;
-            let mut r = svg::chart(&bottom, None, xr, rr, x_name, res_label)?;
+            let mut r = svg::chart_scaled(&bottom, None, xr, rr, x_name, res_label, (sx, Scale::Linear))?;
+            let (x_lo, x_hi) = match sx {
+                Scale::Linear => xr,
+                Scale::Log => (10f64.powf(xr.0), 10f64.powf(xr.1)),
+            };
             r.lines(
-                &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
+                &[vec![(x_lo, 0.0), (x_hi, 0.0)]],
                 Stroke::new(Dash::Solid, 1, grey(110)),
                 None,
             )?;
@@ -190,14 +217,20 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             file: "fit.svg".into(),
             title: "Data and fitted model".into(),
             caption: format!(
-                "Top: {y_name} against {x_name}, {}, and the fitted model{}. Bottom: {} of each point.",
+                "Top: {y_name} against {x_name}{}, {}, and the fitted model{}. Bottom: {} of each point.{}",
+                scale_words(sx, sy),
                 if sigma.is_some() {
                     "error bars \u{b1}1 standard uncertainty"
                 } else {
                     "no uncertainties given"
                 },
                 band_words(results),
-                residual_words(results)
+                residual_words(results),
+                if left_out > 0 {
+                    format!(" {left_out} points at or below zero cannot be drawn on the logarithmic axis.")
+                } else {
+                    String::new()
+                }
             ),
             svg: svg_text,
         }));

@@ -305,6 +305,72 @@ pub(crate) enum Key {
     Fill(Ink),
 }
 
+/// Scale of a chart axis.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Scale {
+    /// Linear.
+    Linear,
+    /// Base-10 logarithmic: the chart's coordinate is `log10(v)`.
+    Log,
+}
+
+impl Scale {
+    /// The chart coordinate of a data value: itself, or its base-10
+    /// logarithm (NaN, so not drawn, at or below zero).
+    pub fn to_axis(self, v: f64) -> f64 {
+        match self {
+            Scale::Linear => v,
+            Scale::Log if v > 0.0 => v.log10(),
+            Scale::Log => f64::NAN,
+        }
+    }
+
+    /// The scale a `[report]` setting asks for on these values: `auto`
+    /// chooses logarithmic when every finite value is positive and the
+    /// largest exceeds the smallest by more than [`AUTO_LOG_RATIO`].
+    pub fn choose(setting: crate::study::AxisScale, values: impl IntoIterator<Item = f64>) -> Scale {
+        use crate::study::AxisScale;
+        match setting {
+            AxisScale::Linear => Scale::Linear,
+            AxisScale::Log => Scale::Log,
+            AxisScale::Auto => {
+                let (mut lo, mut hi, mut n) = (f64::INFINITY, 0.0f64, 0usize);
+                for v in values.into_iter().filter(|v| v.is_finite()) {
+                    if v <= 0.0 {
+                        return Scale::Linear;
+                    }
+                    lo = lo.min(v);
+                    hi = hi.max(v);
+                    n += 1;
+                }
+                if n >= 2 && hi / lo > AUTO_LOG_RATIO {
+                    Scale::Log
+                } else {
+                    Scale::Linear
+                }
+            }
+        }
+    }
+
+    /// The axis extent of the values on this scale (chart coordinates),
+    /// widened by 5 % on each side.
+    pub fn extent(self, values: impl IntoIterator<Item = f64>) -> Option<(f64, f64)> {
+        extent(values.into_iter().map(|v| self.to_axis(v)))
+    }
+
+    /// Words for a caption: empty for linear, " (logarithmic x axis)".
+    pub fn words(self, axis: &str) -> String {
+        match self {
+            Scale::Linear => String::new(),
+            Scale::Log => format!(" (logarithmic {axis} axis)"),
+        }
+    }
+}
+
+/// Ratio of the largest to the smallest positive value above which an
+/// `auto` axis is drawn logarithmic: more than two decades.
+pub const AUTO_LOG_RATIO: f64 = 100.0;
+
 /// A chart together with the legend entries of what was drawn on it.
 pub(crate) struct Plot<'a, 'b> {
     /// The plotters chart.
@@ -312,11 +378,20 @@ pub(crate) struct Plot<'a, 'b> {
     /// Legend entries in drawing order.
     pub legend: Vec<(String, Key)>,
     /// The frame `(x range, y range)`: lines are clipped to it, markers
-    /// outside it are not drawn.
+    /// outside it are not drawn. In chart coordinates (logarithms on a
+    /// log axis).
     pub frame: ((f64, f64), (f64, f64)),
+    /// Scales of the x and y axes; data coordinates given to the drawing
+    /// methods are mapped through them.
+    pub scales: (Scale, Scale),
 }
 
 impl<'a, 'b: 'a> Plot<'a, 'b> {
+    /// A data point in chart coordinates.
+    pub fn map(&self, p: (f64, f64)) -> (f64, f64) {
+        (self.scales.0.to_axis(p.0), self.scales.1.to_axis(p.1))
+    }
+
     /// Draws polylines (non-finite points break them) with one legend entry.
     pub fn lines(
         &mut self,
@@ -327,7 +402,8 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
         let (fx, fy) = self.frame;
         let segs: Vec<Vec<(f64, f64)>> = polylines
             .iter()
-            .flat_map(|l| finite_runs(l))
+            .map(|l| l.iter().map(|&p| self.map(p)).collect::<Vec<_>>())
+            .flat_map(|l| finite_runs(&l))
             .flat_map(|l| clip(&l, fx, fy))
             .filter(|s| s.len() >= 2)
             .collect();
@@ -344,7 +420,11 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
 
     /// Draws markers at the finite points, with one legend entry.
     pub fn points(&mut self, pts: &[(f64, f64)], mark: Mark, label: Option<&str>) -> DrawResult {
-        let pts: Vec<(f64, f64)> = pts.iter().copied().filter(|&p| inside(p, self.frame)).collect();
+        let pts: Vec<(f64, f64)> = pts
+            .iter()
+            .map(|&p| self.map(p))
+            .filter(|&p| inside(p, self.frame))
+            .collect();
         if pts.is_empty() {
             return Ok(());
         }
@@ -359,16 +439,30 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
     pub fn error_bars(&mut self, bars: &[(f64, f64, f64)], ink: Ink) -> DrawResult {
         let style = ink.rgb().stroke_width(1);
         let ok = |v: &&(f64, f64, f64)| v.0.is_finite() && v.1.is_finite() && v.2.is_finite() && v.2 > 0.0;
+        let bottom = self.frame.1 .0;
+        // (x, lower end, upper end) in chart coordinates; a lower end at or
+        // below zero on a log axis runs to the frame's bottom, uncapped.
+        let ends: Vec<(f64, f64, f64, bool)> = bars
+            .iter()
+            .filter(ok)
+            .map(|&(x, y, e)| {
+                let (cx, lo) = self.map((x, y - e));
+                let (_, hi) = self.map((x, y + e));
+                (cx, if lo.is_finite() { lo } else { bottom }, hi, lo.is_finite())
+            })
+            .filter(|v| v.0.is_finite() && v.2.is_finite())
+            .collect();
         self.chart.draw_series(
-            bars.iter()
-                .filter(ok)
-                .map(|&(x, y, e)| PathElement::new(vec![(x, y - e), (x, y + e)], style)),
+            ends.iter()
+                .map(|&(x, lo, hi, _)| PathElement::new(vec![(x, lo), (x, hi)], style)),
         )?;
-        for sign in [-1.0, 1.0] {
-            self.chart.draw_series(bars.iter().filter(ok).map(|&(x, y, e)| {
-                EmptyElement::at((x, y + sign * e)) + PathElement::new(vec![(-3, 0), (3, 0)], style)
-            }))?;
-        }
+        self.chart.draw_series(ends.iter().flat_map(|&(x, lo, hi, capped)| {
+            let mut caps = vec![EmptyElement::at((x, hi)) + PathElement::new(vec![(-3, 0), (3, 0)], style)];
+            if capped {
+                caps.push(EmptyElement::at((x, lo)) + PathElement::new(vec![(-3, 0), (3, 0)], style));
+            }
+            caps
+        }))?;
         Ok(())
     }
 
@@ -389,6 +483,7 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
 
     /// Text at a data position (escaped by the backend).
     pub fn text(&mut self, s: &str, at: (f64, f64), size: u32, pos: Pos) -> DrawResult {
+        let at = self.map(at);
         if !(at.0.is_finite() && at.1.is_finite()) {
             return Ok(());
         }
@@ -618,7 +713,7 @@ pub(crate) fn interval_strip(
 }
 
 /// Builds a chart on `area` with axis titles and tick labels formatted by
-/// [`format::tick`].
+/// [`format::tick`], both axes linear.
 pub(crate) fn chart<'a, 'b>(
     area: &'a Area<'b>,
     caption: Option<&str>,
@@ -627,6 +722,21 @@ pub(crate) fn chart<'a, 'b>(
     x_desc: &str,
     y_desc: &str,
 ) -> Result<Plot<'a, 'b>, Box<dyn std::error::Error>> {
+    chart_scaled(area, caption, x, y, x_desc, y_desc, (Scale::Linear, Scale::Linear))
+}
+
+/// Builds a chart on `area` with the given axis scales; `x` and `y` are in
+/// chart coordinates ([`Scale::extent`]). A log axis labels its ticks
+/// with the values (`10^t`, [`format::log_tick`]).
+pub(crate) fn chart_scaled<'a, 'b>(
+    area: &'a Area<'b>,
+    caption: Option<&str>,
+    x: (f64, f64),
+    y: (f64, f64),
+    x_desc: &str,
+    y_desc: &str,
+    scales: (Scale, Scale),
+) -> Result<Plot<'a, 'b>, Box<dyn std::error::Error>> {
     let mut builder = ChartBuilder::on(area);
     builder.margin(12).x_label_area_size(44).y_label_area_size(68);
     if let Some(c) = caption {
@@ -634,8 +744,12 @@ pub(crate) fn chart<'a, 'b>(
     }
     let mut chart = builder.build_cartesian_2d(x.0..x.1, y.0..y.1)?;
     let (xs, ys) = (x.1 - x.0, y.1 - y.0);
-    let fx = move |v: &f64| format::tick(*v, xs);
-    let fy = move |v: &f64| format::tick(*v, ys);
+    let label = move |scale: Scale, v: f64, span: f64| match scale {
+        Scale::Linear => format::tick(v, span),
+        Scale::Log => format::log_tick(v),
+    };
+    let fx = move |v: &f64| label(scales.0, *v, xs);
+    let fy = move |v: &f64| label(scales.1, *v, ys);
     chart
         .configure_mesh()
         .x_desc(x_desc)
@@ -654,6 +768,7 @@ pub(crate) fn chart<'a, 'b>(
         chart,
         legend: Vec::new(),
         frame: (x, y),
+        scales,
     })
 }
 
@@ -727,6 +842,22 @@ mod tests {
             ]
         );
         assert!(clip(&[(2.0, 2.0), (3.0, 3.0)], (0.0, 1.0), (0.0, 1.0)).is_empty());
+    }
+
+    #[test]
+    fn automatic_log_scale_beyond_two_decades() {
+        use crate::study::AxisScale;
+        // 0.1 to 100 spans three decades: logarithmic; 1 to 50 does not.
+        assert_eq!(Scale::choose(AxisScale::Auto, [0.1, 1.0, 100.0]), Scale::Log);
+        assert_eq!(Scale::choose(AxisScale::Auto, [1.0, 50.0]), Scale::Linear);
+        // A zero or negative value keeps it linear; the settings override.
+        assert_eq!(Scale::choose(AxisScale::Auto, [0.0, 1.0, 1000.0]), Scale::Linear);
+        assert_eq!(Scale::choose(AxisScale::Log, [1.0, 2.0]), Scale::Log);
+        assert_eq!(Scale::choose(AxisScale::Linear, [1e-3, 1e3]), Scale::Linear);
+        // log10 identities: 1000 -> 3, 0.01 -> -2; no logarithm of 0.
+        assert_eq!(Scale::Log.to_axis(1000.0), 3.0);
+        assert_eq!(Scale::Log.to_axis(0.01), -2.0);
+        assert!(Scale::Log.to_axis(0.0).is_nan());
     }
 
     #[test]
