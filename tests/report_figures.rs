@@ -281,7 +281,11 @@ fn report_settings_put_the_data_figure_on_log_axes() {
     // the chart coordinate); a t = 0 reading cannot be drawn and is counted.
     let zeros = r.data.x[0].iter().filter(|t| **t <= 0.0).count();
     if zeros > 0 {
-        assert!(fit.caption.contains(&format!("{zeros} points at or below zero")), "{}", fit.caption);
+        assert!(
+            fit.caption.contains(&format!("{zeros} points at or below zero")),
+            "{}",
+            fit.caption
+        );
     }
     let texts = svg_texts(&fit.svg);
     assert!(texts.iter().any(|t| t == "100" || t == "1000"), "{texts:?}");

@@ -60,7 +60,9 @@ table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.92em; }
 th, td { border: 1px solid #999; padding: 0.25em 0.55em; text-align: left; vertical-align: top; }
 th { background: #e8e8e8; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-table.wide { display: block; overflow-x: auto; }
+td, th { overflow-wrap: anywhere; }
+h3 { font-size: 1.05em; margin: 1.2em 0 0.3em 0; }
+table { max-width: 100%; }
 code { font-family: monospace; font-size: 0.95em; overflow-wrap: anywhere; }
 .notice { border: 4px double #000; padding: 0.8em 1em; margin: 1em 0 1.5em 0; font-size: 1.08em; background: #f2f2f2; }
 .notice strong { font-size: 1.1em; }
@@ -76,7 +78,8 @@ figcaption { font-size: 0.9em; color: #333; max-width: 60em; }
   body { font-size: 10pt; max-width: none; margin: 0; }
   h2 { break-after: avoid; page-break-after: avoid; }
   figure, table, .notice { break-inside: avoid; page-break-inside: avoid; }
-  table.wide { display: table; overflow: visible; font-size: 8pt; }
+  table { font-size: 8.5pt; }
+  td.num { white-space: normal; }
   figure svg { border: none; }
   .notice { background: none; }
 }
@@ -295,12 +298,11 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
          compared with the analytic half-width. An em dash marks a diagnostic that did not run.</p>",
         escape(&format::percent(results.settings.level, 4))
     );
-    table(
-        &mut o,
-        &tables::comparison(results),
-        &(1..14).collect::<Vec<_>>(),
-        Some("wide"),
-    );
+    for (heading, t) in tables::comparisons(results) {
+        let _ = writeln!(o, "<h3>{}</h3>", escape(&heading));
+        let numeric: Vec<usize> = (1..t.header.len()).collect();
+        table(&mut o, &t, &numeric, Some("compare"));
+    }
     o.push_str("</section>\n");
 
     // Figures.

@@ -64,8 +64,8 @@ mod spec;
 pub use self::csv::{parse_raw, read_csv, RawTable, Table};
 pub use self::error::{At, Shadow, StudyError};
 pub use self::spec::{
-    AxisScale, DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, ReportSpec,
-    SigmaSpec, StudySpec,
+    AxisScale, DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, ReportSpec, SigmaSpec,
+    StudySpec,
 };
 
 use crate::data::Dataset;

@@ -147,7 +147,9 @@ pub(crate) fn figure(
          node) and the covariance ellipses at the same levels (dashed), for two parameters jointly."
     );
     if total > 0 {
-        caption.push_str(&format!(" Light blue dots: {drawn} of {total} bootstrap estimates"));
+        caption.push_str(&format!(
+            " Light blue dots: {drawn} of {total} bootstrap estimates"
+        ));
         if outside > 0 {
             caption.push_str(&format!(" ({outside} outside the frame)"));
         }

@@ -211,7 +211,11 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
             }
             step.push((hi, 0.0));
             let label = format!("Monte Carlo ({} trials)", mc.as_ref().map_or(0, Vec::len));
-            c.lines(&[step], Stroke::new(Dash::Dashed, 1, palette::ORANGE), Some(&label))?;
+            c.lines(
+                &[step],
+                Stroke::new(Dash::Dashed, 1, palette::ORANGE),
+                Some(&label),
+            )?;
         }
         if !normal.is_empty() {
             c.lines(

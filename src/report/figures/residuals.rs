@@ -76,7 +76,11 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
                 Stroke::of(Series::Analytic, 1),
                 Some("unit normal (residual = quantile)"),
             )?;
-            c.points(&pts, Mark::new(Shape::Circle, 3, grey(0), false), Some("residuals"))?;
+            c.points(
+                &pts,
+                Mark::new(Shape::Circle, 3, grey(0), false),
+                Some("residuals"),
+            )?;
             svg::legend(&side, &c.legend)?;
             Ok(())
         })?;
@@ -131,7 +135,11 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
     let columns: Vec<(&[f64], &str, Scale)> = if k == 1 {
         vec![
             (results.fit.fitted.as_slice(), fitted_name.as_str(), Scale::Linear),
-            (order.as_slice(), "point number (order in the data file)", Scale::Linear),
+            (
+                order.as_slice(),
+                "point number (order in the data file)",
+                Scale::Linear,
+            ),
         ]
     } else {
         data.x
@@ -161,7 +169,15 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
                 continue;
             };
             let caption = (v == 0).then_some(title);
-            let mut c = svg::chart_scaled(panel, caption, xr, rr, name, residual_label(results), (sx, Scale::Linear))?;
+            let mut c = svg::chart_scaled(
+                panel,
+                caption,
+                xr,
+                rr,
+                name,
+                residual_label(results),
+                (sx, Scale::Linear),
+            )?;
             let (xlo, xhi) = match sx {
                 Scale::Linear => xr,
                 Scale::Log => (10f64.powf(xr.0), 10f64.powf(xr.1)),

@@ -456,13 +456,15 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
             ends.iter()
                 .map(|&(x, lo, hi, _)| PathElement::new(vec![(x, lo), (x, hi)], style)),
         )?;
-        self.chart.draw_series(ends.iter().flat_map(|&(x, lo, hi, capped)| {
-            let mut caps = vec![EmptyElement::at((x, hi)) + PathElement::new(vec![(-3, 0), (3, 0)], style)];
-            if capped {
-                caps.push(EmptyElement::at((x, lo)) + PathElement::new(vec![(-3, 0), (3, 0)], style));
-            }
-            caps
-        }))?;
+        self.chart
+            .draw_series(ends.iter().flat_map(|&(x, lo, hi, capped)| {
+                let mut caps =
+                    vec![EmptyElement::at((x, hi)) + PathElement::new(vec![(-3, 0), (3, 0)], style)];
+                if capped {
+                    caps.push(EmptyElement::at((x, lo)) + PathElement::new(vec![(-3, 0), (3, 0)], style));
+                }
+                caps
+            }))?;
         Ok(())
     }
 
@@ -649,7 +651,11 @@ pub(crate) fn interval_strip(
 ) -> DrawResult {
     let n = rows.len().max(1) as f64;
     let mut builder = ChartBuilder::on(area);
-    builder.margin_left(12).margin_right(12).x_label_area_size(44).y_label_area_size(68);
+    builder
+        .margin_left(12)
+        .margin_right(12)
+        .x_label_area_size(44)
+        .y_label_area_size(68);
     let mut chart = builder.build_cartesian_2d(x.0..x.1, 0.0..n)?;
     let xs = x.1 - x.0;
     let fx = move |v: &f64| format::tick(*v, xs);
@@ -722,7 +728,15 @@ pub(crate) fn chart<'a, 'b>(
     x_desc: &str,
     y_desc: &str,
 ) -> Result<Plot<'a, 'b>, Box<dyn std::error::Error>> {
-    chart_scaled(area, caption, x, y, x_desc, y_desc, (Scale::Linear, Scale::Linear))
+    chart_scaled(
+        area,
+        caption,
+        x,
+        y,
+        x_desc,
+        y_desc,
+        (Scale::Linear, Scale::Linear),
+    )
 }
 
 /// Builds a chart on `area` with the given axis scales; `x` and `y` are in
