@@ -87,6 +87,10 @@ struct AuditArgs {
     /// Seed of every random stream (overrides the study).
     #[arg(long)]
     seed: Option<u64>,
+    /// Confidence level of every interval, in (0, 1) (overrides
+    /// audit.level).
+    #[arg(long)]
+    level: Option<f64>,
     /// Worker threads (default: all cores); results do not depend on it.
     #[arg(long, value_parser = parse_threads)]
     threads: Option<usize>,
@@ -221,6 +225,10 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
     }
     if let Some(s) = args.seed {
         study.audit.seed = s;
+    }
+    if let Some(l) = args.level {
+        study.audit.level = l;
+        study.fit_options.level = l;
     }
     if args.keep_start {
         study.audit.multistart.rebase = false;

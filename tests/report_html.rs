@@ -231,3 +231,34 @@ fn a_profile_below_the_base_fit_also_leads_and_skipped_pairs_are_listed() {
     assert!(all.contains("the base fit is not the minimum"));
     assert!(!s.contains("fig-contour_dT_tau"));
 }
+
+#[test]
+fn footer_carries_the_readme_caution() {
+    let s = page(&fixture::cooling());
+    let doc = parse(&s).unwrap();
+    let footer = doc
+        .descendants()
+        .find(|n| n.has_tag_name("footer"))
+        .expect("a footer");
+    let text = text_of(footer);
+    // The README's caution, word for word (its first sentence).
+    let readme = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/README.md")).unwrap();
+    let flat = readme
+        .split_whitespace()
+        .filter(|w| *w != ">")
+        .collect::<Vec<_>>()
+        .join(" ");
+    let first = "Statistics support, and do not replace, a laboratory's own validation procedure and the applicable standards.";
+    assert!(flat.contains(first));
+    assert!(
+        text.split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ")
+            .contains(first),
+        "{text}"
+    );
+    // The footer is the last element of the body.
+    let body = doc.descendants().find(|n| n.has_tag_name("body")).unwrap();
+    let last = body.children().filter(|c| c.is_element()).last().unwrap();
+    assert!(last.has_tag_name("footer"));
+}

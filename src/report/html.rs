@@ -74,6 +74,7 @@ figure { margin: 1.2em 0; }
 figure svg { max-width: 100%; height: auto; border: 1px solid #ccc; }
 figcaption { font-size: 0.9em; color: #333; max-width: 60em; }
 .caution { border-left: 4px solid #444; padding-left: 0.8em; }
+footer { margin-top: 2.5em; padding-top: 0.6em; border-top: 1px solid #999; font-size: 0.88em; color: #333; }
 @media print {
   body { font-size: 10pt; max-width: none; margin: 0; }
   h2 { break-after: avoid; page-break-after: avoid; }
@@ -357,9 +358,23 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
         SECTIONS[7],
         escape(CAUTION)
     );
+    let _ = writeln!(
+        o,
+        "<footer><p><strong>Caution.</strong> {}</p><p>{} {}</p></footer>",
+        escape(FOOTER_CAUTION),
+        escape(&results.provenance.tool),
+        escape(&results.provenance.version)
+    );
     o.push_str("</body>\n</html>\n");
     o
 }
+
+/// The caution of the README, repeated in the footer of every page (and so
+/// on the last printed page).
+pub const FOOTER_CAUTION: &str = "Statistics support, and do not replace, a laboratory's own \
+validation procedure and the applicable standards. A holds verdict says that the diagnostics found no \
+disagreement with the quoted uncertainty; it does not validate the model, the data or the measurement \
+method.";
 
 /// Writes `report.html`.
 pub struct Html;

@@ -102,6 +102,8 @@ pub struct Study {
     pub fit_options: FitOptions,
     /// `[report]`: how the figures are drawn.
     pub report: ReportSpec,
+    /// `data.sigma` as written (a column name or one number), for `check`.
+    pub sigma_spec: Option<SigmaSpec>,
     /// The compiled formula.
     pub model: Tape,
     /// The `[derived]` quantities, compiled, in file order.
@@ -918,6 +920,7 @@ fn finish(
         },
         audit: spec.audit,
         report: spec.report,
+        sigma_spec: spec.data.sigma.clone(),
         model: tape,
         derived,
         inverse,
