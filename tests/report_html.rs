@@ -259,6 +259,6 @@ fn footer_carries_the_readme_caution() {
     );
     // The footer is the last element of the body.
     let body = doc.descendants().find(|n| n.has_tag_name("body")).unwrap();
-    let last = body.children().filter(|c| c.is_element()).last().unwrap();
+    let last = body.children().rfind(|c| c.is_element()).unwrap();
     assert!(last.has_tag_name("footer"));
 }

@@ -117,7 +117,10 @@ pub(crate) fn figure(
             None => format!("{what} \u{394}\u{3c7}\u{b2} = {}", format::sig(lv, 3)),
         }
     };
-    let text = svg::render(&file, (640, 600 + svg::LEGEND_HEIGHT), |root| {
+    let entries =
+        usize::from(!cloud.is_empty()) + c.lines.len() + c.ellipse.len() + usize::from(centre.is_some());
+    let legend_h = svg::legend_height(entries).max(svg::LEGEND_HEIGHT);
+    let text = svg::render(&file, (640, 600 + legend_h), |root| {
         let (plot, side) = root.split_vertically(600);
         let title = format!("Contours of {a} and {b}");
         let mut ch = svg::chart(&plot, Some(&title), xr, yr, a, b)?;
