@@ -60,7 +60,7 @@ table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.92em; }
 th, td { border: 1px solid #999; padding: 0.25em 0.55em; text-align: left; vertical-align: top; }
 th { background: #e8e8e8; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-td, th { overflow-wrap: anywhere; }
+td, th { overflow-wrap: break-word; }
 h3 { font-size: 1.05em; margin: 1.2em 0 0.3em 0; }
 table { max-width: 100%; }
 code { font-family: monospace; font-size: 0.95em; overflow-wrap: anywhere; }
@@ -80,6 +80,7 @@ footer { margin-top: 2.5em; padding-top: 0.6em; border-top: 1px solid #999; font
   h2 { break-after: avoid; page-break-after: avoid; }
   figure, table, .notice { break-inside: avoid; page-break-inside: avoid; }
   table { font-size: 8.5pt; }
+  td, th { overflow-wrap: anywhere; }
   td.num { white-space: normal; }
   figure svg { border: none; }
   .notice { background: none; }

@@ -675,3 +675,29 @@ mod one_or_many {
         d.deserialize_any(Vis)
     }
 }
+
+#[cfg(test)]
+mod report_table_tests {
+    use super::*;
+
+    const BASE: &str = "[data]\nfile = \"d.csv\"\nx = \"t\"\ny = \"y\"\n[model]\nformula = \"a*t\"\n[parameters]\na = { start = 1 }\n";
+
+    #[test]
+    fn report_table_sets_axis_scales_and_rejects_unknown_keys() {
+        let spec = StudySpec::from_toml_str(BASE, Path::new("s.toml")).unwrap();
+        assert_eq!(spec.report, ReportSpec::default());
+        assert_eq!(spec.report.x_axis, AxisScale::Auto);
+        let text = format!("{BASE}[report]\nx_axis = \"log\"\ny_axis = \"linear\"\n");
+        let spec = StudySpec::from_toml_str(&text, Path::new("s.toml")).unwrap();
+        assert_eq!(spec.report.x_axis, AxisScale::Log);
+        assert_eq!(spec.report.y_axis, AxisScale::Linear);
+        // A typo is an error naming the key.
+        let text = format!("{BASE}[report]\nx_axes = \"log\"\n");
+        let err = StudySpec::from_toml_str(&text, Path::new("s.toml"))
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("x_axes"), "{err}");
+        let text = format!("{BASE}[report]\nx_axis = \"logarithmic\"\n");
+        assert!(StudySpec::from_toml_str(&text, Path::new("s.toml")).is_err());
+    }
+}

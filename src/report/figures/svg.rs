@@ -843,6 +843,12 @@ mod tests {
         );
         assert_eq!(pad(1.0, 1.0, 0.05), (0.95, 1.05));
         assert_eq!(pad(0.0, 0.0, 0.05), (-1.0, 1.0));
+        // Values that agree to rounding noise (all starts at one minimum)
+        // get the window of a single value, not an axis of 1e-13 width
+        // whose ticks would need a dozen digits and overlap.
+        let (lo, hi) = pad(57.7, 57.7 + 1e-12, 0.05);
+        assert!((lo - 57.7 * 0.95).abs() < 1e-9 && (hi - 57.7 * 1.05).abs() < 1e-9);
+        assert_eq!(format::tick(57.7, hi - lo), "57.7");
         assert_eq!(extent([f64::NAN, 0.0, 10.0]), Some((-0.5, 10.5)));
         assert_eq!(extent([f64::NAN]), None);
         // Clipping to the unit square: a line crossing it twice leaves two pieces.
