@@ -121,6 +121,17 @@ fn tables_hold_the_numbers_of_the_results() {
         cmp[4],
         format!("[{}, {}]", format::at(b.lower, -1), format::at(b.upper, -1))
     );
+    // The ratio with its uncertainty under a correct u, 1/sqrt(2 nu) (the
+    // standard deviation of a chi-squared variate over its dof, sqrt(2/nu),
+    // halved for the square root): u to two significant digits and the
+    // ratio at the same place, the rule of every table (GUM 7.2.6).
+    let u_ratio = (0.5 / b.null_dof.unwrap()).sqrt();
+    let (rv, ru) = format::value_and_uncertainty(b.robust_ratio.unwrap(), Some(u_ratio));
+    assert_eq!(cmp[6], format!("{rv} \u{b1} {ru}"));
+    assert_eq!(
+        rv.split('.').nth(1).map(str::len),
+        ru.split('.').nth(1).map(str::len)
+    );
 
     // Verdicts.
     let v = rows

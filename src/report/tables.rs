@@ -476,8 +476,12 @@ fn robust_ratio_cell(p: &ResampledParameter) -> String {
 
 fn ratio_pm(r: Option<f64>, u: Option<f64>) -> String {
     match (r, u) {
-        (Some(r), Some(u)) => format!("{} \u{b1} {}", format::ratio(r), format::sig(u, 2)),
-        (Some(r), None) => format::ratio(r),
+        // The one rounding rule: u to two significant digits, r at its place.
+        (Some(r), Some(u)) if u.is_finite() && u > 0.0 => {
+            let (r, u) = format::value_and_uncertainty(r, Some(u));
+            format!("{r} \u{b1} {u}")
+        }
+        (Some(r), _) => format::ratio(r),
         _ => s(format::ABSENT),
     }
 }

@@ -5,8 +5,8 @@
 //! |---|---|
 //! | `fit.svg` | data with error bars and the fitted curve, normalised residuals below (several independent variables: observed against fitted, residuals against fitted) |
 //! | `residuals_qq.svg` | normal Q-Q plot of the normalised residuals (Hazen plotting positions) |
-//! | `residuals_x.svg` | normalised residuals against each independent variable |
-//! | `hist_<p>.svg` | bootstrap and Monte Carlo estimates of one parameter, the analytic normal curve, every interval's ends |
+//! | `residuals_x.svg` | normalised residuals against the fitted values and the point order (one independent variable: the fit figure already has them against x), or against each independent variable |
+//! | `hist_<p>.svg` | bootstrap and Monte Carlo estimates of one parameter, the analytic normal curve, and beneath it every interval as a labelled bar, one row per type |
 //! | `profile_<p>.svg` | chi-squared profile of one parameter, covariance parabola, threshold |
 //! | `contour_<p1>_<p2>.svg` | contour lines of one pair, covariance ellipses, bootstrap cloud |
 //! | `multistart.svg` | multi-start end points and the chi-squared and basin share of each minimum |
