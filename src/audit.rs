@@ -208,6 +208,9 @@ pub struct AuditResults {
     /// (every diagnostic ran on all of them); absent when all are kept.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reduction: Option<crate::reduction::DataReduction>,
+    /// The study's `[report]` settings the figures were drawn with.
+    #[serde(default)]
+    pub report: crate::study::ReportSpec,
 }
 
 /// What an audit runs on: the study resolved into its parts (the study
@@ -231,6 +234,8 @@ pub struct AuditInput<'a> {
     pub inverse: &'a [InverseRequest],
     /// The model with x as its last parameter (needed when `inverse` is not empty).
     pub inverse_model: Option<&'a InverseModel>,
+    /// How the figures are drawn (the study's `[report]` table).
+    pub report: crate::study::ReportSpec,
 }
 
 impl AuditInput<'_> {
@@ -519,6 +524,7 @@ pub fn summarise(
         inverse,
         datasets,
         reduction,
+        report: input.report,
     })
 }
 
@@ -662,5 +668,6 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
         derived: &study.derived,
         inverse: &study.inverse,
         inverse_model: study.inverse_model.as_ref(),
+        report: study.report,
     }
 }

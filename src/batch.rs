@@ -89,6 +89,8 @@ pub struct Overrides {
     pub seed: Option<u64>,
     /// Audit the fit from the study's start (no re-basing).
     pub keep_start: bool,
+    /// Confidence level of every interval (`--level`, overrides `audit.level`).
+    pub level: Option<f64>,
 }
 
 impl Overrides {
@@ -103,6 +105,10 @@ impl Overrides {
         }
         if let Some(s) = self.seed {
             study.audit.seed = s;
+        }
+        if let Some(l) = self.level {
+            study.audit.level = l;
+            study.fit_options.level = l;
         }
         if self.keep_start {
             study.audit.multistart.rebase = false;

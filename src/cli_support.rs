@@ -235,6 +235,28 @@ impl Progress for TerminalProgress {
     }
 }
 
+/// The `sigma` line of `check`: the column or the number read, the range
+/// of the values, and what it means for the covariance.
+fn sigma_words(study: &crate::study::Study) -> String {
+    use crate::study::SigmaSpec;
+    let range = study.dataset.sigma.as_ref().and_then(|v| {
+        let lo = v.iter().copied().fold(f64::INFINITY, f64::min);
+        let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        (lo <= hi).then_some((lo, hi))
+    });
+    match (&study.sigma_spec, range) {
+        (Some(SigmaSpec::Value(v)), _) => format!("{v} for every point (absolute covariance)"),
+        (Some(SigmaSpec::Column(c)), Some((lo, hi))) if lo == hi => {
+            format!("column {c}, {lo} for every point (absolute covariance)")
+        }
+        (Some(SigmaSpec::Column(c)), Some((lo, hi))) => {
+            format!("column {c}, {lo} to {hi} (absolute covariance)")
+        }
+        (_, Some((lo, hi))) => format!("given, {lo} to {hi} (absolute covariance)"),
+        _ => "none (covariance scaled by chi2/dof)".to_string(),
+    }
+}
+
 /// What `fitaudit check` prints: what was read, and any warnings.
 pub fn check_summary(study: &crate::study::Study) -> String {
     use std::fmt::Write as _;
@@ -264,15 +286,7 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     }
     let _ = writeln!(s, "x          {}", d.x_names.join(", "));
     let _ = writeln!(s, "y          {}", d.y_name);
-    let _ = writeln!(
-        s,
-        "sigma      {}",
-        if d.has_sigma() {
-            "given (absolute covariance)"
-        } else {
-            "none (covariance scaled by chi2/dof)"
-        }
-    );
+    let _ = writeln!(s, "sigma      {}", sigma_words(study));
     let _ = writeln!(s, "formula    {}", study.formula);
     for p in &study.parameters {
         let mut line = format!("parameter  {} start {}", p.name, p.start);
@@ -293,11 +307,14 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     let a = &study.audit;
     let _ = writeln!(
         s,
-        "audit      seed {}, level {}, bootstrap {} ({:?}), Monte Carlo {}, profile {} points, contour grid {}, {} starts",
+        "audit      seed {}, level {}, bootstrap {} ({}), Monte Carlo {}, profile {} points, contour grid {}, {} starts",
         a.seed,
         a.level,
         a.bootstrap.replicates,
-        a.bootstrap.scheme,
+        serde_json::to_value(a.bootstrap.scheme)
+            .ok()
+            .and_then(|v| v.as_str().map(str::to_string))
+            .unwrap_or_default(),
         a.monte_carlo.replicates,
         a.profile.points,
         a.contours.grid,

@@ -116,6 +116,10 @@ struct AuditArgs {
     /// Seed of every random stream (overrides the study).
     #[arg(long)]
     seed: Option<u64>,
+    /// Confidence level of every interval, in (0, 1) (overrides
+    /// audit.level).
+    #[arg(long)]
+    level: Option<f64>,
     /// Worker threads (default: all cores); results do not depend on it.
     #[arg(long, value_parser = parse_threads)]
     threads: Option<usize>,
@@ -271,6 +275,7 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         starts: args.starts,
         seed: args.seed,
         keep_start: args.keep_start,
+        level: args.level,
     };
     let options = AuditOptions {
         only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),

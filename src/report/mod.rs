@@ -197,7 +197,7 @@ impl RebasedNotice {
     /// The notice as one plain sentence group (terminal and Markdown).
     pub fn sentence(&self) -> String {
         format!(
-            "The study's start reaches a local minimum (chi2 = {}); audited at the best minimum found              by the multi-start search (chi2 = {}). Put these start values in the study: {}",
+            "The study's start reaches a local minimum (chi2 = {}); audited at the best minimum found by the multi-start search (chi2 = {}). Put these start values in the study: {}",
             format::chi2(self.start_chi2),
             format::chi2(self.audited_chi2),
             self.start_lines()

@@ -202,8 +202,41 @@ pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool) 
     )
 }
 
-/// One line per parameter: name, the interval to quote, status, first
-/// reason; led by a warning
+/// Every reason of a verdict in a few words: the rule and the diagnostic it
+/// read of each finding that decided it (`profile-half-widths (profile);
+/// spread-ratio (bootstrap)`), or, for a verdict that holds, how many
+/// checks agreed. The sentences are in the report.
+pub fn compact_reasons(v: &crate::diagnostics::verdict::Verdict) -> String {
+    use crate::diagnostics::verdict::Status;
+    let code = |x: serde_json::Value| x.as_str().map(str::to_string).unwrap_or_default();
+    if v.status == Status::Holds {
+        return match v.findings.len() {
+            0 => "no diagnostic ran".to_string(),
+            n => format!("{n} checks agree"),
+        };
+    }
+    let mut parts: Vec<String> = Vec::new();
+    for f in v.findings.iter().filter(|f| f.status != Status::Holds) {
+        let rule = code(serde_json::to_value(f.rule).unwrap_or_default());
+        let source = code(serde_json::to_value(f.diagnostic).unwrap_or_default());
+        let part = if source.is_empty() || source == rule {
+            rule
+        } else {
+            format!("{rule} ({source})")
+        };
+        if !parts.contains(&part) {
+            parts.push(part);
+        }
+    }
+    if parts.is_empty() {
+        format::ABSENT.to_string()
+    } else {
+        parts.join("; ")
+    }
+}
+
+/// One line per parameter: name, the interval to quote, status, every
+/// reason in a few words ([`compact_reasons`]); led by a warning
 /// line when the multi-start search found a better minimum than the base fit.
 pub fn verdict_lines(results: &AuditResults) -> String {
     let mut out = String::new();
@@ -236,10 +269,7 @@ pub fn verdict_lines(results: &AuditResults) -> String {
                 v.parameter.clone(),
                 findings::quote_cell(results, v),
                 status_word(v.status).to_string(),
-                findings::reasons(v)
-                    .first()
-                    .cloned()
-                    .unwrap_or_else(|| format::ABSENT.to_string()),
+                compact_reasons(v),
             ]
         })
         .collect();
@@ -248,6 +278,11 @@ pub fn verdict_lines(results: &AuditResults) -> String {
 }
 
 fn signature(f: &FunctionInfo) -> String {
+    // Functions whose arguments are not interchangeable say which is which:
+    // atan2 takes the ordinate first, as the evaluation does (`y.atan2(x)`).
+    if (f.name, f.arity) == ("atan2", 2) {
+        return "atan2(y, x)".into();
+    }
     let args: Vec<String> = match f.arity {
         0 => return f.name.to_string(),
         1 => vec!["x".into()],
@@ -365,7 +400,7 @@ mod tests {
         let t = catalogue_table(&entries, &[("pi", std::f64::consts::PI)]);
         assert_eq!(
             t,
-            "Functions:\n  exp(x)       exponential\n  atan2(x, y)  angle of (x, y)\n\n\
+            "Functions:\n  exp(x)       exponential\n  atan2(y, x)  angle of (x, y)\n\n\
              Constants:\n  pi  3.141592653589793\n"
         );
         assert_eq!(
@@ -375,6 +410,21 @@ mod tests {
         // The language's own catalogue: exp is there, and pi and e with their
         // values (mathematical constants to 16 digits).
         let real = models_table();
+        // atan2 is documented with the argument order the evaluation uses:
+        // atan2(1, 0) is the angle of the point (0, 1), pi/2 (ISO C 7.12.4.4,
+        // atan2(y, x)); the catalogue line names y first.
+        let t = crate::model::compile(
+            "atan2(a, b)",
+            &crate::model::Symbols {
+                parameters: &["a".to_string(), "b".to_string()],
+                constants: &[],
+                variables: &[],
+            },
+        )
+        .unwrap();
+        assert!((t.eval_point(&[1.0, 0.0], &[]).0 - std::f64::consts::FRAC_PI_2).abs() < 1e-15);
+        assert!(t.eval_point(&[0.0, -1.0], &[]).0 == std::f64::consts::PI);
+        assert!(real.lines().any(|l| l.starts_with("  atan2(y, x) ")), "{real}");
         assert!(real.lines().any(|l| l.starts_with("  exp(x) ")), "{real}");
         assert!(real.lines().any(|l| l == "  pi  3.141592653589793"), "{real}");
         assert!(

@@ -392,6 +392,8 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
         audit: spec.audit.clone(),
         model,
         joint: Some(joint),
+        report: spec.report,
+        sigma_spec: None,
         derived,
         inverse: Vec::new(),
         inverse_model: None,

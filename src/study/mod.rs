@@ -66,7 +66,8 @@ pub use self::csv::{parse_raw, read_csv, RawTable, Table};
 pub use self::error::{At, Shadow, StudyError};
 pub use self::joint::DatasetEntry;
 pub use self::spec::{
-    DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec,
+    AxisScale, DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, ReportSpec, SigmaSpec,
+    StudySpec,
 };
 
 use crate::data::Dataset;
@@ -101,6 +102,10 @@ pub struct Study {
     pub audit: AuditSettings,
     /// `[fit]`, resolved.
     pub fit_options: FitOptions,
+    /// `[report]`: how the figures are drawn.
+    pub report: ReportSpec,
+    /// `data.sigma` as written (a column name or one number), for `check`.
+    pub sigma_spec: Option<SigmaSpec>,
     /// The compiled formula (with several `[[datasets]]`: the first data
     /// set's formula over all parameters; fits use [`Study::model_fn`]).
     pub model: Tape,
@@ -961,6 +966,8 @@ fn finish(
             ..options
         },
         audit: spec.audit,
+        report: spec.report,
+        sigma_spec: spec.data.sigma.clone(),
         model: tape,
         joint: None,
         derived,

@@ -56,6 +56,9 @@ pub struct StudySpec {
     /// `[fit]`: optimiser settings.
     #[serde(default)]
     pub fit: FitSpec,
+    /// `[report]`: how the figures are drawn.
+    #[serde(default)]
+    pub report: ReportSpec,
     /// The study file this spec was read from (or a virtual name); not part
     /// of the file.
     #[serde(skip)]
@@ -63,6 +66,34 @@ pub struct StudySpec {
     /// Where each key sits in the study file; empty for a spec built in code.
     #[serde(skip)]
     pub locations: Locations,
+}
+
+/// `[report]`: presentation settings of the figures; they change no
+/// number of the audit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReportSpec {
+    /// Scale of the independent-variable axis of the data figures.
+    #[serde(default)]
+    pub x_axis: AxisScale,
+    /// Scale of the response axis of the data figure.
+    #[serde(default)]
+    pub y_axis: AxisScale,
+}
+
+/// Scale of a figure axis.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AxisScale {
+    /// Logarithmic when every value drawn is positive and they span more
+    /// than two decades (largest over smallest above 100), else linear.
+    #[default]
+    Auto,
+    /// Linear.
+    Linear,
+    /// Logarithmic (base 10); values at or below zero are left out and
+    /// the caption says how many.
+    Log,
 }
 
 /// `[data]`.
@@ -365,6 +396,7 @@ impl StudySpec {
             datasets: Vec::new(),
             audit: AuditSettings::default(),
             fit: FitSpec::default(),
+            report: ReportSpec::default(),
             origin: PathBuf::new(),
             locations: Locations::default(),
         }
@@ -671,5 +703,31 @@ pub(super) mod one_or_many {
             }
         }
         d.deserialize_any(Vis)
+    }
+}
+
+#[cfg(test)]
+mod report_table_tests {
+    use super::*;
+
+    const BASE: &str = "[data]\nfile = \"d.csv\"\nx = \"t\"\ny = \"y\"\n[model]\nformula = \"a*t\"\n[parameters]\na = { start = 1 }\n";
+
+    #[test]
+    fn report_table_sets_axis_scales_and_rejects_unknown_keys() {
+        let spec = StudySpec::from_toml_str(BASE, Path::new("s.toml")).unwrap();
+        assert_eq!(spec.report, ReportSpec::default());
+        assert_eq!(spec.report.x_axis, AxisScale::Auto);
+        let text = format!("{BASE}[report]\nx_axis = \"log\"\ny_axis = \"linear\"\n");
+        let spec = StudySpec::from_toml_str(&text, Path::new("s.toml")).unwrap();
+        assert_eq!(spec.report.x_axis, AxisScale::Log);
+        assert_eq!(spec.report.y_axis, AxisScale::Linear);
+        // A typo is an error naming the key.
+        let text = format!("{BASE}[report]\nx_axes = \"log\"\n");
+        let err = StudySpec::from_toml_str(&text, Path::new("s.toml"))
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("x_axes"), "{err}");
+        let text = format!("{BASE}[report]\nx_axis = \"logarithmic\"\n");
+        assert!(StudySpec::from_toml_str(&text, Path::new("s.toml")).is_err());
     }
 }

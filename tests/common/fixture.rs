@@ -559,6 +559,7 @@ pub fn cooling() -> AuditResults {
         bands,
         datasets: Vec::new(),
         reduction: None,
+        report: Default::default(),
     }
 }
 
