@@ -17,6 +17,7 @@ pub mod inverse;
 pub mod marching;
 pub mod monte_carlo;
 pub mod multistart;
+pub mod nonlinearity;
 pub mod profile;
 mod profile_scan;
 pub mod resample;

@@ -65,6 +65,10 @@
 //!     quantile at `(1 + p) / 2`: the factor by which `u` would have to be
 //!     multiplied for a normal estimate to cover `L`); `|w - 1| > tol` ->
 //!     *doubtful*, beyond [`SD_FAIL_FACTOR`]` * tol` -> *fails*.
+//! An eleventh rule, `nonlinearity`, never decides: [`super::nonlinearity::cite`]
+//! adds the curvature measures and Box's bias (with status *holds*) to the
+//! reasons of a parameter that a profile, spread, runaway or percentile
+//! rule already doubts, as the explanation of the disagreement.
 //!
 //! **The interval to quote** ([`Quote`]): `value +- k u` (`k` the coverage
 //! factor of the analytic interval at the level) when the verdict holds;
@@ -133,6 +137,10 @@ pub enum Rule {
     GoodnessOfFit,
     /// Simulated coverage of `value +- k u` against the level.
     Coverage,
+    /// The curvature measures or Box's bias explain a disagreement another
+    /// rule found (never decides: status always holds; see
+    /// [`super::nonlinearity::cite`]).
+    Nonlinearity,
 }
 
 /// The part of the audit a finding reads.

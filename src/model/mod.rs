@@ -60,11 +60,15 @@ use std::fmt;
 
 mod catalogue;
 mod graph;
+pub mod joint;
 mod ops;
 mod parser;
+mod second;
 mod tape;
 
+pub use joint::{JointModel, JointPart};
 pub use parser::MAX_DEPTH;
+pub use second::{n_pairs, pair_index};
 
 /// The first point at which a model value or derivative was not finite.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -107,6 +111,24 @@ pub trait ModelFn: Sync {
     /// then falls back to the start's magnitude.
     fn positions(&self) -> Vec<Option<usize>> {
         Vec::new()
+    }
+
+    /// Exact second derivatives with respect to the parameters, when the
+    /// model has them: fills `values` and `hess[pair_index(j, k) * n + i]
+    /// = d^2 f(x_i) / (d a_j d a_k)` (packed lower triangle, length
+    /// `n * n_pairs(n_params())`) and returns `Some` with the outcome.
+    /// The default returns `None` (no exact second derivatives); the
+    /// curvature measures then take central differences of the exact
+    /// Jacobian instead and say so (`second_derivatives` in results.json).
+    fn hessian(
+        &self,
+        _params: &[f64],
+        _x: &[&[f64]],
+        _values: &mut [f64],
+        _hess: &mut [f64],
+        _scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
+        None
     }
 }
 
@@ -304,6 +326,7 @@ pub struct Tape {
     positions: Vec<Option<usize>>,
     value_prog: tape::Program,
     full_prog: tape::Program,
+    second: second::Second,
 }
 
 impl Tape {
@@ -398,6 +421,18 @@ impl ModelFn for Tape {
     fn positions(&self) -> Vec<Option<usize>> {
         self.positions.clone()
     }
+
+    /// Symbolic second derivatives ([`Tape::eval_hessian`]).
+    fn hessian(
+        &self,
+        params: &[f64],
+        x: &[&[f64]],
+        values: &mut [f64],
+        hess: &mut [f64],
+        scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
+        Some(self.eval_hessian(params, x, values, hess, scratch))
+    }
 }
 
 /// Compiles a formula against the given names.
@@ -421,6 +456,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
     }
     let value_prog = tape::Program::lower(&g, &roots[..1]);
     let full_prog = tape::Program::lower(&g, &roots);
+    let second = second::Second::new(g, roots, used.clone());
     Ok(Tape {
         formula: formula.to_string(),
         n_params,
@@ -429,6 +465,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
         positions,
         value_prog,
         full_prog,
+        second,
     })
 }
 

@@ -5,6 +5,7 @@
 
 use plotters::style::text_anchor::{HPos, Pos, VPos};
 
+use super::palette::{Series as Kind, BLACK, BLUE};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -15,12 +16,14 @@ use crate::report::{format, ReportError};
 /// Points `(x, coverage, standard error)` of one interval kind.
 type Series = (CoverageKind, Vec<(f64, f64, f64)>);
 
-/// The marker of each interval kind.
+/// The marker of each interval kind: the palette's analytic and profile
+/// styles, and blue squares for the quoted interval (a colour and shape no
+/// other series of this figure uses).
 fn mark(kind: CoverageKind) -> Mark {
     match kind {
-        CoverageKind::Analytic => Mark::new(Shape::Circle, 4, 0, true),
-        CoverageKind::Profile => Mark::new(Shape::Triangle, 4, 0, false),
-        CoverageKind::Quote => Mark::new(Shape::Diamond, 4, 80, true),
+        CoverageKind::Analytic => Mark::of(Kind::Analytic, 4, true),
+        CoverageKind::Profile => Mark::of(Kind::Profile, 4, true),
+        CoverageKind::Quote => Mark::new(Shape::Square, 4, BLUE, true),
     }
 }
 
@@ -80,17 +83,18 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         format::sig(CLEAR_SE, 2)
     );
     let width = (360 + 120 * c.parameters.len() as u32).min(900);
-    let text = svg::render(&file, (width + svg::LEGEND_WIDTH, 460), |root| {
-        let (plot, side) = root.split_horizontally(width);
+    let legend_h = svg::legend_height(5).max(svg::LEGEND_HEIGHT);
+    let text = svg::render(&file, (width, 460 + legend_h), |root| {
+        let (plot, side) = root.split_vertically(460);
         let title = format!("Simulated coverage ({} data sets)", c.run - c.failed);
         let mut ch = svg::chart(&plot, Some(&title), xr, yr, "parameter", "coverage")?;
         ch.lines(
             &[vec![(xr.0, level), (xr.1, level)]],
-            Stroke::new(Dash::Dashed, 2, 0),
+            Stroke::new(Dash::Dashed, 2, BLACK),
             Some(&nominal),
         )?;
         // The 3-SE band of each slot, as short dotted bars above and below.
-        let dotted = Stroke::new(Dash::Dotted, 1, 100);
+        let dotted = Stroke::of(Kind::Threshold, 1);
         let mut lines = Vec::new();
         for &(x, se) in &band {
             for sign in [-1.0, 1.0] {
@@ -100,7 +104,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         }
         ch.lines(&lines, dotted, Some(&band_label))?;
         for (kind, pts) in &series {
-            ch.error_bars(pts, 0)?;
+            ch.error_bars(pts, mark(*kind).ink)?;
             let xy: Vec<(f64, f64)> = pts.iter().map(|&(x, y, _)| (x, y)).collect();
             let label = match kind {
                 CoverageKind::Analytic => "value \u{b1} k u (bar: \u{b1} 1 SE)",
@@ -126,8 +130,8 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         title: "Simulated coverage of the intervals".to_string(),
         caption: format!(
             "For each parameter, the share of data sets simulated at the fit whose interval contains \
-             the fitted value: value \u{b1} k u (filled circles), the profile interval (triangles) and the \
-             quoted interval (diamonds), each with its binomial standard error, against the nominal \
+             the fitted value: value \u{b1} k u (diamonds), the profile interval (triangles) and the \
+             quoted interval (squares), each with its binomial standard error, against the nominal \
              level (dashed); an exact interval stays within the dotted marks ({} standard errors) but \
              about 3 times in 1000.",
             format::sig(CLEAR_SE, 2)
