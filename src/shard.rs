@@ -337,6 +337,66 @@ mod tests {
     }
 
     #[test]
+    fn coverage_outcomes_keep_every_f64_bit_for_bit() {
+        use crate::diagnostics::coverage::{ProfileEnds, ReplicateIntervals};
+        use crate::diagnostics::verdict::{NoQuote, QuoteKind};
+        // An open profile end carries a non-finite end; the part must give
+        // back the same bits (CBOR, RFC 8949, stores binary64 as is).
+        let o = ReplicateOutcome {
+            index: 3,
+            failed: None,
+            parameters: vec![
+                ReplicateIntervals {
+                    analytic: Some([0.1 + 0.2, -0.0]),
+                    profile: Some(ProfileEnds {
+                        lower: f64::NAN,
+                        upper: f64::INFINITY,
+                        open_below: true,
+                        open_above: false,
+                    }),
+                    quote: Some((QuoteKind::Profile, [5e-324, f64::NEG_INFINITY])),
+                    no_quote: None,
+                },
+                ReplicateIntervals {
+                    analytic: None,
+                    profile: None,
+                    quote: None,
+                    no_quote: Some(NoQuote::Undetermined),
+                },
+            ],
+            refits: 17,
+        };
+        let failed = ReplicateOutcome {
+            index: 4,
+            failed: Some("not-converged".into()),
+            parameters: Vec::new(),
+            refits: 1,
+        };
+        let p = Pieces::new(10, 3..5, vec![o.clone(), failed.clone()]);
+        let mut bytes = Vec::new();
+        ciborium::into_writer(&p, &mut bytes).unwrap();
+        let back: Pieces<ReplicateOutcome> = ciborium::from_reader(bytes.as_slice()).unwrap();
+        let bits = |o: &ReplicateOutcome| -> Vec<u64> {
+            let mut v = Vec::new();
+            for iv in &o.parameters {
+                v.extend(iv.analytic.iter().flatten().map(|x| x.to_bits()));
+                if let Some(pe) = iv.profile {
+                    v.extend([pe.lower.to_bits(), pe.upper.to_bits()]);
+                }
+                v.extend(iv.quote.iter().flat_map(|q| q.1).map(|x| x.to_bits()));
+            }
+            v
+        };
+        assert_eq!(bits(&back.items[0]), bits(&o));
+        assert_eq!(bits(&o).len(), 6);
+        assert_eq!(back.items[1], failed);
+        assert_eq!((back.total, back.start), (10, 3));
+        assert_eq!(back.items[0].parameters[1], o.parameters[1]);
+        let pe = back.items[0].parameters[0].profile.unwrap();
+        assert!(pe.open_below && !pe.open_above);
+    }
+
+    #[test]
     fn join_refuses_gaps_and_overlaps() {
         let p = |s: usize, v: Vec<u8>| Pieces {
             total: 4,

@@ -86,7 +86,12 @@ fn merge(parts: &[PathBuf], out: &Path) -> std::process::Output {
 #[test]
 fn merges_of_1_2_3_and_7_shards_equal_the_single_run_bit_for_bit() {
     let dir = tempfile::tempdir().unwrap();
-    let study = write_study(dir.path(), "decay", "");
+    // The coverage simulation too (10 data sets: shard 7/7 gets one or two).
+    let study = write_study(
+        dir.path(),
+        "decay",
+        "coverage = { enabled = true, replicates = 10 }\n",
+    );
     let single = dir.path().join("single");
     fitaudit()
         .arg("audit")
@@ -97,9 +102,24 @@ fn merges_of_1_2_3_and_7_shards_equal_the_single_run_bit_for_bit() {
         .success();
     let (want_text, want) = stripped(&single.join("results.json"));
     // The record holds every diagnostic, so each one's slicing is checked.
-    for key in ["bootstrap", "monte_carlo", "profile", "contours", "multistart"] {
+    for key in [
+        "bootstrap",
+        "monte_carlo",
+        "profile",
+        "contours",
+        "multistart",
+        "coverage",
+    ] {
         assert!(!want[key].is_null(), "{key} missing from the single run");
     }
+    // Every simulated data set is counted once: run = replicates.
+    assert_eq!(want["coverage"]["replicates"], 10);
+    assert_eq!(want["coverage"]["run"], 10);
+    assert!(want["diagnostics_run"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|d| d == "coverage"));
     assert_eq!(
         want["bootstrap"]["estimates"].as_array().unwrap().len()
             + want["bootstrap"]["failed"].as_u64().unwrap() as usize,
@@ -121,7 +141,13 @@ fn merges_of_1_2_3_and_7_shards_equal_the_single_run_bit_for_bit() {
         assert_eq!(got, want, "merge of {n} shards differs from the single run");
         assert_eq!(text, want_text, "merge of {n} shards: results.json text differs");
         // The same report files as the single run.
-        for f in ["report.html", "summary.md", "bands.csv", "figures/fit.svg"] {
+        for f in [
+            "report.html",
+            "summary.md",
+            "bands.csv",
+            "figures/fit.svg",
+            "figures/coverage.svg",
+        ] {
             assert!(out.join(f).is_file(), "{f} missing after merging {n} shards");
         }
         assert_eq!(
