@@ -5,7 +5,6 @@
 use crate::audit::AuditResults;
 use crate::diagnostics::coverage::{CoverageKind, CoverageResult, IntervalCoverage};
 use crate::diagnostics::verdict::{self, Status};
-use crate::report::findings::no_quote_words;
 use crate::report::format;
 use crate::report::tables::Table;
 
@@ -49,7 +48,9 @@ pub fn assessment(ic: &IntervalCoverage, level: f64, tol: f64) -> String {
 
 /// The coverage table, when the simulation ran: parameter, interval,
 /// coverage +- SE, nominal level, data sets, misses below / above, open
-/// profile ends, and the assessment (for the quote, the kinds quoted).
+/// profile ends, the assessment, and (for the quote) the kinds quoted.
+/// Cells stay short so that summary.md can split the table to its line
+/// width ([`crate::report::markdown::table_fitting`]).
 pub fn table(results: &AuditResults) -> Option<Table> {
     let c: &CoverageResult = results.coverage.as_ref()?;
     let tol = results.settings.tolerance;
@@ -62,6 +63,7 @@ pub fn table(results: &AuditResults) -> Option<Table> {
         "Missed below / above",
         "Open ends below / above",
         "Assessment",
+        "Quoted",
     ];
     let mut rows = Vec::new();
     for p in &c.parameters {
@@ -80,16 +82,15 @@ pub fn table(results: &AuditResults) -> Option<Table> {
             } else {
                 format::ABSENT.to_string()
             };
-            let note = if ic.kind == CoverageKind::Quote {
+            let quoted = if ic.kind == CoverageKind::Quote {
                 let kinds: Vec<String> = ic
                     .quotes
                     .iter()
                     .map(|(k, n)| format!("{} {n}", quote_key_words(k)))
                     .collect();
-                let a = assessment(ic, c.level, tol);
-                format!("{a}; quoted: {}", kinds.join(", "))
+                kinds.join(", ")
             } else {
-                assessment(ic, c.level, tol)
+                format::ABSENT.to_string()
             };
             rows.push(vec![
                 p.name.clone(),
@@ -99,7 +100,8 @@ pub fn table(results: &AuditResults) -> Option<Table> {
                 sets,
                 format!("{} / {}", ic.missed_below, ic.missed_above),
                 open,
-                note,
+                assessment(ic, c.level, tol),
+                quoted,
             ]);
         }
     }
@@ -109,12 +111,12 @@ pub fn table(results: &AuditResults) -> Option<Table> {
     })
 }
 
-/// A key of `quotes` in words (`analytic`, `profile`, `none: <reason>`).
-fn quote_key_words(key: &str) -> String {
+/// A key of `quotes` in short words (`analytic`, `profile`, `none:
+/// <reason>`, the reason's code with spaces; the verdict table gives the
+/// reason in full).
+pub fn quote_key_words(key: &str) -> String {
     match key.strip_prefix("none: ") {
-        Some(code) => serde_json::from_value::<verdict::NoQuote>(serde_json::Value::String(code.into()))
-            .map(|n| no_quote_words(n).to_string())
-            .unwrap_or_else(|_| key.to_string()),
+        Some(code) => format!("none: {}", code.replace('-', " ")),
         None => key.to_string(),
     }
 }
