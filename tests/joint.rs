@@ -745,3 +745,61 @@ fn the_residual_bootstrap_resamples_each_data_sets_own_residuals() {
     }
     assert!(b.parameters[1].std > 5.0 * b.parameters[0].std);
 }
+
+#[test]
+fn coverage_runs_on_a_joint_study_and_two_lines_cover_at_the_level() {
+    use fitaudit::diagnostics::coverage::CoverageKind;
+    // The joint model is an ordinary model of the stacked data (the
+    // data-set column travels with every simulated point), so the coverage
+    // simulation needs nothing of its own. Two straight lines sharing a
+    // slope are linear in (a1, b, a2) with stated sigma: the estimate is
+    // exactly normal with the covariance (J^T W J)^-1 (Gauss-Markov, normal
+    // errors), so value +- k u covers with probability L exactly, and the
+    // profile's chi-squared is exactly quadratic, so its interval is the
+    // same one (mathematical identities).
+    let dir = lines_folder();
+    let mut s = load(dir.path(), "study.toml");
+    s.audit.coverage.replicates = 300;
+    let options = AuditOptions {
+        only: vec![Diagnostic::Coverage],
+        ..AuditOptions::default()
+    };
+    let input = audit::input_from_study(&s);
+    let r = audit::run(&input, &options, &NoProgress).unwrap();
+    let c = r.coverage.as_ref().expect("coverage ran on the joint study");
+    assert_eq!((c.replicates, c.run, c.failed), (300, 300, 0));
+    assert_eq!(c.parameters.len(), 3);
+    let level = r.settings.level;
+    for p in &c.parameters {
+        let an = p.kind(CoverageKind::Analytic).unwrap();
+        let pr = p.kind(CoverageKind::Profile).unwrap();
+        assert_eq!(an.counted, 300, "{}", p.name);
+        // Within 3 binomial standard errors of an exact interval
+        // (sqrt(L (1 - L) / 300) = 0.027 at L = 0.6827).
+        assert!(
+            (an.coverage - level).abs() < 3.0 * an.null_std_error,
+            "{}: {} against {level}",
+            p.name,
+            an.coverage
+        );
+        // The profile interval equals value +- k u here: the same data sets
+        // are covered, but for one on the edge of rounding.
+        assert!(
+            (pr.covered as i64 - an.covered as i64).abs() <= 1,
+            "{}: profile {} analytic {}",
+            p.name,
+            pr.covered,
+            an.covered
+        );
+        assert_eq!(pr.open_below + pr.open_above, 0);
+    }
+    // The coverage rule speaks on every parameter and finds no departure.
+    for v in &r.verdicts {
+        let f = v
+            .findings
+            .iter()
+            .find(|f| f.rule == fitaudit::diagnostics::verdict::Rule::Coverage)
+            .unwrap_or_else(|| panic!("{}: no coverage finding", v.parameter));
+        assert_eq!(f.status, fitaudit::diagnostics::verdict::Status::Holds);
+    }
+}

@@ -65,6 +65,7 @@
 //!     quantile at `(1 + p) / 2`: the factor by which `u` would have to be
 //!     multiplied for a normal estimate to cover `L`); `|w - 1| > tol` ->
 //!     *doubtful*, beyond [`SD_FAIL_FACTOR`]` * tol` -> *fails*.
+//!
 //! An eleventh rule, `nonlinearity`, never decides: [`super::nonlinearity::cite`]
 //! adds the curvature measures and Box's bias (with status *holds*) to the
 //! reasons of a parameter that a profile, spread, runaway or percentile
