@@ -46,7 +46,8 @@ pub fn assessment(ic: &IntervalCoverage, level: f64, tol: f64) -> String {
     }
 }
 
-/// The coverage table, when the simulation ran: parameter, interval,
+/// The coverage table, when the simulation ran: parameter and interval
+/// (one column, so that each part of a split table names its row),
 /// coverage +- SE, nominal level, data sets, misses below / above, open
 /// profile ends, the assessment, and (for the quote) the kinds quoted.
 /// Cells stay short so that summary.md can split the table to its line
@@ -55,8 +56,7 @@ pub fn table(results: &AuditResults) -> Option<Table> {
     let c: &CoverageResult = results.coverage.as_ref()?;
     let tol = results.settings.tolerance;
     let header = [
-        "Parameter",
-        "Interval",
+        "Parameter: interval",
         "Coverage \u{b1} SE",
         "Nominal",
         "Data sets",
@@ -93,8 +93,7 @@ pub fn table(results: &AuditResults) -> Option<Table> {
                 format::ABSENT.to_string()
             };
             rows.push(vec![
-                p.name.clone(),
-                kind_words(ic.kind).to_string(),
+                format!("{}: {}", p.name, kind_words(ic.kind)),
                 cov,
                 format!("{:.4}", c.level),
                 sets,

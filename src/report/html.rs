@@ -329,7 +329,7 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     nonlinearity_part(&mut o, results);
     if let Some(t) = crate::report::coverage::table(results) {
         o.push_str("<h3 id=\"coverage\">Coverage simulated at the fit</h3>\n");
-        table(&mut o, &t, &[2, 3, 4, 5, 6], Some("wide"));
+        table(&mut o, &t, &[1, 2, 3, 4, 5], Some("wide"));
         let line = crate::report::coverage::summary_line(results).unwrap_or_default();
         let _ = writeln!(
             o,
