@@ -78,11 +78,11 @@ struct AuditArgs {
     #[arg(long, value_delimiter = ',', value_parser = parse_diagnostic)]
     only: Option<Vec<Diagnostic>>,
     /// Replicates of both bootstrap and Monte Carlo (overrides the study).
-    #[arg(long, value_parser = parse_positive)]
+    #[arg(long, value_parser = parse_replicates)]
     replicates: Option<usize>,
     /// Starts of the first multi-start batch (overrides the study; batches
     /// are added up to audit.multistart.max_starts).
-    #[arg(long, value_parser = parse_positive)]
+    #[arg(long, value_parser = parse_starts)]
     starts: Option<usize>,
     /// Seed of every random stream (overrides the study).
     #[arg(long)]
@@ -136,8 +136,25 @@ fn parse_positive(s: &str) -> Result<usize, String> {
     }
 }
 
+/// A positive whole number of at most `max`.
+fn parse_at_most(s: &str, max: usize) -> Result<usize, String> {
+    let n = parse_positive(s)?;
+    if n > max {
+        return Err(format!("{n} is more than the largest allowed, {max}"));
+    }
+    Ok(n)
+}
+
+fn parse_replicates(s: &str) -> Result<usize, String> {
+    parse_at_most(s, fitaudit::settings::MAX_REPLICATES)
+}
+
+fn parse_starts(s: &str) -> Result<usize, String> {
+    parse_at_most(s, fitaudit::settings::MAX_STARTS)
+}
+
 fn parse_threads(s: &str) -> Result<usize, String> {
-    parse_positive(s).map_err(|e| format!("thread count {e}"))
+    parse_at_most(s, cli_support::MAX_THREADS).map_err(|e| format!("thread count: {e}"))
 }
 
 fn main() -> ExitCode {
@@ -146,7 +163,7 @@ fn main() -> ExitCode {
         Ok(code) => code,
         Err(err) => {
             let code = classify(&err);
-            eprintln!("error: {}", message(&err));
+            eprintln!("error: {}", cli_support::terminal_safe(&message(&err)));
             ExitCode::from(code)
         }
     }
@@ -237,9 +254,21 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         .out
         .clone()
         .unwrap_or_else(|| Path::new("out").join(cli_support::folder_name(&study.name)));
-    fitaudit::output::preflight(&out)?;
+    let mut inputs: Vec<&Path> = vec![&study.path];
+    if let Some(d) = &study.data_file {
+        inputs.push(d);
+    }
+    fitaudit::output::preflight_protecting(&out, &inputs)?;
+    let mut only = args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec());
+    // `--only profile,profile` runs (and records) the profile once.
+    let mut seen = Vec::new();
+    only.retain(|d| {
+        let new = !seen.contains(d);
+        seen.push(*d);
+        new
+    });
     let options = AuditOptions {
-        only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
+        only,
         command_line: command_line(),
         write_replicates: args.replicates_csv,
     };
@@ -282,16 +311,26 @@ fn message(err: &anyhow::Error) -> String {
     text
 }
 
-/// Writes to stdout; a closed pipe (e.g. `| head`) ends the program quietly.
+/// Writes to stdout; a closed pipe (e.g. `| head`) ends the program
+/// quietly; any other failure (a full disk, `> /dev/full`) is an error
+/// naming standard output.
 fn emit(text: &str) -> anyhow::Result<()> {
     use std::io::Write;
     let mut out = std::io::stdout().lock();
     match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
         Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => std::process::exit(0),
-        other => Ok(other?),
+        Err(e) => Err(anyhow::anyhow!(
+            "cannot write the results to standard output: {e}"
+        )),
+        Ok(()) => Ok(()),
     }
 }
 
+/// The command line as recorded in the report, control characters
+/// neutralised.
 fn command_line() -> String {
-    std::env::args().collect::<Vec<_>>().join(" ")
+    let args: Vec<String> = std::env::args_os()
+        .map(|a| a.to_string_lossy().into_owned())
+        .collect();
+    fitaudit::study::neutralise(&args.join(" ")).into_owned()
 }
