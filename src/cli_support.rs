@@ -33,13 +33,11 @@ pub fn terminal_safe(text: &str) -> String {
         if i > 0 {
             out.push('\n');
         }
-        let mut shown = 0;
-        for c in line.chars() {
+        for (shown, c) in line.chars().enumerate() {
             if shown == MAX_MESSAGE_LINE {
                 out.push_str(&format!("... ({} characters)", line.chars().count()));
                 break;
             }
-            shown += 1;
             if crate::study::is_unsafe_char(c) && c != '\t' {
                 out.push_str(&format!("\\u{{{:x}}}", c as u32));
             } else {

@@ -70,24 +70,27 @@ enum Command {
 struct AuditArgs {
     /// Study file (TOML).
     study: PathBuf,
-    /// Output folder [default: out/<study name>/].
+    /// Output folder [default: out/<study name>/]. Must not be a link, nor
+    /// hold anything fitaudit did not write, nor contain the study or data.
     #[arg(long)]
     out: Option<PathBuf>,
     /// Comma-separated diagnostics to run: bootstrap, monte-carlo, profile,
     /// contours, multistart [default: all].
     #[arg(long, value_delimiter = ',', value_parser = parse_diagnostic)]
     only: Option<Vec<Diagnostic>>,
-    /// Replicates of both bootstrap and Monte Carlo (overrides the study).
+    /// Replicates of both bootstrap and Monte Carlo (overrides the study;
+    /// at most 1000000).
     #[arg(long, value_parser = parse_replicates)]
     replicates: Option<usize>,
     /// Starts of the first multi-start batch (overrides the study; batches
-    /// are added up to audit.multistart.max_starts).
+    /// are added up to audit.multistart.max_starts; at most 100000).
     #[arg(long, value_parser = parse_starts)]
     starts: Option<usize>,
     /// Seed of every random stream (overrides the study).
     #[arg(long)]
     seed: Option<u64>,
-    /// Worker threads (default: all cores); results do not depend on it.
+    /// Worker threads (default: all cores; at most 256); results do not
+    /// depend on it.
     #[arg(long, value_parser = parse_threads)]
     threads: Option<usize>,
     /// No progress output on stderr.

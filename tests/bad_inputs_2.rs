@@ -527,8 +527,8 @@ fn cases() -> Vec<Case> {
         Case {
             study: replace("x = \"t\"", "x = []"),
             args: args(CHECK),
-            expect: &["data.x", "names no column"],
-            ..base("x = []")
+            expect: &["data.x", "names no column (`x = []`), yet the formula uses `t`"],
+            ..base("x = [] with a formula that uses a column")
         },
         Case {
             study: replace("a = { start = 1.0 }", "a = { start = 1.0, fixed = true }").map(|s| {

@@ -680,13 +680,6 @@ fn dataset_from_table(
             format!("data.x[{i}]")
         }
     };
-    if d.x.is_empty() {
-        return Err(invalid(
-            spec,
-            "data.x",
-            "names no column: name the independent-variable column(s), e.g. `x = \"t\"`",
-        ));
-    }
     let mut x_idx = Vec::with_capacity(d.x.len());
     for (i, name) in d.x.iter().enumerate() {
         let key = x_key(i);
@@ -1114,6 +1107,17 @@ fn finish(
         variables: &dataset.x_names,
     };
     let tape = model::compile(&spec.model.formula, &symbols).map_err(|e| match e.kind {
+        // `x = []` (a model of the parameters alone, such as a weighted
+        // mean) with a formula that uses a name: the empty key is the culprit.
+        ModelErrorKind::UnknownName { name, .. } if dataset.x_names.is_empty() => invalid(
+            &spec,
+            "data.x",
+            format!(
+                "names no column (`x = []`), yet the formula uses `{name}`: name the \
+                 independent-variable column(s) there, e.g. `x = \"{name}\"`, or declare `{name}` \
+                 as a parameter or constant"
+            ),
+        ),
         ModelErrorKind::UnknownName { name, suggestion } => StudyError::UnknownName {
             at: Box::new(formula_at(&spec, e.column)),
             name,
