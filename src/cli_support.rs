@@ -27,7 +27,7 @@ pub fn terminal_safe(text: &str) -> String {
     let lines: Vec<&str> = text.split('\n').collect();
     for (i, line) in lines.iter().enumerate() {
         if i == MAX_MESSAGE_LINES {
-            out.push_str(&format!("... ({} more lines)", lines.len() - i));
+            out.push_str(&format!("\n... ({} more lines)", lines.len() - i));
             break;
         }
         if i > 0 {

@@ -612,9 +612,19 @@ impl DirLock {
 
 /// Checks, before any work is done, that `dest` can be written: it is new,
 /// empty or an earlier fitaudit output, and its nearest existing ancestor is
-/// a folder in which a staging folder can be created. Leaves nothing behind.
+/// a folder in which a staging folder can be created. Leaves nothing behind
+/// except that it clears the stale folders of dead runs beside `dest`.
 pub fn preflight(dest: &Path) -> Result<(), OutputError> {
     check_destination(dest)?;
+    // Leftovers of dead runs beside an existing parent go first (an old
+    // report a dead run had moved aside is put back), so that the checks
+    // below see the destination as it should be.
+    let parent = parent_of(dest);
+    if fs::symlink_metadata(&parent).is_ok_and(|m| m.is_dir()) {
+        let _lock = DirLock::acquire(&parent)?;
+        clear_stale(&parent, &leaf_of(dest), dest)?;
+        check_destination(dest)?;
+    }
     let mut ancestor = dest.parent();
     while let Some(a) = ancestor {
         let a = if a.as_os_str().is_empty() {
