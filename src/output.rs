@@ -33,8 +33,8 @@
 //! A kill at any moment therefore leaves the destination holding the old
 //! report or the new one, complete, and the next run clears what is left.
 //!
-//! Testing hooks (read only by this module, documented in
-//! docs/FUZZING.md's neighbour, tests/output_faults.rs):
+//! Testing hooks (read only by this module, documented in the README and
+//! exercised by tests/output_faults.rs):
 //! `FITAUDIT_OUTPUT_FAULT=<point>` makes the process kill itself with
 //! SIGKILL at a named point of writing or replacing ([`FAULT_POINTS`]), and
 //! `FITAUDIT_OUTPUT_NO_EXCHANGE=1` forces the two-rename fallback.
