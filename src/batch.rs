@@ -364,9 +364,19 @@ pub struct Request<'a> {
     pub progress: &'a dyn Progress,
 }
 
+/// The output folder's checks before any work: a folder fitaudit may
+/// replace, which is not and does not contain one of the study files
+/// (their data files are checked as each study loads: a foreign file in
+/// the folder is refused anyway).
+fn protect_studies(req: &Request) -> Result<(), BatchError> {
+    let inputs: Vec<&Path> = req.studies.iter().map(PathBuf::as_path).collect();
+    crate::output::preflight_protecting(&req.out, &inputs)?;
+    Ok(())
+}
+
 /// Audits every study into `out/<name>/` and writes the index; returns it.
 pub fn run_batch(req: &Request) -> Result<BatchIndex, BatchError> {
-    crate::output::preflight(&req.out)?;
+    protect_studies(req)?;
     let names = folder_names(&req.studies);
     let staging = Staging::new(&req.out)?;
     let mut rows = Vec::new();
@@ -466,7 +476,7 @@ fn file_sha256(path: &Path) -> Option<String> {
 
 /// Computes shard `slice` of the run and writes its part folder.
 pub fn run_shard(req: &Request, slice: Slice, batch: bool) -> Result<PartFile, BatchError> {
-    crate::output::preflight(&req.out)?;
+    protect_studies(req)?;
     let names = folder_names(&req.studies);
     let deal = batch && req.studies.len() >= slice.n;
     let mut studies = Vec::new();

@@ -9,6 +9,57 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 
 use crate::diagnostics::Progress;
 
+/// Largest `--threads`.
+pub const MAX_THREADS: usize = 256;
+
+/// Longest line of an error message shown on the terminal, in characters.
+pub const MAX_MESSAGE_LINE: usize = 1000;
+
+/// Most lines of an error message shown on the terminal.
+pub const MAX_MESSAGE_LINES: usize = 60;
+
+/// Text made safe for a terminal: every control character other than a
+/// line feed is shown as `\u{..}` (so an escape sequence in a file name
+/// or a TOML error's quoted source line cannot drive the terminal), each
+/// line is cut at [`MAX_MESSAGE_LINE`] characters and the whole at
+/// [`MAX_MESSAGE_LINES`] lines.
+pub fn terminal_safe(text: &str) -> String {
+    let mut out = String::with_capacity(text.len().min(1 << 16));
+    let lines: Vec<&str> = text.split('\n').collect();
+    for (i, line) in lines.iter().enumerate() {
+        if i == MAX_MESSAGE_LINES {
+            out.push_str(&format!("\n... ({} more lines)", lines.len() - i));
+            break;
+        }
+        if i > 0 {
+            out.push('\n');
+        }
+        for (shown, c) in line.chars().enumerate() {
+            if shown == MAX_MESSAGE_LINE {
+                out.push_str(&format!("... ({} characters)", line.chars().count()));
+                break;
+            }
+            if crate::study::is_unsafe_char(c) && c != '\t' {
+                out.push_str(&format!("\\u{{{:x}}}", c as u32));
+            } else {
+                out.push(c);
+            }
+        }
+    }
+    out
+}
+
+/// A value shortened to at most `max` characters for an echo.
+pub fn bounded(value: &str, max: usize) -> String {
+    let n = value.chars().count();
+    if n <= max {
+        value.to_string()
+    } else {
+        let head: String = value.chars().take(max).collect();
+        format!("{head}... ({n} characters)")
+    }
+}
+
 /// Exit status for an error: 2 when the user must fix an input (study, data,
 /// formula, settings, output folder), 1 for anything else (internal).
 pub fn classify(err: &anyhow::Error) -> u8 {
@@ -264,7 +315,7 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     let d = &study.dataset;
     let _ = writeln!(s, "study      {}", study.path.display());
     if let Some(t) = &study.title {
-        let _ = writeln!(s, "title      {t}");
+        let _ = writeln!(s, "title      {}", bounded(t, 200));
     }
     if let Some(f) = &study.data_file {
         let _ = writeln!(s, "data       {} ({} points)", f.display(), d.len());
@@ -285,9 +336,9 @@ pub fn check_summary(study: &crate::study::Study) -> String {
         );
     }
     let _ = writeln!(s, "x          {}", d.x_names.join(", "));
-    let _ = writeln!(s, "y          {}", d.y_name);
-    let _ = writeln!(s, "sigma      {}", sigma_words(study));
-    let _ = writeln!(s, "formula    {}", study.formula);
+    let _ = writeln!(s, "y          {}", bounded(&d.y_name, 200));
+    let _ = writeln!(s, "sigma      {}", bounded(&sigma_words(study), 400));
+    let _ = writeln!(s, "formula    {}", bounded(&study.formula, 1000));
     for p in &study.parameters {
         let mut line = format!("parameter  {} start {}", p.name, p.start);
         if p.min.is_finite() {
@@ -321,7 +372,7 @@ pub fn check_summary(study: &crate::study::Study) -> String {
         a.multistart.starts
     );
     for w in &study.warnings {
-        let _ = writeln!(s, "warning    {w}");
+        let _ = writeln!(s, "warning    {}", bounded(&w.to_string(), 1000));
     }
     let _ = writeln!(s, "ok: the study is valid");
     s

@@ -90,7 +90,9 @@ struct AuditArgs {
     #[arg(required = true)]
     studies: Vec<PathBuf>,
     /// Output folder [default: out/<study name>/, out/batch/ for a batch,
-    /// with `.part-K-of-N` appended under --shard].
+    /// with `.part-K-of-N` appended under --shard]. Must not be a link,
+    /// nor hold anything fitaudit did not write, nor contain a study or
+    /// its data.
     #[arg(long)]
     out: Option<PathBuf>,
     /// Run only the K-th of N slices of the work (bootstrap and Monte Carlo
@@ -108,21 +110,23 @@ struct AuditArgs {
     /// default one)].
     #[arg(long, value_delimiter = ',', value_parser = parse_diagnostic)]
     only: Option<Vec<Diagnostic>>,
-    /// Replicates of both bootstrap and Monte Carlo (overrides the study).
-    #[arg(long, value_parser = parse_positive)]
+    /// Replicates of both bootstrap and Monte Carlo (overrides the study;
+    /// at most 1000000).
+    #[arg(long, value_parser = parse_replicates)]
     replicates: Option<usize>,
     /// Starts of the first multi-start batch (overrides the study; batches
-    /// are added up to audit.multistart.max_starts).
-    #[arg(long, value_parser = parse_positive)]
+    /// are added up to audit.multistart.max_starts; at most 100000).
+    #[arg(long, value_parser = parse_starts)]
     starts: Option<usize>,
     /// Seed of every random stream (overrides the study).
     #[arg(long)]
     seed: Option<u64>,
-    /// Confidence level of every interval, in (0, 1) (overrides
+    /// Confidence level of every interval, from 0.001 to 0.9999 (overrides
     /// audit.level).
     #[arg(long)]
     level: Option<f64>,
-    /// Worker threads (default: all cores); results do not depend on it.
+    /// Worker threads (default: all cores; at most 256); results do not
+    /// depend on it.
     #[arg(long, value_parser = parse_threads)]
     threads: Option<usize>,
     /// No progress output on stderr.
@@ -178,8 +182,25 @@ fn parse_seconds(s: &str) -> Result<f64, String> {
     }
 }
 
+/// A positive whole number of at most `max`.
+fn parse_at_most(s: &str, max: usize) -> Result<usize, String> {
+    let n = parse_positive(s)?;
+    if n > max {
+        return Err(format!("{n} is more than the largest allowed, {max}"));
+    }
+    Ok(n)
+}
+
+fn parse_replicates(s: &str) -> Result<usize, String> {
+    parse_at_most(s, fitaudit::settings::MAX_REPLICATES)
+}
+
+fn parse_starts(s: &str) -> Result<usize, String> {
+    parse_at_most(s, fitaudit::settings::MAX_STARTS)
+}
+
 fn parse_threads(s: &str) -> Result<usize, String> {
-    parse_positive(s).map_err(|e| format!("thread count {e}"))
+    parse_at_most(s, cli_support::MAX_THREADS).map_err(|e| format!("thread count: {e}"))
 }
 
 fn main() -> ExitCode {
@@ -188,7 +209,7 @@ fn main() -> ExitCode {
         Ok(code) => code,
         Err(err) => {
             let code = classify(&err);
-            eprintln!("error: {}", message(&err));
+            eprintln!("error: {}", cli_support::terminal_safe(&message(&err)));
             ExitCode::from(code)
         }
     }
@@ -279,8 +300,16 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
         keep_start: args.keep_start,
         level: args.level,
     };
+    let mut only = args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec());
+    // `--only profile,profile` runs (and records) the profile once.
+    let mut seen = Vec::new();
+    only.retain(|d| {
+        let new = !seen.contains(d);
+        seen.push(*d);
+        new
+    });
     let options = AuditOptions {
-        only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
+        only,
         command_line: command_line(),
         write_replicates: args.replicates_csv,
     };
@@ -293,7 +322,16 @@ fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
             .out
             .clone()
             .unwrap_or_else(|| Path::new("out").join(cli_support::folder_name(&study.name)));
-        fitaudit::output::preflight(&out)?;
+        let group_files: Vec<PathBuf> = study
+            .dataset
+            .groups
+            .iter()
+            .filter_map(|g| g.file.as_ref().map(PathBuf::from))
+            .collect();
+        let mut inputs: Vec<&Path> = vec![&study.path];
+        inputs.extend(study.data_file.as_deref());
+        inputs.extend(group_files.iter().map(PathBuf::as_path));
+        fitaudit::output::preflight_protecting(&out, &inputs)?;
         return cli_support::with_threads(args.threads, || {
             let progress = TerminalProgress::with_interval(args.quiet, interval);
             let results = audit::run(&audit::input_from_study(&study), &options, &progress)?;
@@ -386,16 +424,26 @@ fn message(err: &anyhow::Error) -> String {
     text
 }
 
-/// Writes to stdout; a closed pipe (e.g. `| head`) ends the program quietly.
+/// Writes to stdout; a closed pipe (e.g. `| head`) ends the program
+/// quietly; any other failure (a full disk, `> /dev/full`) is an error
+/// naming standard output.
 fn emit(text: &str) -> anyhow::Result<()> {
     use std::io::Write;
     let mut out = std::io::stdout().lock();
     match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
         Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => std::process::exit(0),
-        other => Ok(other?),
+        Err(e) => Err(anyhow::anyhow!(
+            "cannot write the results to standard output: {e}"
+        )),
+        Ok(()) => Ok(()),
     }
 }
 
+/// The command line as recorded in the report, control characters
+/// neutralised.
 fn command_line() -> String {
-    std::env::args().collect::<Vec<_>>().join(" ")
+    let args: Vec<String> = std::env::args_os()
+        .map(|a| a.to_string_lossy().into_owned())
+        .collect();
+    fitaudit::study::neutralise(&args.join(" ")).into_owned()
 }

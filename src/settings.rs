@@ -6,6 +6,51 @@
 
 use serde::{Deserialize, Serialize};
 
+/// Largest `audit.bootstrap.replicates`, `audit.monte_carlo.replicates`
+/// and `--replicates` (checked before anything is allocated).
+pub const MAX_REPLICATES: usize = 1_000_000;
+/// Largest `audit.multistart.starts` and `--starts`.
+pub const MAX_STARTS: usize = 100_000;
+/// Largest `audit.multistart.max_starts`.
+pub const MAX_TOTAL_STARTS: usize = 1_000_000;
+/// Largest `audit.profile.points`.
+pub const MAX_PROFILE_POINTS: usize = 2001;
+/// Largest `audit.contours.grid` (nodes per axis; a map has grid^2 nodes).
+pub const MAX_CONTOUR_GRID: usize = 201;
+/// Most `audit.contours.pairs`.
+pub const MAX_CONTOUR_PAIRS: usize = 100;
+/// Smallest `audit.level`.
+pub const MIN_LEVEL: f64 = 0.001;
+/// Largest `audit.level`.
+pub const MAX_LEVEL: f64 = 0.9999;
+
+/// Reads `audit.contours.pairs`, insisting on exactly two names per pair
+/// (a plain two-element array would drop a third name silently).
+fn exact_pairs<'de, D>(d: D) -> Result<Option<Vec<[String; 2]>>, D::Error>
+where
+    D: serde::Deserializer<'de>,
+{
+    use serde::de::Error;
+    let raw: Option<Vec<Vec<String>>> = Option::deserialize(d)?;
+    let Some(raw) = raw else {
+        return Ok(None);
+    };
+    let mut out = Vec::with_capacity(raw.len().min(MAX_CONTOUR_PAIRS + 1));
+    for (i, pair) in raw.into_iter().enumerate() {
+        match <[String; 2]>::try_from(pair) {
+            Ok(p) => out.push(p),
+            Err(p) => {
+                return Err(D::Error::custom(format!(
+                    "contour pair {} names {} parameter(s); a pair names exactly two",
+                    i + 1,
+                    p.len()
+                )))
+            }
+        }
+    }
+    Ok(Some(out))
+}
+
 /// The `[audit]` table.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
@@ -141,6 +186,7 @@ pub struct ContourSettings {
     pub grid: usize,
     /// Pairs to map; default all pairs up to 5 free parameters, else the 6
     /// most correlated.
+    #[serde(deserialize_with = "exact_pairs")]
     pub pairs: Option<Vec<[String; 2]>>,
 }
 
@@ -288,14 +334,48 @@ impl AuditSettings {
     /// Checks value ranges; returns the offending key and why.
     pub fn validate(&self) -> Result<(), (String, String)> {
         let bad = |k: &str, why: &str| Err((k.to_string(), why.to_string()));
-        if !(self.level > 0.0 && self.level < 1.0) {
-            return bad("audit.level", "must lie strictly between 0 and 1");
+        let at_most = |k: &str, v: usize, max: usize| {
+            if v > max {
+                Err((
+                    k.to_string(),
+                    format!("is {v}, more than the largest allowed, {max}"),
+                ))
+            } else {
+                Ok(())
+            }
+        };
+        if !(self.level >= MIN_LEVEL && self.level <= MAX_LEVEL) {
+            return bad(
+                "audit.level",
+                &format!("must lie between {MIN_LEVEL} and {MAX_LEVEL} (e.g. 0.6827 or 0.95)"),
+            );
         }
         if self.bootstrap.replicates < 2 {
             return bad("audit.bootstrap.replicates", "must be at least 2");
         }
+        at_most(
+            "audit.bootstrap.replicates",
+            self.bootstrap.replicates,
+            MAX_REPLICATES,
+        )?;
         if self.monte_carlo.replicates < 2 {
             return bad("audit.monte_carlo.replicates", "must be at least 2");
+        }
+        at_most(
+            "audit.monte_carlo.replicates",
+            self.monte_carlo.replicates,
+            MAX_REPLICATES,
+        )?;
+        at_most("audit.profile.points", self.profile.points, MAX_PROFILE_POINTS)?;
+        at_most("audit.contours.grid", self.contours.grid, MAX_CONTOUR_GRID)?;
+        at_most("audit.multistart.starts", self.multistart.starts, MAX_STARTS)?;
+        at_most(
+            "audit.multistart.max_starts",
+            self.multistart.max_starts,
+            MAX_TOTAL_STARTS,
+        )?;
+        if let Some(pairs) = &self.contours.pairs {
+            at_most("audit.contours.pairs", pairs.len(), MAX_CONTOUR_PAIRS)?;
         }
         if let Some(nu) = self.monte_carlo.student_t_dof {
             if !(nu.is_finite() && nu > 2.0) {

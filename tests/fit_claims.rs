@@ -147,7 +147,14 @@ fn an_amplitude_that_runs_off_towards_a_straight_line_is_a_runaway() {
     let model = tape("a + b*exp(-c*x)", &["a", "b", "c"], &["x"]);
     let mut specs = free(&["a", "b", "c"], &[1.0, -1.0, 0.5]);
     specs[2].min = 0.0;
-    let r = run(&model, specs, &data, FitOptions::default());
+    // The run-off takes thousands of iterations to show; `max_iterations`
+    // caps the whole fit (restarts included), so give it the budget that
+    // nine runs of the default 1000 had before the cap covered them all.
+    let options = FitOptions {
+        max_iterations: 9000,
+        ..FitOptions::default()
+    };
+    let r = run(&model, specs, &data, options);
     eprintln!(
         "runaway: stop {:?}, chi2 {}, values {:?}, issues {:?}",
         r.stop_reason,

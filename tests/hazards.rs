@@ -852,7 +852,7 @@ fn audit_profile_only(cwd: &Path, study: &Path, out: Option<&Path>) -> std::proc
 
 /// A folder that exists and was not written by fitaudit is refused with
 /// exit 2 and left byte for byte as it was; an earlier fitaudit output is
-/// replaced (a stale file in it disappears).
+/// replaced, unless it holds a file fitaudit did not write.
 #[test]
 fn foreign_folders_are_refused_and_earlier_outputs_replaced() {
     let tmp = tempfile::tempdir().unwrap();
@@ -872,14 +872,18 @@ fn foreign_folders_are_refused_and_earlier_outputs_replaced() {
     let out = audit_profile_only(root, &study, Some(&dest));
     assert_eq!(out.status.code(), Some(0), "{}", text(&out));
     assert!(dest.join(fitaudit::output::MARKER).is_file());
-    std::fs::write(dest.join("stale.txt"), "from an older run").unwrap();
+    // A file fitaudit did not write makes the earlier output foreign: the
+    // run is refused and the file kept (issue 21: a user's study kept in
+    // the report folder was deleted by the replace).
+    std::fs::write(dest.join("stale.txt"), "not written by fitaudit").unwrap();
     let first = std::fs::read_to_string(dest.join("results.json")).unwrap();
     let out = audit_profile_only(root, &study, Some(&dest));
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out));
+    assert!(text(&out).contains("stale.txt"), "{}", text(&out));
+    assert!(dest.join("stale.txt").exists());
+    std::fs::remove_file(dest.join("stale.txt")).unwrap();
+    let out = audit_profile_only(root, &study, Some(&dest));
     assert_eq!(out.status.code(), Some(0), "{}", text(&out));
-    assert!(
-        !dest.join("stale.txt").exists(),
-        "the earlier output was merged, not replaced"
-    );
     let second = std::fs::read_to_string(dest.join("results.json")).unwrap();
     let fit = |s: &str| serde_json::from_str::<serde_json::Value>(s).unwrap()["fit"].clone();
     assert_eq!(fit(&first), fit(&second), "same study, same fit");
@@ -997,7 +1001,12 @@ fn error_messages_do_not_repeat_their_cause() {
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("data.file"), "{err}");
-    assert_eq!(err.matches("os error").count(), 1, "{err}");
+    // A folder is refused before it is read (issue 21), once.
+    assert_eq!(
+        err.matches("it is a folder, not a regular file").count(),
+        1,
+        "{err}"
+    );
 }
 
 /// A data cell of a million digits is an error naming line and column; the

@@ -188,7 +188,7 @@ fn audit_settings_are_validated_with_their_key() {
         &e,
         &[
             "line 15, column 9",
-            "`audit.level` must lie strictly between 0 and 1",
+            "`audit.level` must lie between 0.001 and 0.9999",
         ],
     );
     let e = err(&format!("{STUDY}profile = {{ points = 3 }}\n"), CSV);

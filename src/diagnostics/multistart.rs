@@ -129,7 +129,6 @@ use crate::fit::{DataView, ParamSpec, Problem, Refitter};
 use crate::rng::{self, Stream};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
-use statrs::distribution::{ChiSquared, ContinuousCDF};
 
 /// A parameter value by name.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -558,9 +557,12 @@ impl Reference {
 
 /// The chi-squared quantile with one degree of freedom at `level`.
 pub fn threshold(level: f64) -> f64 {
-    match ChiSquared::new(1.0) {
-        Ok(d) if level > 0.0 && level < 1.0 => d.inverse_cdf(level),
-        _ => f64::INFINITY,
+    // The square of the normal quantile z_{(1+level)/2} (chi-squared with
+    // one degree of freedom is a squared standard normal).
+    if level > 0.0 && level < 1.0 {
+        crate::fit::coverage_factor(level, None).powi(2)
+    } else {
+        f64::INFINITY
     }
 }
 

@@ -21,7 +21,6 @@
 
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
-use statrs::distribution::{ChiSquared, ContinuousCDF};
 
 use super::profile_scan::{
     chi2_scale, explore, step_scale, Node, Scanner, Target, WalkEnd, SCAN_LIMIT_SCALES,
@@ -140,10 +139,10 @@ pub fn threshold_1dof(level: f64) -> f64 {
     if !(level > 0.0 && level < 1.0) {
         return f64::NAN;
     }
-    match ChiSquared::new(1.0) {
-        Ok(d) => d.inverse_cdf(level),
-        Err(_) => f64::NAN,
-    }
+    // A chi-squared variable with one degree of freedom is the square of a
+    // standard normal one, so its quantile is z_{(1+level)/2}^2. (The gamma
+    // inversion of statrs 0.18 returns NaN below a level of about 0.04.)
+    crate::fit::coverage_factor(level, None).powi(2)
 }
 
 /// The rise of a profile (in units of the chi-squared scale) at the ends

@@ -369,12 +369,17 @@ fn factor_qr(rf: &mut Refitter) -> (usize, f64) {
 /// and chi2 does not rise beyond its rounding noise. Near the minimum the
 /// Gauss-Newton step resolves the solution more finely than chi2 itself
 /// can. Returns the number of steps taken; the workspace holds the result.
-pub(crate) fn polish(rf: &mut Refitter, problem: &Problem, data: &DataView) -> (usize, f64) {
+pub(crate) fn polish(
+    rf: &mut Refitter,
+    problem: &Problem,
+    data: &DataView,
+    max_steps: usize,
+) -> (usize, f64) {
     let model = problem.model;
     let mut chi2 = dot(&rf.resid, &rf.resid);
     let mut last = f64::INFINITY;
     let mut steps = 0;
-    for _ in 0..6 {
+    for _ in 0..max_steps.min(6) {
         rf.gradient_and_active();
         if rf.active.is_empty() || chi2 == 0.0 {
             break;

@@ -305,12 +305,26 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     let start_columns = rf.start_columns().to_vec();
     let mut current = rf.params().to_vec();
     let mut holds_current = true;
+    // `max_iterations` caps the whole fit: restarts and the polish share
+    // what the first run left.
+    let cap = problem.options.max_iterations;
+    let budget = |used: usize| Problem {
+        model: problem.model,
+        params: problem.params.clone(),
+        options: super::FitOptions {
+            max_iterations: cap.saturating_sub(used),
+            ..problem.options.clone()
+        },
+    };
     for _ in 0..MAX_RESTARTS {
         if total.stop == StopReason::Gradient || total.stop == StopReason::NonFinite {
             break;
         }
+        if total.iterations >= cap {
+            break;
+        }
         let before = total.chi2;
-        let again = rf.refit(problem, &view, &current, &free);
+        let again = rf.refit(&budget(total.iterations), &view, &current, &free);
         total.iterations += again.iterations;
         total.evaluations += again.evaluations;
         holds_current = again.chi2 <= before;
@@ -330,16 +344,17 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
     if total.converged && problem.options.method == super::Method::Lm {
         // Refine the best endpoint (back into the workspace first when the
         // last restart ended elsewhere).
-        let mut ok = true;
-        if !holds_current {
-            let again = rf.refit(problem, &view, &current, &free);
+        let mut ok = total.iterations < cap;
+        if ok && !holds_current {
+            let again = rf.refit(&budget(total.iterations), &view, &current, &free);
             total.iterations += again.iterations;
             total.evaluations += again.evaluations;
             ok = again.chi2 <= total.chi2 + rf.chi2_noise(&data.y);
         }
         if ok {
             let before = rf.evaluations;
-            let (steps, chi2) = super::lm::polish(&mut rf, problem, &view);
+            let left = cap.saturating_sub(total.iterations);
+            let (steps, chi2) = super::lm::polish(&mut rf, problem, &view, left);
             total.iterations += steps;
             total.evaluations += rf.evaluations - before;
             current.copy_from_slice(rf.params());

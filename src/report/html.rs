@@ -35,7 +35,8 @@ pub const SECTIONS: [&str; 8] = [
     "Caution",
 ];
 
-/// Escapes text for HTML and XML content and attribute values.
+/// Escapes text for HTML and XML content and attribute values; control
+/// characters other than line feed and tab become U+FFFD.
 pub fn escape(s: &str) -> String {
     let mut out = String::with_capacity(s.len());
     for c in s.chars() {
@@ -45,6 +46,8 @@ pub fn escape(s: &str) -> String {
             '>' => out.push_str("&gt;"),
             '"' => out.push_str("&quot;"),
             '\'' => out.push_str("&#39;"),
+            // Characters XML forbids (or that reorder text): never raw.
+            c if c != '\n' && c != '\t' && crate::study::is_unsafe_char(c) => out.push('\u{fffd}'),
             c => out.push(c),
         }
     }

@@ -59,7 +59,7 @@ impl Table {
 /// Reads a data file and every column as numbers (for a study, only the
 /// columns it uses need to be numeric: see [`RawTable::numeric_column`]).
 pub fn read_csv(path: &Path) -> Result<Table, StudyError> {
-    let bytes = std::fs::read(path).map_err(|source| StudyError::ReadData {
+    let bytes = super::read_input(path, super::MAX_DATA_BYTES).map_err(|source| StudyError::ReadData {
         at: Box::new(At::file(path)),
         key_at: Box::new(At::file(path)),
         source,
@@ -310,6 +310,26 @@ fn is_blank(b: u8) -> bool {
 /// Parses a data file's bytes; `file` names it in errors.
 pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
     let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    // Old Mac line ends: a carriage return without a line feed ends a line.
+    let lone_cr = bytes
+        .iter()
+        .enumerate()
+        .any(|(i, &b)| b == b'\r' && bytes.get(i + 1) != Some(&b'\n'));
+    let converted: Vec<u8>;
+    let bytes = if lone_cr {
+        converted = bytes
+            .iter()
+            .enumerate()
+            .filter_map(|(i, &b)| match b {
+                b'\r' if bytes.get(i + 1) == Some(&b'\n') => None,
+                b'\r' => Some(b'\n'),
+                other => Some(other),
+            })
+            .collect();
+        &converted[..]
+    } else {
+        bytes
+    };
     let mut header: Option<(usize, Vec<String>)> = None;
     let mut delim = b',';
     let mut rows = Vec::new();
@@ -346,7 +366,25 @@ pub fn parse_raw(bytes: &[u8], file: &Path) -> Result<RawTable, StudyError> {
             }
         }
         match &header {
-            None => header = Some((lineno, cells)),
+            None => {
+                for (j, h) in cells.iter_mut().enumerate() {
+                    let n = h.chars().count();
+                    if n > super::MAX_HEADER_CHARS {
+                        return Err(StudyError::Rejected {
+                            at: Box::new(At::cell(file, lineno, j + 1)),
+                            why: format!(
+                                "the header of column {} has {n} characters; a header has at most {}",
+                                j + 1,
+                                super::MAX_HEADER_CHARS
+                            ),
+                        });
+                    }
+                    if let std::borrow::Cow::Owned(o) = super::neutralise(h) {
+                        *h = o;
+                    }
+                }
+                header = Some((lineno, cells))
+            }
             Some((hl, h)) => {
                 if cells.len() != h.len() {
                     let hint_text = if delim == b',' && cells.len() > h.len() {
@@ -472,6 +510,20 @@ mod tests {
             e.contains("line 2, column 1") && e.contains("after the closing quote"),
             "{e}"
         );
+    }
+
+    #[test]
+    fn old_mac_line_ends_end_lines() {
+        let t = p("t,y\r1,2\r\r3,4\r").unwrap();
+        assert_eq!(t.headers, vec!["t", "y"]);
+        assert_eq!(t.rows, vec![vec!["1", "2"], vec!["3", "4"]]);
+        assert_eq!(t.lines, vec![2, 4]);
+    }
+
+    #[test]
+    fn control_characters_in_headers_are_neutralised() {
+        let t = p("t\u{1b}[31m,y\u{7}\n1,2\n").unwrap();
+        assert_eq!(t.headers, vec!["t\u{fffd}[31m", "y\u{fffd}"]);
     }
 
     #[test]

@@ -286,6 +286,16 @@ pub enum StudyError {
         /// The data file.
         at: Box<At>,
     },
+    /// Content refused with a reason: a value that makes the weighted
+    /// residuals, their weights or chi-squared overflow at the start, or
+    /// line ends that are not TOML's.
+    #[error("{at}: {why}")]
+    Rejected {
+        /// The data cell (file, line, column) or the study file position.
+        at: Box<At>,
+        /// What is wrong and what to do.
+        why: String,
+    },
     /// The data file has a header but no data row.
     #[error("{at}: the data file has a header but no data rows")]
     NoDataRows {

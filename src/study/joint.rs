@@ -220,14 +220,16 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             (&key("formula"), "model.formula"),
         ]);
         let file = base_dir.join(&entry.file);
-        let bytes = std::fs::read(&file).map_err(|source| StudyError::ReadDatasetFile {
-            at: Box::new(At::file(&file)),
-            key_at: Box::new(spec.at(&key("file"))),
-            key: key("file"),
-            source,
+        let bytes = super::read_input(&file, super::MAX_DATA_BYTES).map_err(|source| {
+            StudyError::ReadDatasetFile {
+                at: Box::new(At::file(&file)),
+                key_at: Box::new(spec.at(&key("file"))),
+                key: key("file"),
+                source,
+            }
         })?;
         let raw = parse_raw(&bytes, &file)?;
-        let data = dataset_from_table(&sub, &raw).map_err(|e| rekey(e, &prefix))?;
+        let (data, _, _) = dataset_from_table(&sub, &raw).map_err(|e| rekey(e, &prefix))?;
         if data.is_empty() {
             return Err(StudyError::NoDataRows {
                 at: Box::new(At::file(&file)),

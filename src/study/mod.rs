@@ -152,9 +152,119 @@ impl fmt::Display for StudyWarning {
     }
 }
 
+/// Largest study file read, in bytes.
+pub const MAX_STUDY_BYTES: u64 = 1 << 20;
+
+/// Largest data file read, in bytes (64 MiB: some two million rows of
+/// three numbers; the 1e6-point benchmarks read about 25 MB).
+pub const MAX_DATA_BYTES: u64 = 64 << 20;
+
+/// Longest `title`, in characters.
+pub const MAX_TITLE_CHARS: usize = 1000;
+
+/// Longest name of a parameter, constant, derived quantity, column alias
+/// or x column, in characters (names become figure file names).
+pub const MAX_NAME_CHARS: usize = 64;
+
+/// Longest column header of a data file, and longest `data.y` or
+/// `data.sigma` column name or `[[inverse]]` name, in characters.
+pub const MAX_HEADER_CHARS: usize = 1000;
+
+/// Built-in constants of the formula language, which no name may shadow.
+pub const BUILTIN_CONSTANTS: [&str; 2] = ["pi", "e"];
+
+/// True for characters that must not reach a report or a terminal raw:
+/// control characters (C0, DEL, C1), the non-characters U+FFFE and U+FFFF
+/// (not allowed in XML) and the bidirectional overrides and isolates
+/// (which reorder the text a reader sees).
+pub fn is_unsafe_char(c: char) -> bool {
+    c.is_control() || matches!(c, '\u{fffe}' | '\u{ffff}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}')
+}
+
+/// `text` with every [`is_unsafe_char`] replaced by U+FFFD (borrowed when
+/// there is none).
+pub fn neutralise(text: &str) -> std::borrow::Cow<'_, str> {
+    if text.chars().any(is_unsafe_char) {
+        std::borrow::Cow::Owned(
+            text.chars()
+                .map(|c| if is_unsafe_char(c) { '\u{fffd}' } else { c })
+                .collect(),
+        )
+    } else {
+        std::borrow::Cow::Borrowed(text)
+    }
+}
+
+/// Reads an input file of at most `limit` bytes. The file is opened
+/// without blocking and refused unless it is a regular file, so a named
+/// pipe, a device or a folder is an error, never a hang or an endless read.
+pub fn read_input(path: &Path, limit: u64) -> std::io::Result<Vec<u8>> {
+    use std::io::{Error, ErrorKind, Read};
+    let mut options = std::fs::OpenOptions::new();
+    options.read(true);
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::OpenOptionsExt;
+        options.custom_flags(libc::O_NONBLOCK);
+    }
+    let file = options.open(path)?;
+    let meta = file.metadata()?;
+    if !meta.is_file() {
+        let kind = file_kind(&meta);
+        return Err(Error::new(
+            ErrorKind::InvalidInput,
+            format!("it is {kind}, not a regular file"),
+        ));
+    }
+    if meta.len() > limit {
+        return Err(Error::new(
+            ErrorKind::InvalidInput,
+            format!(
+                "it has {} bytes, more than the limit of {} bytes ({} MiB)",
+                meta.len(),
+                limit,
+                limit >> 20
+            ),
+        ));
+    }
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    file.take(limit + 1).read_to_end(&mut bytes)?;
+    if bytes.len() as u64 > limit {
+        return Err(Error::new(
+            ErrorKind::InvalidInput,
+            format!("it grew beyond the limit of {limit} bytes while being read"),
+        ));
+    }
+    Ok(bytes)
+}
+
+fn file_kind(meta: &std::fs::Metadata) -> &'static str {
+    if meta.is_dir() {
+        return "a folder";
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::FileTypeExt;
+        let t = meta.file_type();
+        if t.is_fifo() {
+            return "a named pipe (FIFO)";
+        }
+        if t.is_char_device() {
+            return "a character device";
+        }
+        if t.is_block_device() {
+            return "a block device";
+        }
+        if t.is_socket() {
+            return "a socket";
+        }
+    }
+    "not a regular file"
+}
+
 /// Reads a study file and its data file, resolves and checks everything.
 pub fn load(path: &Path) -> Result<Study, StudyError> {
-    let bytes = std::fs::read(path).map_err(|source| StudyError::ReadStudy {
+    let bytes = read_input(path, MAX_STUDY_BYTES).map_err(|source| StudyError::ReadStudy {
         at: Box::new(At::file(path)),
         source,
     })?;
@@ -169,6 +279,19 @@ pub fn load(path: &Path) -> Result<Study, StudyError> {
         }
     };
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    if let Some(p) = text
+        .bytes()
+        .enumerate()
+        .position(|(i, b)| b == b'\r' && text.as_bytes().get(i + 1) != Some(&b'\n'))
+    {
+        let (l, c) = spec::line_col(text, p);
+        return Err(StudyError::Rejected {
+            at: Box::new(At::cell(path, l, c)),
+            why: "a carriage return without a line feed (old Mac line ends) is not a TOML line end: \
+                  save the study file with LF or CRLF line ends"
+                .into(),
+        });
+    }
     let spec = StudySpec::from_toml_str(text, path)?;
     let name = path
         .file_stem()
@@ -216,6 +339,9 @@ struct DataSource {
     file: PathBuf,
     lines: Vec<usize>,
     sha256: String,
+    /// 1-based field numbers of the y and sigma columns.
+    y_column: usize,
+    sigma_column: Option<usize>,
 }
 
 impl Study {
@@ -258,17 +384,19 @@ impl Study {
             });
         }
         let file = base_dir.join(&spec.data.file);
-        let bytes = std::fs::read(&file).map_err(|source| StudyError::ReadData {
+        let bytes = read_input(&file, MAX_DATA_BYTES).map_err(|source| StudyError::ReadData {
             at: Box::new(At::file(&file)),
             key_at: Box::new(spec.at("data.file")),
             source,
         })?;
         let raw = parse_raw(&bytes, &file)?;
-        let dataset = dataset_from_table(&spec, &raw)?;
+        let (dataset, y_idx, sigma_idx) = dataset_from_table(&spec, &raw)?;
         let source = DataSource {
             file,
             lines: raw.lines.clone(),
             sha256: sha256_hex(&bytes),
+            y_column: y_idx + 1,
+            sigma_column: sigma_idx.map(|j| j + 1),
         };
         finish(spec, params, options, dataset, Some(source), name)
     }
@@ -315,6 +443,30 @@ impl Study {
     }
 }
 
+/// Refuses a name that shadows a built-in constant or is too long.
+fn check_name(spec: &StudySpec, key: &str, name: &str) -> Result<(), StudyError> {
+    if BUILTIN_CONSTANTS.contains(&name) {
+        return Err(invalid(
+            spec,
+            key,
+            format!(
+                "is named `{name}`, a built-in constant of the formula language ({}); a name of \
+                 the study may not replace it: choose another name",
+                if name == "pi" { "3.14159..." } else { "2.71828..." }
+            ),
+        ));
+    }
+    let n = name.chars().count();
+    if n > MAX_NAME_CHARS {
+        return Err(invalid(
+            spec,
+            key,
+            format!("is a name of {n} characters; names have at most {MAX_NAME_CHARS}"),
+        ));
+    }
+    Ok(())
+}
+
 fn invalid(spec: &StudySpec, key: &str, why: impl Into<String>) -> StudyError {
     StudyError::Invalid {
         at: Box::new(spec.at(key)),
@@ -338,6 +490,16 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
             at: Box::new(spec.at("parameters")),
         });
     }
+    if let Some(t) = &spec.title {
+        let n = t.chars().count();
+        if n > MAX_TITLE_CHARS {
+            return Err(invalid(
+                spec,
+                "title",
+                format!("has {n} characters; a title has at most {MAX_TITLE_CHARS}"),
+            ));
+        }
+    }
     let mut params = Vec::with_capacity(spec.parameters.len());
     for (i, (name, e)) in spec.parameters.iter().enumerate() {
         let key = format!("parameters.{name}");
@@ -348,6 +510,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
                 "is not a name a formula can use (letters, digits and `_`, not starting with a digit)",
             ));
         }
+        check_name(spec, &key, name)?;
         if spec.parameters[..i].iter().any(|(n, _)| n == name) {
             return Err(invalid(spec, &key, "is declared twice"));
         }
@@ -401,9 +564,26 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
             fixed: e.fixed,
         });
     }
+    if params.iter().all(|p| p.fixed) {
+        return Err(invalid(
+            spec,
+            "parameters",
+            "fixes every parameter: there is nothing to fit or audit; free at least one (remove `fixed = true`)",
+        ));
+    }
     if let Some(pairs) = &spec.audit.contours.pairs {
         for (i, pair) in pairs.iter().enumerate() {
             let key = format!("audit.contours.pairs[{i}]");
+            if pairs[..i]
+                .iter()
+                .any(|q| (q[0] == pair[0] && q[1] == pair[1]) || (q[0] == pair[1] && q[1] == pair[0]))
+            {
+                return Err(invalid(
+                    spec,
+                    &key,
+                    "maps a pair that an earlier entry already maps",
+                ));
+            }
             for name in pair {
                 match params.iter().find(|p| &p.name == name) {
                     None => {
@@ -443,6 +623,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
                 "is not a name a formula can use (letters, digits and `_`, not starting with a digit)",
             ));
         }
+        check_name(spec, &key, name)?;
         if spec.constants[..i].iter().any(|(n, _)| n == name) {
             return Err(invalid(spec, &key, "is declared twice"));
         }
@@ -514,7 +695,10 @@ fn resolve(spec: &StudySpec, raw: &RawTable, key: &str, name: &str) -> Result<us
     }
 }
 
-fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, StudyError> {
+fn dataset_from_table(
+    spec: &StudySpec,
+    raw: &RawTable,
+) -> Result<(Dataset, usize, Option<usize>), StudyError> {
     let d = &spec.data;
     for (i, (alias, header)) in d.columns.iter().enumerate() {
         let key = format!("data.columns.{alias}");
@@ -525,6 +709,7 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
                 "is not a name a formula can use: an alias is letters, digits and `_`, not starting with a digit",
             ));
         }
+        check_name(spec, &key, alias)?;
         if d.columns[..i].iter().any(|(a, _)| a == alias) {
             return Err(invalid(spec, &key, "is declared twice"));
         }
@@ -550,6 +735,13 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
     let mut x_idx = Vec::with_capacity(d.x.len());
     for (i, name) in d.x.iter().enumerate() {
         let key = x_key(i);
+        if name.chars().count() > MAX_HEADER_CHARS {
+            return Err(invalid(
+                spec,
+                &key,
+                format!("is longer than {MAX_HEADER_CHARS} characters"),
+            ));
+        }
         if !is_identifier(name) {
             let alias = suggest_identifier(name);
             return Err(invalid(
@@ -561,6 +753,7 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
                 ),
             ));
         }
+        check_name(spec, &key, name)?;
         if d.x[..i].contains(name) {
             return Err(invalid(spec, &key, format!("names `{name}` twice")));
         }
@@ -568,6 +761,24 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
     }
     if d.y.is_empty() {
         return Err(invalid(spec, "data.y", "is empty: name the response column"));
+    }
+    for (key, name) in [
+        ("data.y", Some(&d.y)),
+        (
+            "data.sigma",
+            match &d.sigma {
+                Some(SigmaSpec::Column(c)) => Some(c),
+                _ => None,
+            },
+        ),
+    ] {
+        if name.is_some_and(|n| n.chars().count() > MAX_HEADER_CHARS) {
+            return Err(invalid(
+                spec,
+                key,
+                format!("is longer than {MAX_HEADER_CHARS} characters"),
+            ));
+        }
     }
     let y_idx = resolve(spec, raw, "data.y", &d.y)?;
     if x_idx.contains(&y_idx) {
@@ -621,14 +832,18 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         (Some(SigmaSpec::Value(v)), None) => Some(vec![*v; y.len()]),
         _ => None,
     };
-    Ok(Dataset {
-        x_names: d.x.clone(),
-        x,
-        y_name: d.y.clone(),
-        y,
-        sigma,
-        groups: Vec::new(),
-    })
+    Ok((
+        Dataset {
+            x_names: d.x.clone(),
+            x,
+            y_name: d.y.clone(),
+            y,
+            sigma,
+            groups: Vec::new(),
+        },
+        y_idx,
+        sigma_idx,
+    ))
 }
 
 fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
@@ -679,6 +894,87 @@ fn check_dataset(spec: &StudySpec, ds: &Dataset) -> Result<(), StudyError> {
     Ok(())
 }
 
+/// The weights `1/sigma`, the weighted residuals, their squares, the
+/// weighted Jacobian and chi-squared must be finite at the start values:
+/// a y of 1.797e308 or a sigma of 1e-320 is an input error naming the cell,
+/// not a fit that fails without saying where.
+fn check_weights_at_start(
+    spec: &StudySpec,
+    dataset: &Dataset,
+    values: &[f64],
+    jac: &[f64],
+    source: Option<&DataSource>,
+) -> Result<(), StudyError> {
+    let n = dataset.len();
+    let cell = |i: usize, column: Option<usize>| -> Box<At> {
+        Box::new(match (source, column) {
+            (Some(s), Some(c)) => At::cell(&s.file, s.lines[i], c),
+            (Some(s), None) => At::line(&s.file, s.lines[i]),
+            (None, _) => At::file(&spec.origin),
+        })
+    };
+    let sigma_column = source.and_then(|s| s.sigma_column);
+    let y_column = source.map(|s| s.y_column);
+    let mut chi2 = 0.0f64;
+    for i in 0..n {
+        let s = dataset.sigma.as_ref().map_or(1.0, |s| s[i]);
+        let w = 1.0 / s;
+        if !(w.is_finite() && (w * w).is_finite()) {
+            return Err(StudyError::Rejected {
+                at: cell(i, sigma_column),
+                why: format!(
+                    "sigma {s:e} of point {} is so small that its weight 1/sigma^2 overflows a double \
+                     (sigma must be above about 1e-154): check the value and its units",
+                    i + 1
+                ),
+            });
+        }
+        let r = (dataset.y[i] - values[i]) * w;
+        if !(r.is_finite() && (r * r).is_finite()) {
+            return Err(StudyError::Rejected {
+                at: cell(i, y_column),
+                why: format!(
+                    "the weighted residual (y - f)/sigma of point {} overflows a double at the start \
+                     values (y = {:e}, f = {:e}, sigma = {s:e}): check the value, its units and the \
+                     start values",
+                    i + 1,
+                    dataset.y[i],
+                    values[i]
+                ),
+            });
+        }
+        let m = jac.len() / n.max(1);
+        if let Some(j) = (0..m).find(|&j| {
+            let d = jac[j * n + i] * w;
+            !(d.is_finite() && (d * d).is_finite())
+        }) {
+            return Err(StudyError::Rejected {
+                at: cell(i, sigma_column.or(y_column)),
+                why: format!(
+                    "the weighted derivative of the model with respect to `{}` overflows a double at \
+                     point {} at the start values (sigma = {s:e}): check sigma, the data's units and \
+                     the start values",
+                    spec.parameters.get(j).map_or("?", |p| p.0.as_str()),
+                    i + 1
+                ),
+            });
+        }
+        chi2 += r * r;
+    }
+    if !chi2.is_finite() {
+        return Err(StudyError::Rejected {
+            at: Box::new(match source {
+                Some(s) => At::file(&s.file),
+                None => At::file(&spec.origin),
+            }),
+            why: "chi-squared at the start values overflows a double (the weighted residuals are \
+                  too large together): check the data's units, sigma and the start values"
+                .into(),
+        });
+    }
+    Ok(())
+}
+
 /// Where in the study file a formula column lies.
 fn formula_at(spec: &StudySpec, column: Option<usize>) -> At {
     key_column_at(spec, "model.formula", column)
@@ -717,6 +1013,13 @@ fn check_inverse(
         }
         if e.name.trim().is_empty() {
             return Err(invalid(spec, &format!("{key}.name"), "is empty: name the sample"));
+        }
+        if e.name.chars().count() > MAX_HEADER_CHARS {
+            return Err(invalid(
+                spec,
+                &format!("{key}.name"),
+                format!("is longer than {MAX_HEADER_CHARS} characters"),
+            ));
         }
         if out.iter().any(|r| r.name == e.name) {
             return Err(invalid(
@@ -780,6 +1083,7 @@ fn compile_derived(spec: &StudySpec, names: &[String]) -> Result<Vec<DerivedQuan
                 "is not a name (letters, digits and `_`, not starting with a digit)",
             ));
         }
+        check_name(spec, &key, name)?;
         if names.contains(name) || spec.constants.iter().any(|(c, _)| c == name) {
             return Err(invalid(
                 spec,
@@ -856,6 +1160,17 @@ fn finish(
         variables: &dataset.x_names,
     };
     let tape = model::compile(&spec.model.formula, &symbols).map_err(|e| match e.kind {
+        // `x = []` (a model of the parameters alone, such as a weighted
+        // mean) with a formula that uses a name: the empty key is the culprit.
+        ModelErrorKind::UnknownName { name, .. } if dataset.x_names.is_empty() => invalid(
+            &spec,
+            "data.x",
+            format!(
+                "names no column (`x = []`), yet the formula uses `{name}`: name the \
+                 independent-variable column(s) there, e.g. `x = \"{name}\"`, or declare `{name}` \
+                 as a parameter or constant"
+            ),
+        ),
         ModelErrorKind::UnknownName { name, suggestion } => StudyError::UnknownName {
             at: Box::new(formula_at(&spec, e.column)),
             name,
@@ -948,6 +1263,7 @@ fn finish(
             derivative: values[i].is_finite(),
         });
     }
+    check_weights_at_start(&spec, &dataset, &values, &jac, source.as_ref())?;
     let (data_file, data_sha256, data_lines) = match source {
         Some(s) => (Some(s.file), Some(s.sha256), Some(s.lines)),
         None => (None, None, None),

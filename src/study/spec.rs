@@ -206,6 +206,9 @@ impl ParamEntry {
     }
 }
 
+/// Largest `fit.max_iterations`.
+pub const MAX_ITERATIONS: usize = 10_000_000;
+
 /// `[fit]`: optimiser settings; absent keys keep [`FitOptions::default`].
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -251,6 +254,12 @@ impl FitSpec {
         if let Some(n) = self.max_iterations {
             if n == 0 {
                 return Err(("fit.max_iterations".into(), "must be at least 1".into()));
+            }
+            if n > MAX_ITERATIONS {
+                return Err((
+                    "fit.max_iterations".into(),
+                    format!("is {n}, more than the largest allowed, {MAX_ITERATIONS}"),
+                ));
             }
             o.max_iterations = n;
         }
@@ -361,6 +370,7 @@ impl StudySpec {
             toml::from_str(text).map_err(|e| toml_error(&e, text, origin, Some(&locations)))?;
         spec.origin = origin.to_path_buf();
         spec.locations = locations;
+        spec.neutralise_strings();
         // Numbers must be written in decimal: TOML also admits 0x.., 0o..,
         // 0b.. integers, which nobody means for a physical quantity.
         for (key, text) in raw {
@@ -402,6 +412,40 @@ impl StudySpec {
         }
     }
 
+    /// Replaces control characters (and the other characters of
+    /// [`super::is_unsafe_char`]) in every string of the spec by U+FFFD, so
+    /// that no user string reaches a report, an SVG or the terminal raw.
+    pub fn neutralise_strings(&mut self) {
+        fn fix(s: &mut String) {
+            if let std::borrow::Cow::Owned(o) = super::neutralise(s) {
+                *s = o;
+            }
+        }
+        if let Some(t) = &mut self.title {
+            fix(t);
+        }
+        self.data.x.iter_mut().for_each(fix);
+        fix(&mut self.data.y);
+        if let Some(SigmaSpec::Column(c)) = &mut self.data.sigma {
+            fix(c);
+        }
+        for (a, h) in &mut self.data.columns {
+            fix(a);
+            fix(h);
+        }
+        fix(&mut self.model.formula);
+        self.parameters.iter_mut().for_each(|(n, _)| fix(n));
+        self.constants.iter_mut().for_each(|(n, _)| fix(n));
+        for (n, f) in &mut self.derived {
+            fix(n);
+            fix(f);
+        }
+        self.inverse.iter_mut().for_each(|i| fix(&mut i.name));
+        if let Some(pairs) = &mut self.audit.contours.pairs {
+            pairs.iter_mut().flatten().for_each(fix);
+        }
+    }
+
     /// Position of `key` in the study file (file only when unknown).
     pub fn at(&self, key: &str) -> At {
         self.locations.at(&self.origin, key)
@@ -435,7 +479,7 @@ fn toml_error(e: &toml::de::Error, text: &str, origin: &Path, locs: Option<&Loca
         }
         None => (At::file(origin), None),
     };
-    let mut message = e.message().trim_end().replace('\n', "; ");
+    let mut message = super::neutralise(e.message().trim_end()).replace('\n', "; ");
     if message.contains("invalid floating-point number") {
         message.push_str(" (write an ordinary decimal number within the range of a double, |x| < 1.8e308)");
     }
