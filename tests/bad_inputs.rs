@@ -43,6 +43,53 @@ fn csv_rows() -> String {
     s
 }
 
+/// A counting study (Poisson likelihood) on the same file name.
+const COUNTS: &str = r#"title = "catalogue counts"
+[data]
+file = "d.csv"
+x = "t"
+y = "y"
+
+[model]
+formula = "b*exp(-t/tau)"
+
+[parameters]
+b = { start = 8.0, min = 0 }
+tau = { start = 2.0, min = 0.01, max = 100 }
+
+[fit]
+likelihood = "poisson"
+
+[audit]
+bootstrap = { replicates = 20 }
+monte_carlo = { replicates = 20 }
+multistart = { starts = 8 }
+profile = { points = 11 }
+contours = { grid = 7 }
+"#;
+
+/// Counts of a decay with zero counts in the tail (header on line 1, the
+/// point at t = 0.5 i on line i + 2).
+fn count_rows() -> String {
+    let counts = [9, 7, 6, 4, 5, 2, 3, 1, 0, 1, 0, 0];
+    let mut s = String::from("t,y,u\n");
+    for (i, c) in counts.iter().enumerate() {
+        s.push_str(&format!("{},{c},1\n", 0.5 * i as f64));
+    }
+    s
+}
+
+fn counts_with(f: impl Fn(&mut Vec<String>)) -> Option<Vec<u8>> {
+    let mut lines: Vec<String> = count_rows().lines().map(str::to_string).collect();
+    f(&mut lines);
+    Some((lines.join("\n") + "\n").into_bytes())
+}
+
+fn counts_study(from: &str, to: &str) -> Option<String> {
+    assert!(COUNTS.contains(from), "counting study lacks {from:?}");
+    Some(COUNTS.replacen(from, to, 1))
+}
+
 struct Case {
     name: &'static str,
     study: Option<String>,
@@ -603,6 +650,72 @@ fn cases() -> Vec<Case> {
             args: FIT,
             code: 0,
             expect: &["\"converged\": true"],
+        },
+        Case {
+            name: "poisson: a negative count",
+            study: Some(COUNTS.to_string()),
+            csv: counts_with(|l| l[4] = "1.5,-1,1".into()),
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 5, column 2", "count -1", "whole number"],
+        },
+        Case {
+            name: "poisson: a count that is not a whole number",
+            study: Some(COUNTS.to_string()),
+            csv: counts_with(|l| l[7] = "3,2.5,1".into()),
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 8, column 2", "count 2.5"],
+        },
+        Case {
+            name: "poisson: sigma given with counts",
+            study: counts_study("y = \"y\"\n", "y = \"y\"\nsigma = \"u\"\n"),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma", "line 6", "poisson"],
+        },
+        Case {
+            name: "poisson: wild bootstrap",
+            study: counts_study(
+                "bootstrap = { replicates = 20 }",
+                "bootstrap = { replicates = 20, scheme = \"wild\" }",
+            ),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["audit.bootstrap.scheme", "poisson"],
+        },
+        Case {
+            name: "poisson: Student-t Monte Carlo noise",
+            study: counts_study(
+                "monte_carlo = { replicates = 20 }",
+                "monte_carlo = { replicates = 20, student_t_dof = 5 }",
+            ),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["audit.monte_carlo.student_t_dof"],
+        },
+        Case {
+            name: "unknown likelihood",
+            study: counts_study("likelihood = \"poisson\"", "likelihood = \"binomial\""),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["likelihood", "binomial"],
+        },
+        Case {
+            name: "poisson: zero counts are data, not an error",
+            study: Some(COUNTS.to_string()),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 0,
+            expect: &[
+                "\"converged\": true",
+                "\"statistic\": \"deviance\"",
+                "\"likelihood\": \"poisson\"",
+            ],
         },
         Case {
             name: "many columns",

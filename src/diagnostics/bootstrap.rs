@@ -17,14 +17,21 @@
 //!   multipliers (`-(sqrt 5 - 1)/2` with probability `(sqrt 5 + 1)/(2 sqrt 5)`,
 //!   else `(sqrt 5 + 1)/2`; mean 0, variance 1, third moment 1).
 //!
+//! - **parametric Poisson** (a Poisson fit's residual scheme): every count
+//!   drawn from the Poisson law of mean `f_i`, the fitted value (Davison &
+//!   Hinkley 1997, sec. 2.2, the parametric bootstrap). The case scheme is
+//!   kept as it is; the wild scheme does not apply to counts and is refused.
+//!
 //! A point with leverage 1 (to 1e-10) has no residual information: it is
 //! left out of the residual pool and gets a zero wild residual. Without
 //! sigma in the data every sigma is 1 (the residuals are then raw).
 
 use rand::Rng;
 
+use super::monte_carlo::poisson_draw;
 use super::resample::{self, Assembly, Outcome, ResampleResult};
 use super::{Fitted, Progress};
+use crate::fit::Likelihood;
 use crate::rng::{self, Stream};
 use crate::settings::{BootstrapScheme, BootstrapSettings, WildWeights};
 
@@ -45,20 +52,21 @@ pub fn run_with(
     progress: &dyn Progress,
 ) -> ResampleResult {
     let b = settings.replicates;
-    progress.start(&format!("bootstrap ({})", scheme_name(settings.scheme)), b as u64);
+    let name = recorded_scheme(ctx, settings.scheme);
+    progress.start(&format!("bootstrap ({name})"), b as u64);
     let outcomes = replicates(ctx, settings, 0..b, progress);
     let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     progress.finish();
     resample::assemble(
         ctx,
         Assembly {
-            scheme: scheme_name(settings.scheme).to_string(),
+            scheme: name.to_string(),
             replicates: b,
             outcomes,
             jackknife,
             adaptive_stable: None,
             noise_scale: None,
-            scatter_dof: (!ctx.fit.covariance_scaled).then_some(ctx.fit.dof),
+            scatter_dof: (!ctx.fit.covariance_scaled && name != PARAMETRIC_POISSON).then_some(ctx.fit.dof),
             jcgm: false,
         },
     )
@@ -70,6 +78,22 @@ pub fn scheme_name(scheme: BootstrapScheme) -> &'static str {
         BootstrapScheme::Case => "case",
         BootstrapScheme::Residual => "residual",
         BootstrapScheme::Wild => "wild",
+    }
+}
+
+/// Name of the parametric Poisson scheme that the residual scheme becomes
+/// in a Poisson fit.
+pub const PARAMETRIC_POISSON: &str = "parametric-poisson";
+
+/// The scheme as recorded in the result: for a Poisson fit the residual
+/// scheme is the parametric Poisson bootstrap (counts drawn at the fitted
+/// means; residuals of counts are neither exchangeable nor symmetric), the
+/// case scheme stays case resampling, and the wild scheme is refused
+/// (`wild-not-for-counts`; the study loader rejects it up front).
+pub fn recorded_scheme(ctx: &Fitted, scheme: BootstrapScheme) -> &'static str {
+    match (ctx.problem.options.likelihood, scheme) {
+        (Likelihood::Poisson, BootstrapScheme::Residual) => PARAMETRIC_POISSON,
+        _ => scheme_name(scheme),
     }
 }
 
@@ -134,6 +158,18 @@ pub fn replicates(
                 s.sigma[o] = sigma[i];
             }
         }),
+        BootstrapScheme::Wild if ctx.problem.options.likelihood == Likelihood::Poisson => {
+            indices.map(|_| Outcome::Failed("wild-not-for-counts")).collect()
+        }
+        BootstrapScheme::Residual if ctx.problem.options.likelihood == Likelihood::Poisson => {
+            resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
+                let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
+                for (y, f) in s.y.iter_mut().zip(&fitted) {
+                    *y = poisson_draw(&mut rng, *f);
+                }
+                s.sigma.copy_from_slice(&sigma);
+            })
+        }
         BootstrapScheme::Residual => {
             let pool = residual_pool(ctx);
             if pool.is_empty() {

@@ -1,6 +1,9 @@
 //! Monte Carlo refits from synthetic noise around the base fit.
 //!
-//! Trial `k` simulates `y*_i = f(x_i; a_hat) + s * sigma_i * e_i` from
+//! For a Poisson fit (`likelihood = "poisson"`) trial `k` draws each count
+//! from the Poisson law of mean `mu_i = f(x_i; a_hat)` instead (scheme
+//! `poisson`, noise scale 1). Otherwise trial `k` simulates
+//! `y*_i = f(x_i; a_hat) + s * sigma_i * e_i` from
 //! `rng::stream(seed, Stream::MonteCarlo, k)` and refits it through
 //! [`crate::fit::Refitter`] from `a_hat`. The noise `e_i` is standard
 //! normal, or Student-t with `nu = student_t_dof` degrees of freedom scaled
@@ -32,10 +35,11 @@
 //! belongs to the bootstrap: the Monte Carlo runs no jackknife.
 
 use rand::Rng;
-use rand_distr::{Distribution, StandardNormal, StudentT};
+use rand_distr::{Distribution, Poisson, StandardNormal, StudentT};
 
 use super::resample::{self, Assembly, Outcome, ResampleResult};
 use super::{Fitted, Progress};
+use crate::fit::Likelihood;
 use crate::rng::{self, Stream};
 use crate::settings::MonteCarloSettings;
 
@@ -49,6 +53,10 @@ pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ResampleResult {
 
 /// The noise factor `s` (see the module documentation).
 pub fn noise_scale(ctx: &Fitted) -> f64 {
+    if ctx.problem.options.likelihood == Likelihood::Poisson {
+        // Counts are drawn from the Poisson law at the fitted mean.
+        return 1.0;
+    }
     if ctx.data.has_sigma() && !ctx.fit.covariance_scaled {
         return 1.0;
     }
@@ -73,7 +81,9 @@ pub fn batch_size(level: f64) -> usize {
 /// Runs the Monte Carlo refits with the given settings.
 pub fn run_with(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Progress) -> ResampleResult {
     let max = settings.replicates;
-    let scheme = if settings.student_t_dof.is_some() {
+    let scheme = if ctx.problem.options.likelihood == Likelihood::Poisson {
+        "poisson"
+    } else if settings.student_t_dof.is_some() {
         "student-t"
     } else {
         "normal"
@@ -180,6 +190,15 @@ pub fn trials(
     let sigma: Vec<f64> = data.sigma_or_ones().iter().map(|v| v * s).collect();
     let given_sigma = data.sigma_or_ones();
     let fitted = ctx.fitted_values();
+    if ctx.problem.options.likelihood == Likelihood::Poisson {
+        return resample::refit_replicates(ctx, indices, n, false, progress, |k, smp| {
+            let mut rng = rng::stream(seed, Stream::MonteCarlo, k as u64);
+            for (y, f) in smp.y.iter_mut().zip(&fitted) {
+                *y = poisson_draw(&mut rng, *f);
+            }
+            smp.sigma.copy_from_slice(&given_sigma);
+        });
+    }
     let t = settings
         .student_t_dof
         .and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt())));
@@ -194,6 +213,15 @@ pub fn trials(
         }
         smp.sigma.copy_from_slice(&given_sigma);
     })
+}
+
+/// One Poisson count of mean `mu` (NaN when `mu` is not a positive finite
+/// number, so that the replicate fails visibly).
+pub fn poisson_draw<R: Rng>(rng: &mut R, mu: f64) -> f64 {
+    match Poisson::new(mu) {
+        Ok(d) => d.sample(rng),
+        Err(_) => f64::NAN,
+    }
 }
 
 #[cfg(test)]

@@ -1,7 +1,7 @@
 //! The reusable refit workspace and the evaluation helpers shared by the
 //! two methods.
 
-use super::{DataView, EndCheck, Method, Problem, Refit, StopReason, OPTIMALITY_TOLERANCE};
+use super::{DataView, EndCheck, Likelihood, Method, Problem, Refit, StopReason, OPTIMALITY_TOLERANCE};
 use crate::model::{ModelFn, NonFinite};
 
 /// Reusable workspace (Send). Allocation-free refits after construction for
@@ -64,6 +64,11 @@ pub struct Refitter {
     pub(crate) jd: Vec<f64>,
     /// `1 / sigma` of the current data (n).
     pub(crate) inv_sigma: Vec<f64>,
+    /// The error model of the current refit.
+    pub(crate) likelihood: Likelihood,
+    /// Derivative of each weighted residual with respect to the model
+    /// value (n; used by the non-Gaussian error models).
+    pub(crate) dres: Vec<f64>,
     /// The model's scratch buffer.
     pub(crate) scratch: Vec<f64>,
     /// Start of the current refit (after projection into the bounds) and
@@ -128,6 +133,8 @@ impl Refitter {
             colnorm: Vec::new(),
             jd: Vec::new(),
             inv_sigma: Vec::new(),
+            likelihood: Likelihood::Gaussian,
+            dres: Vec::new(),
             scratch: Vec::new(),
             a0: Vec::new(),
             colnorm0: Vec::new(),
@@ -164,6 +171,7 @@ impl Refitter {
             &mut self.rpp,
             &mut self.jd,
             &mut self.inv_sigma,
+            &mut self.dres,
         ] {
             b.resize(n, 0.0);
         }
@@ -236,6 +244,7 @@ impl Refitter {
             };
         }
         self.resize(n, m);
+        self.likelihood = problem.options.likelihood;
         for (o, s) in self.inv_sigma.iter_mut().zip(data.sigma.iter()) {
             *o = 1.0 / s;
         }
@@ -496,11 +505,13 @@ impl Refitter {
         eval_into(
             model,
             data,
+            self.likelihood,
             &self.inv_sigma,
             &self.a,
             &mut self.values,
             &mut self.resid,
             if with_jac { Some(&mut self.jac) } else { None },
+            &mut self.dres,
             &mut self.scratch,
         )
     }
@@ -516,11 +527,13 @@ impl Refitter {
         eval_into(
             model,
             data,
+            self.likelihood,
             &self.inv_sigma,
             &self.trial,
             &mut self.trial_values,
             &mut self.trial_resid,
             if with_jac { Some(&mut self.trial_jac) } else { None },
+            &mut self.dres,
             &mut self.scratch,
         )
     }
@@ -663,9 +676,35 @@ pub(crate) fn judge(out: &mut Refit) {
 }
 
 /// Evaluates values, weighted residuals and (optionally) the weighted
-/// Jacobian at `params`; returns chi2. `inv_sigma` is `1 / data.sigma`.
+/// Jacobian (the Jacobian of the residuals) at `params`; returns
+/// `sum r_i^2` (chi2, or the deviance for Poisson counts). `inv_sigma` is
+/// `1 / data.sigma`; `dres` (n) receives `d r_i / d f_i` for the
+/// non-Gaussian error models. A residual that is not finite (for counts: a
+/// model value `<= 0`) is reported as [`NonFinite`], which the methods
+/// treat as a rejected step.
 #[allow(clippy::too_many_arguments)] // buffers passed apart so the caller can split borrows
 pub(crate) fn eval_into(
+    model: &dyn ModelFn,
+    data: &DataView,
+    likelihood: Likelihood,
+    inv_sigma: &[f64],
+    params: &[f64],
+    values: &mut [f64],
+    resid: &mut [f64],
+    jac: Option<&mut Vec<f64>>,
+    dres: &mut [f64],
+    scratch: &mut Vec<f64>,
+) -> Result<f64, NonFinite> {
+    match likelihood {
+        Likelihood::Gaussian => eval_gaussian(model, data, inv_sigma, params, values, resid, jac, scratch),
+        Likelihood::Poisson => eval_poisson(model, data, params, values, resid, jac, dres, scratch),
+    }
+}
+
+/// The Gaussian residuals `(f - y) / sigma` (the ordinary weighted least
+/// squares, unchanged hot path).
+#[allow(clippy::too_many_arguments)]
+fn eval_gaussian(
     model: &dyn ModelFn,
     data: &DataView,
     inv_sigma: &[f64],
@@ -694,6 +733,48 @@ pub(crate) fn eval_into(
         resid[i] = r;
         chi2 += r * r;
     }
+    finish_sum(chi2, resid)
+}
+
+/// The Poisson deviance residuals of the counts `y` at the model values
+/// `mu = f`, and the Jacobian `d r / d a = (d r / d mu) (d f / d a)`.
+#[allow(clippy::too_many_arguments)]
+fn eval_poisson(
+    model: &dyn ModelFn,
+    data: &DataView,
+    params: &[f64],
+    values: &mut [f64],
+    resid: &mut [f64],
+    mut jac: Option<&mut Vec<f64>>,
+    dres: &mut [f64],
+    scratch: &mut Vec<f64>,
+) -> Result<f64, NonFinite> {
+    let n = values.len();
+    match jac.as_mut() {
+        Some(j) => model.eval(params, data.x, values, Some(j.as_mut_slice()), scratch)?,
+        None => model.eval(params, data.x, values, None, scratch)?,
+    }
+    let mut dev = 0.0;
+    for i in 0..n {
+        let (r, dr) = poisson_residual(values[i], data.y[i]);
+        resid[i] = r;
+        dres[i] = dr;
+        dev += r * r;
+    }
+    if let Some(j) = jac {
+        let m = j.len() / n.max(1);
+        for col in j.chunks_exact_mut(n.max(1)).take(m) {
+            for (v, w) in col.iter_mut().zip(dres.iter()) {
+                *v *= w;
+            }
+        }
+    }
+    finish_sum(dev, resid)
+}
+
+/// `Ok(sum)` when the sum of squared residuals is finite, else the point
+/// to blame.
+fn finish_sum(chi2: f64, resid: &[f64]) -> Result<f64, NonFinite> {
     if chi2.is_finite() {
         Ok(chi2)
     } else {
@@ -713,5 +794,88 @@ pub(crate) fn eval_into(
                     .unwrap_or(0)
             });
         Err(NonFinite { point })
+    }
+}
+
+/// The signed deviance residual of a count `n >= 0` at the Poisson mean
+/// `mu` and its derivative with respect to `mu` (Baker and Cousins, NIM
+/// 221 (1984) 437, eq. for the Poisson likelihood ratio):
+/// `r = sign(mu - n) sqrt(2 (mu - n + n ln(n / mu)))`, `r = sqrt(2 mu)` for
+/// `n = 0`, so that `r^2` is the point's deviance.
+///
+/// Written with `t = (mu - n) / n` as `r = t sqrt(n h(t))`,
+/// `dr/dmu = 1 / ((1 + t) sqrt(n h(t)))`, `h(t) = 2 (t - ln(1 + t)) / t^2`
+/// (its Taylor series for `|t| < 0.01`), which has no cancellation and the
+/// right limit `dr/dmu -> 1 / sqrt(mu)` at `mu = n`. `mu <= 0` (or not a
+/// number) gives NaN: a rejected step.
+pub fn poisson_residual(mu: f64, n: f64) -> (f64, f64) {
+    if !(mu.is_finite() && mu > 0.0) {
+        return (f64::NAN, f64::NAN);
+    }
+    if n == 0.0 {
+        let r = (2.0 * mu).sqrt();
+        return (r, 1.0 / r);
+    }
+    let t = (mu - n) / n;
+    let h = if t.abs() < 0.01 {
+        // 2 sum_{k >= 2} (-1)^k t^(k-2) / k, through t^8 (error below 1e-19).
+        let c = [
+            1.0 / 2.0,
+            -1.0 / 3.0,
+            1.0 / 4.0,
+            -1.0 / 5.0,
+            1.0 / 6.0,
+            -1.0 / 7.0,
+            1.0 / 8.0,
+            -1.0 / 9.0,
+            1.0 / 10.0,
+        ];
+        2.0 * c.iter().rev().fold(0.0, |acc, ck| acc * t + ck)
+    } else {
+        2.0 * (t - t.ln_1p()) / (t * t)
+    };
+    let s = (n * h).sqrt();
+    (t * s, 1.0 / ((1.0 + t) * s))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::poisson_residual;
+
+    #[test]
+    fn deviance_residual_identities() {
+        // Definition (Baker and Cousins 1984): r^2 = 2 (mu - n + n ln(n/mu)),
+        // sign of mu - n; n = 0 gives 2 mu.
+        for &(mu, n) in &[(3.0, 7.0), (12.5, 4.0), (0.2, 1.0), (40.0, 39.0), (5.0, 5.05)] {
+            let (r, dr) = poisson_residual(mu, n);
+            let d: f64 = 2.0 * (mu - n + n * (n / mu).ln());
+            assert!((r * r - d).abs() <= 1e-12 * d.max(1e-3), "{mu} {n}");
+            assert_eq!(r.signum(), (mu - n).signum());
+            // dr/dmu = (1 - n/mu) / r (differentiating r^2 = D).
+            assert!((dr - (1.0 - n / mu) / r).abs() <= 1e-10 * dr.abs());
+        }
+        let (r, dr) = poisson_residual(2.0, 0.0);
+        assert_eq!((r, dr), (2.0, 0.5));
+        // At mu = n: r = 0 and dr/dmu = 1/sqrt(mu) (the limit of (1 - n/mu)/r).
+        let (r, dr) = poisson_residual(9.0, 9.0);
+        assert_eq!(r, 0.0);
+        assert!((dr - 1.0 / 3.0).abs() < 1e-15);
+        // Continuity across the series/direct switch at |t| = 0.01, and
+        // against a central difference of r in mu.
+        for &mu in &[
+            9.0 * 1.0099,
+            9.0 * 1.0101,
+            9.0 * 0.9901,
+            9.0 * 0.9899,
+            9.0 * 1.0000001,
+        ] {
+            let (_, dr) = poisson_residual(mu, 9.0);
+            let h = 1e-6;
+            let num = (poisson_residual(mu + h, 9.0).0 - poisson_residual(mu - h, 9.0).0) / (2.0 * h);
+            assert!((dr - num).abs() < 1e-8, "{mu}: {dr} vs {num}");
+        }
+        // mu <= 0 where a count exists: not finite (a rejected step).
+        assert!(poisson_residual(0.0, 3.0).0.is_nan());
+        assert!(poisson_residual(-1.0, 0.0).0.is_nan());
     }
 }

@@ -96,7 +96,19 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
         ]);
     }
     out.push_str(&columns(&rows, &[1, 2, 3, 4]));
-    if fit.sigma_given {
+    if fit.likelihood == crate::fit::Likelihood::Poisson {
+        let _ = writeln!(
+            out,
+            "\ndeviance = {}   dof = {}   deviance/dof = {}   p-value = {} (chi-squared approximation)",
+            format::chi2(fit.chi2),
+            fit.dof,
+            format::sig(fit.reduced_chi2, 4),
+            tables::p_value_text(fit)
+        );
+        if let Some(w) = tables::small_counts_warning(fit) {
+            let _ = writeln!(out, "WARNING: {w}");
+        }
+    } else if fit.sigma_given {
         let _ = writeln!(
             out,
             "\nchi2 = {}   dof = {}   reduced chi2 = {}   p-value = {}",

@@ -272,6 +272,38 @@ fn invalid(spec: &StudySpec, key: &str, why: impl Into<String>) -> StudyError {
     }
 }
 
+/// Settings that do not apply to the chosen error model.
+fn check_likelihood(spec: &StudySpec, options: &FitOptions) -> Result<(), StudyError> {
+    if options.likelihood != crate::fit::Likelihood::Poisson {
+        return Ok(());
+    }
+    let why = "does not apply with `fit.likelihood = \"poisson\"`";
+    if spec.audit.bootstrap.scheme == crate::settings::BootstrapScheme::Wild {
+        return Err(invalid(
+            spec,
+            "audit.bootstrap.scheme",
+            format!(
+                "\"wild\" {why}: use \"residual\" (for counts the parametric Poisson bootstrap) or \"case\""
+            ),
+        ));
+    }
+    if spec.audit.monte_carlo.student_t_dof.is_some() {
+        return Err(invalid(
+            spec,
+            "audit.monte_carlo.student_t_dof",
+            format!("{why}: the Monte Carlo draws Poisson counts; remove it"),
+        ));
+    }
+    if !spec.inverse.is_empty() {
+        return Err(invalid(
+            spec,
+            "inverse",
+            format!("{why}: inverse predictions are made for Gaussian responses only"),
+        ));
+    }
+    Ok(())
+}
+
 /// Checks everything that does not need the data: settings, parameters,
 /// constants. Returns the parameters and the optimiser settings.
 fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyError> {
@@ -282,6 +314,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         .fit
         .to_options()
         .map_err(|(key, why)| invalid(spec, &key, why))?;
+    check_likelihood(spec, &options)?;
     if spec.parameters.is_empty() {
         return Err(StudyError::NoParameters {
             at: Box::new(spec.at("parameters")),
@@ -522,6 +555,14 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
     if x_idx.contains(&y_idx) {
         return Err(invalid(spec, "data.y", "names a column that is also an x column"));
     }
+    let poisson = spec.fit.likelihood == Some(crate::fit::Likelihood::Poisson);
+    if poisson && d.sigma.is_some() {
+        return Err(invalid(
+            spec,
+            "data.sigma",
+            "is not allowed with `fit.likelihood = \"poisson\"`: the variance of a count is its mean; remove data.sigma",
+        ));
+    }
     let sigma_idx = match &d.sigma {
         Some(SigmaSpec::Column(c)) => {
             let j = resolve(spec, raw, "data.sigma", c)?;
@@ -552,6 +593,18 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         .map(|&j| raw.numeric_column(j))
         .collect::<Result<Vec<_>, _>>()?;
     let y = raw.numeric_column(y_idx)?;
+    if poisson {
+        for (v, &line) in y.iter().zip(&raw.lines) {
+            if !(*v >= 0.0 && v.fract() == 0.0) {
+                return Err(StudyError::BadCount {
+                    at: Box::new(At::cell(&raw.file, line, y_idx + 1)),
+                    column: y_idx + 1,
+                    name: raw.headers[y_idx].clone(),
+                    value: *v,
+                });
+            }
+        }
+    }
     let sigma = match (&d.sigma, sigma_idx) {
         (_, Some(j)) => {
             let s = raw.numeric_column(j)?;

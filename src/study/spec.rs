@@ -6,7 +6,7 @@
 //! that later checks can name line and column.
 
 use super::error::{At, StudyError};
-use crate::fit::{CovarianceScaling, FitOptions, Method};
+use crate::fit::{CovarianceScaling, FitOptions, Likelihood, Method};
 use crate::settings::AuditSettings;
 use serde::de::{self, Deserializer, MapAccess, SeqAccess, Visitor};
 use serde::ser::{SerializeMap, Serializer};
@@ -192,6 +192,9 @@ pub struct FitSpec {
     /// Scaled gradient tolerance.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub gtol: Option<f64>,
+    /// The error model: `"gaussian"` (default) or `"poisson"` (counts).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub likelihood: Option<Likelihood>,
 }
 
 impl FitSpec {
@@ -216,6 +219,9 @@ impl FitSpec {
         }
         if let Some(g) = self.geodesic {
             o.geodesic = g;
+        }
+        if let Some(l) = self.likelihood {
+            o.likelihood = l;
         }
         for (key, val, slot) in [
             ("fit.ftol", self.ftol, &mut o.ftol),

@@ -141,8 +141,13 @@ pub(crate) fn figure(
         svg::legend(&side, &ch.legend)?;
         Ok(())
     })?;
+    let stat = if results.fit.likelihood == crate::fit::Likelihood::Poisson {
+        "deviance"
+    } else {
+        "chi-squared"
+    };
     let mut caption = format!(
-        "Profiled chi-squared contours of {a} and {b} (solid; the other parameters refitted at every grid \
+        "Profiled {stat} contours of {a} and {b} (solid; the other parameters refitted at every grid \
          node) and the covariance ellipses at the same levels (dashed), for two parameters jointly."
     );
     if total > 0 {

@@ -95,6 +95,7 @@ fn band_words(results: &AuditResults) -> String {
         NewObservation::InterpolatedSigma => "\u{3c3} interpolated at x",
         NewObservation::ScaledSigma => "\u{3c3} interpolated at x times \u{221a}(\u{3c7}\u{b2}/dof)",
         NewObservation::ResidualVariance => "the residual standard deviation s",
+        NewObservation::PoissonCount => "\u{221a}f, the standard deviation of a Poisson count",
     };
     let mut w = format!(
         " with its pointwise {} confidence band (dashed, f \u{b1} k u_f, k = {}) and prediction band \

@@ -9,11 +9,17 @@ use crate::report::{format, tables, ReportError};
 
 /// The profile figure of one parameter, or None with fewer than two finite points.
 pub(crate) fn figure(
-    _results: &AuditResults,
+    results: &AuditResults,
     profile: &ProfileResult,
     p: &ParameterProfile,
     stem: &str,
 ) -> Result<Option<Figure>, ReportError> {
+    let poisson = results.fit.likelihood == crate::fit::Likelihood::Poisson;
+    let (stat, upper) = if poisson {
+        ("deviance", "Deviance")
+    } else {
+        ("chi-squared", "Chi-squared")
+    };
     let base = profile.chi2_min;
     let shift = |pts: &[[f64; 2]]| -> Vec<(f64, f64)> { pts.iter().map(|q| (q[0], q[1] - base)).collect() };
     let prof = shift(&p.points);
@@ -126,9 +132,9 @@ pub(crate) fn figure(
     }
     Ok(Some(Figure {
         file,
-        title: format!("Chi-squared profile of {name}"),
+        title: format!("{upper} profile of {name}"),
         caption: format!(
-            "Minimum chi-squared with {name} held at each value and the other parameters refitted (solid), \
+            "Minimum {stat} with {name} held at each value and the other parameters refitted (solid), \
              against the parabola the covariance matrix predicts (dashed). The profile interval lies where \
              the profile crosses the dotted threshold ({}).{note}",
             format::percent(profile.level, 4)
