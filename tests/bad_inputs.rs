@@ -703,7 +703,7 @@ fn cases() -> Vec<Case> {
             csv: Some(count_rows().into_bytes()),
             args: FIT,
             code: 2,
-            expect: &["likelihood", "binomial"],
+            expect: &["line 15", "binomial", "`gaussian` or `poisson`"],
         },
         Case {
             name: "poisson: zero counts are data, not an error",
@@ -716,6 +716,54 @@ fn cases() -> Vec<Case> {
                 "\"statistic\": \"deviance\"",
                 "\"likelihood\": \"poisson\"",
             ],
+        },
+        Case {
+            name: "errors in x without sigma of y",
+            study: replace("sigma = \"u\"\n", "sigma_x = 0.01\n"),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma_x", "line 6", "needs data.sigma"],
+        },
+        Case {
+            name: "errors in x: negative sigma_x",
+            study: replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = -0.1\n"),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma_x", ">= 0"],
+        },
+        Case {
+            name: "errors in x: a negative sigma_x in its column",
+            study: replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = \"ux\"\n"),
+            csv: csv_with(|l| {
+                for (k, r) in l.iter_mut().enumerate() {
+                    r.push_str(match k {
+                        0 => ",ux",
+                        3 => ",-0.02",
+                        _ => ",0.02",
+                    });
+                }
+            }),
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 4, column 4", "sigma_x -0.02"],
+        },
+        Case {
+            name: "errors in x with counts",
+            study: counts_study("y = \"y\"\n", "y = \"y\"\nsigma_x = 0.1\n"),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma_x", "poisson"],
+        },
+        Case {
+            name: "errors in x: a number for every point fits",
+            study: replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = 0.01\n"),
+            csv: None,
+            args: FIT,
+            code: 0,
+            expect: &["\"converged\": true", "\"errors_in_x\": true"],
         },
         Case {
             name: "many columns",

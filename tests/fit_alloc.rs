@@ -64,6 +64,7 @@ fn count_refit_allocations(model: &dyn ModelFn, options: FitOptions) -> (usize, 
         x: &xs,
         y: &y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let mut bounded = ParamSpec::free("a2", 0.8);
     bounded.min = 0.0;

@@ -24,6 +24,7 @@ fn fit_table_rounds_values_at_the_uncertainty_and_flags_bounds() {
         likelihood: fitaudit::fit::Likelihood::Gaussian,
         statistic: "chi2".to_string(),
         small_counts: None,
+        errors_in_x: false,
         converged: false,
         stop_reason: StopReason::IterationLimit,
         iterations: 1000,

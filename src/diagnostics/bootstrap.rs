@@ -22,6 +22,13 @@
 //!   Hinkley 1997, sec. 2.2, the parametric bootstrap). The case scheme is
 //!   kept as it is; the wild scheme does not apply to counts and is refused.
 //!
+//! With errors in x (`data.sigma_x`), the residual and wild schemes move x
+//! as well: `x*_i = x_i + sigma_x,i * e'*_i`, with `e'*_i` a second,
+//! independent draw from the pool (residual) or the adjusted residual
+//! times a second multiplier (wild); the weighted residuals are then those
+//! of the effective variance. The case scheme carries each point's x, y
+//! and both uncertainties together.
+//!
 //! A point with leverage 1 (to 1e-10) has no residual information: it is
 //! left out of the residual pool and gets a zero wild residual. Without
 //! sigma in the data every sigma is 1 (the residuals are then raw).
@@ -177,13 +184,20 @@ pub fn replicates(
                 // there is nothing to resample, and every replicate says so.
                 return indices.map(|_| Outcome::Failed("no-residuals")).collect();
             }
-            resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
+            resample::refit_replicates(ctx, indices, n, data.sigma_x.is_some(), progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
                 for ((y, (f, sg)), out_sg) in s.y.iter_mut().zip(fitted.iter().zip(&sigma)).zip(&mut s.sigma)
                 {
                     let e = pool[rng.gen_range(0..pool.len())];
                     *y = f + sg * e;
                     *out_sg = *sg;
+                }
+                if let Some(sx) = &data.sigma_x {
+                    // Errors in x: x moves by sigma_x times a second,
+                    // independent draw from the same pool.
+                    for ((xo, x0), sxi) in s.x[0].iter_mut().zip(&data.x[0]).zip(sx) {
+                        *xo = x0 + sxi * pool[rng.gen_range(0..pool.len())];
+                    }
                 }
             })
         }
@@ -195,22 +209,33 @@ pub fn replicates(
                 .map(|(r, sg)| sg * r.unwrap_or(0.0))
                 .collect();
             let weights = settings.weights;
-            resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
+            let adjusted: Vec<f64> = adjusted_residuals(ctx)
+                .into_iter()
+                .map(|r| r.unwrap_or(0.0))
+                .collect();
+            resample::refit_replicates(ctx, indices, n, data.sigma_x.is_some(), progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
-                for (y, (f, a)) in s.y.iter_mut().zip(fitted.iter().zip(&amp)) {
-                    let v = match weights {
-                        WildWeights::Rademacher => {
-                            if rng.gen::<bool>() {
-                                1.0
-                            } else {
-                                -1.0
-                            }
+                let draw = |rng: &mut rand_chacha::ChaCha12Rng| match weights {
+                    WildWeights::Rademacher => {
+                        if rng.gen::<bool>() {
+                            1.0
+                        } else {
+                            -1.0
                         }
-                        WildWeights::Mammen => mammen(&mut rng),
-                    };
-                    *y = f + a * v;
+                    }
+                    WildWeights::Mammen => mammen(rng),
+                };
+                for (y, (f, a)) in s.y.iter_mut().zip(fitted.iter().zip(&amp)) {
+                    *y = f + a * draw(&mut rng);
                 }
                 s.sigma.copy_from_slice(&sigma);
+                if let Some(sx) = &data.sigma_x {
+                    // Errors in x: x moves by sigma_x times the adjusted
+                    // residual and a second, independent multiplier.
+                    for (((xo, x0), sxi), r) in s.x[0].iter_mut().zip(&data.x[0]).zip(sx).zip(&adjusted) {
+                        *xo = x0 + sxi * r * draw(&mut rng);
+                    }
+                }
             })
         }
     }

@@ -1,5 +1,9 @@
 //! Monte Carlo refits from synthetic noise around the base fit.
 //!
+//! With errors in x (`data.sigma_x`) every trial also moves each x off
+//! its observed value by `s * sigma_x,i * e'_i` (independent draws of the
+//! same law), so the refit sees noise in both coordinates.
+//!
 //! For a Poisson fit (`likelihood = "poisson"`) trial `k` draws each count
 //! from the Poisson law of mean `mu_i = f(x_i; a_hat)` instead (scheme
 //! `poisson`, noise scale 1). Otherwise trial `k` simulates
@@ -202,7 +206,8 @@ pub fn trials(
     let t = settings
         .student_t_dof
         .and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt())));
-    resample::refit_replicates(ctx, indices, n, false, progress, |k, smp| {
+    let sigma_x: Option<Vec<f64>> = data.sigma_x.as_ref().map(|sx| sx.iter().map(|v| v * s).collect());
+    resample::refit_replicates(ctx, indices, n, sigma_x.is_some(), progress, |k, smp| {
         let mut rng = rng::stream(seed, Stream::MonteCarlo, k as u64);
         for (y, (f, sg)) in smp.y.iter_mut().zip(fitted.iter().zip(&sigma)) {
             let e: f64 = match &t {
@@ -212,6 +217,17 @@ pub fn trials(
             *y = f + sg * e;
         }
         smp.sigma.copy_from_slice(&given_sigma);
+        if let Some(sx) = &sigma_x {
+            // Errors in x: the observed x moves off the true x_i too (the
+            // curve value f stays that at the true x).
+            for ((xo, x0), sxi) in smp.x[0].iter_mut().zip(&data.x[0]).zip(sx) {
+                let e: f64 = match &t {
+                    Some((d, scale)) => d.sample(&mut rng) * scale,
+                    None => rng.sample(StandardNormal),
+                };
+                *xo = x0 + sxi * e;
+            }
+        }
     })
 }
 

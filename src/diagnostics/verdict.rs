@@ -748,6 +748,7 @@ mod tests {
             likelihood: crate::fit::Likelihood::Gaussian,
             statistic: "chi2".to_string(),
             small_counts: None,
+            errors_in_x: false,
             converged: true,
             stop_reason: StopReason::ChiSquaredChange,
             iterations: 7,

@@ -204,6 +204,9 @@ pub struct DataView<'a> {
     pub y: &'a [f64],
     /// Standard uncertainties.
     pub sigma: &'a [f64],
+    /// Standard uncertainties of the one x column (errors in x: the
+    /// effective variance); empty when x is exact.
+    pub sigma_x: &'a [f64],
 }
 
 /// Why the optimiser stopped.

@@ -66,9 +66,8 @@ pub struct Refitter {
     pub(crate) inv_sigma: Vec<f64>,
     /// The error model of the current refit.
     pub(crate) likelihood: Likelihood,
-    /// Derivative of each weighted residual with respect to the model
-    /// value (n; used by the non-Gaussian error models).
-    pub(crate) dres: Vec<f64>,
+    /// Buffers of the non-Gaussian error models (empty until one is used).
+    pub(crate) aux: ErrorBuffers,
     /// The model's scratch buffer.
     pub(crate) scratch: Vec<f64>,
     /// Start of the current refit (after projection into the bounds) and
@@ -134,7 +133,7 @@ impl Refitter {
             jd: Vec::new(),
             inv_sigma: Vec::new(),
             likelihood: Likelihood::Gaussian,
-            dres: Vec::new(),
+            aux: ErrorBuffers::default(),
             scratch: Vec::new(),
             a0: Vec::new(),
             colnorm0: Vec::new(),
@@ -171,7 +170,6 @@ impl Refitter {
             &mut self.rpp,
             &mut self.jd,
             &mut self.inv_sigma,
-            &mut self.dres,
         ] {
             b.resize(n, 0.0);
         }
@@ -232,6 +230,7 @@ impl Refitter {
             && start.len() == m
             && free.len() == m
             && data.sigma.len() == n
+            && (data.sigma_x.is_empty() || (data.sigma_x.len() == n && data.x.len() == 1))
             && data.x.iter().all(|c| c.len() == n);
         if !consistent {
             return Refit {
@@ -511,7 +510,7 @@ impl Refitter {
             &mut self.values,
             &mut self.resid,
             if with_jac { Some(&mut self.jac) } else { None },
-            &mut self.dres,
+            &mut self.aux,
             &mut self.scratch,
         )
     }
@@ -533,7 +532,7 @@ impl Refitter {
             &mut self.trial_values,
             &mut self.trial_resid,
             if with_jac { Some(&mut self.trial_jac) } else { None },
-            &mut self.dres,
+            &mut self.aux,
             &mut self.scratch,
         )
     }
@@ -675,11 +674,26 @@ pub(crate) fn judge(out: &mut Refit) {
     }
 }
 
+/// Per-point buffers of the error models other than plain Gaussian: the
+/// residuals' derivative with respect to the model value (Poisson) or the
+/// effective weights `1 / sqrt(V)` (errors in x), the x-slope `df/dx` and
+/// its parameter derivatives. Sized on first use, then reused.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct ErrorBuffers {
+    /// `d r_i / d f_i` (n).
+    pub(crate) dres: Vec<f64>,
+    /// `df/dx` (n).
+    pub(crate) slope: Vec<f64>,
+    /// `d2f / dx da_j` (n x m, column-major).
+    pub(crate) dslope: Vec<f64>,
+}
+
 /// Evaluates values, weighted residuals and (optionally) the weighted
 /// Jacobian (the Jacobian of the residuals) at `params`; returns
 /// `sum r_i^2` (chi2, or the deviance for Poisson counts). `inv_sigma` is
-/// `1 / data.sigma`; `dres` (n) receives `d r_i / d f_i` for the
-/// non-Gaussian error models. A residual that is not finite (for counts: a
+/// `1 / data.sigma`; `aux` holds the buffers of the non-Gaussian error
+/// models (`aux.dres` receives `d r_i / d f_i`, for errors in x the
+/// effective weights `1 / sqrt(V_i)`). A residual that is not finite (for counts: a
 /// model value `<= 0`) is reported as [`NonFinite`], which the methods
 /// treat as a rejected step.
 #[allow(clippy::too_many_arguments)] // buffers passed apart so the caller can split borrows
@@ -692,13 +706,90 @@ pub(crate) fn eval_into(
     values: &mut [f64],
     resid: &mut [f64],
     jac: Option<&mut Vec<f64>>,
-    dres: &mut [f64],
+    aux: &mut ErrorBuffers,
     scratch: &mut Vec<f64>,
 ) -> Result<f64, NonFinite> {
-    match likelihood {
-        Likelihood::Gaussian => eval_gaussian(model, data, inv_sigma, params, values, resid, jac, scratch),
-        Likelihood::Poisson => eval_poisson(model, data, params, values, resid, jac, dres, scratch),
+    let n = values.len();
+    if aux.dres.len() != n && (likelihood != Likelihood::Gaussian || !data.sigma_x.is_empty()) {
+        aux.dres.resize(n, 0.0);
     }
+    match likelihood {
+        Likelihood::Gaussian if data.sigma_x.is_empty() => {
+            eval_gaussian(model, data, inv_sigma, params, values, resid, jac, scratch)
+        }
+        Likelihood::Gaussian => {
+            eval_effective(model, data, inv_sigma, params, values, resid, jac, aux, scratch)
+        }
+        Likelihood::Poisson => eval_poisson(model, data, params, values, resid, jac, &mut aux.dres, scratch),
+    }
+}
+
+/// Errors in x: the effective-variance residuals `r = (f - y) / sqrt(V)`,
+/// `V = sigma_y^2 + (df/dx)^2 sigma_x^2` (Orear, Am. J. Phys. 50 (1982)
+/// 912), with their exact Jacobian including the parameter dependence of
+/// `V`: `dr/da_j = (df/da_j) / sqrt(V) - r (df/dx) sigma_x^2
+/// (d2f/dx da_j) / V`.
+#[allow(clippy::too_many_arguments)]
+fn eval_effective(
+    model: &dyn ModelFn,
+    data: &DataView,
+    inv_sigma: &[f64],
+    params: &[f64],
+    values: &mut [f64],
+    resid: &mut [f64],
+    mut jac: Option<&mut Vec<f64>>,
+    aux: &mut ErrorBuffers,
+    scratch: &mut Vec<f64>,
+) -> Result<f64, NonFinite> {
+    let n = values.len();
+    let m = model.n_params();
+    if aux.slope.len() != n {
+        aux.slope.resize(n, 0.0);
+    }
+    match jac.as_mut() {
+        Some(j) => {
+            if aux.dslope.len() != n * m {
+                aux.dslope.resize(n * m, 0.0);
+            }
+            model.eval(params, data.x, values, Some(j.as_mut_slice()), scratch)?
+        }
+        None => model.eval(params, data.x, values, None, scratch)?,
+    }
+    let dslope = if jac.is_some() {
+        Some(aux.dslope.as_mut_slice())
+    } else {
+        None
+    };
+    match model.eval_x_slope(params, data.x, &mut aux.slope, dslope, scratch) {
+        Some(r) => r?,
+        // No x-slope: the checked entry points refuse this before.
+        None => return Err(NonFinite { point: 0 }),
+    }
+    let mut chi2 = 0.0;
+    for i in 0..n {
+        let sy = 1.0 / inv_sigma[i];
+        let sx = data.sigma_x[i];
+        let s = aux.slope[i];
+        let w = 1.0 / (sy * sy + s * s * sx * sx).sqrt();
+        let r = (values[i] - data.y[i]) * w;
+        resid[i] = r;
+        aux.dres[i] = w;
+        chi2 += r * r;
+    }
+    if let Some(j) = jac {
+        for (col, dcol) in j
+            .chunks_exact_mut(n.max(1))
+            .take(m)
+            .zip(aux.dslope.chunks_exact(n.max(1)))
+        {
+            for i in 0..n {
+                let w = aux.dres[i];
+                let sx = data.sigma_x[i];
+                col[i] = col[i] * w - resid[i] * aux.slope[i] * sx * sx * dcol[i] * w * w;
+            }
+        }
+    }
+    finish_sum(chi2, resid)
 }
 
 /// The Gaussian residuals `(f - y) / sigma` (the ordinary weighted least

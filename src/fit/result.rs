@@ -95,6 +95,11 @@ pub struct FitResult {
     /// approximation of the deviance's distribution is then doubtful).
     #[serde(default)]
     pub small_counts: Option<SmallCounts>,
+    /// The data carry `sigma_x` (errors in x): `chi2` is the
+    /// effective-variance chi-squared `sum (y - f)^2 / (sigma^2 + (df/dx)^2
+    /// sigma_x^2)` and `residuals` are normalised by the effective sigma.
+    #[serde(default)]
+    pub errors_in_x: bool,
     /// True only when the end point passed the first-order optimality test
     /// (the Gauss-Newton step promises no chi2 reduction above
     /// [`super::OPTIMALITY_TOLERANCE`]^2 chi2 units) and no parameter is on
@@ -283,6 +288,30 @@ pub enum FitError {
     /// A Poisson fit was given sigma (the counts' variance is their mean).
     #[error("a Poisson fit takes no sigma: the variance of a count is its mean")]
     SigmaWithCounts,
+    /// Errors in x with more or fewer than one x column.
+    #[error("errors in x (sigma_x) need exactly one x column; the data have {columns}")]
+    XErrorsNeedOneX {
+        /// Number of x columns.
+        columns: usize,
+    },
+    /// Errors in x in a Poisson fit.
+    #[error("errors in x (sigma_x) apply to Gaussian fits only, not to a Poisson fit")]
+    XErrorsWithCounts,
+    /// Errors in x without sigma of y.
+    #[error("errors in x (sigma_x) need the standard uncertainty of y (sigma) too")]
+    XErrorsNeedSigma,
+    /// A sigma_x that is negative or not finite.
+    #[error("data point {} has sigma_x {value}; sigma_x must be finite and >= 0", point + 1)]
+    InvalidSigmaX {
+        /// 0-based point index.
+        point: usize,
+        /// The offending value.
+        value: f64,
+    },
+    /// The model has no exact x-slope (a native model without
+    /// [`crate::model::ModelFn::eval_x_slope`]).
+    #[error("the model gives no df/dx, which errors in x (sigma_x) need; use a formula or implement ModelFn::eval_x_slope")]
+    NoXSlope,
     /// Bounds in the wrong order, or not numbers.
     #[error("parameter {name}: bounds [{min}, {max}] are not an interval")]
     InvalidBounds {
@@ -346,13 +375,14 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: data.sigma_x.as_deref().unwrap_or(&[]),
     };
     let m = problem.params.len();
     // The start must be finite.
     let mut values = vec![0.0; data.len()];
     let mut resid = vec![0.0; data.len()];
     let mut scratch = Vec::new();
-    let mut dres = vec![0.0; data.len()];
+    let mut aux = super::refitter::ErrorBuffers::default();
     eval_into(
         problem.model,
         &view,
@@ -362,7 +392,7 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
         &mut values,
         &mut resid,
         None,
-        &mut dres,
+        &mut aux,
         &mut scratch,
     )
     .map_err(|e| FitError::NotFiniteAtStart { point: e.point })?;
@@ -559,6 +589,38 @@ fn check(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<(), FitErro
             return Err(FitError::SigmaWithCounts);
         }
     }
+    if let Some(sx) = &data.sigma_x {
+        if data.x.len() != 1 {
+            return Err(FitError::XErrorsNeedOneX {
+                columns: data.x.len(),
+            });
+        }
+        if problem.options.likelihood == Likelihood::Poisson {
+            return Err(FitError::XErrorsWithCounts);
+        }
+        if data.sigma.is_none() {
+            return Err(FitError::XErrorsNeedSigma);
+        }
+        if sx.len() != n {
+            return Err(mismatch("length of sigma_x", n, sx.len()));
+        }
+        if let Some(point) = sx.iter().position(|v| !(v.is_finite() && *v >= 0.0)) {
+            return Err(FitError::InvalidSigmaX {
+                point,
+                value: sx[point],
+            });
+        }
+        let mut slope = vec![0.0; n];
+        let mut scratch = Vec::new();
+        let xs = data.x_slices();
+        if problem
+            .model
+            .eval_x_slope(start, &xs, &mut slope, None, &mut scratch)
+            .is_none()
+        {
+            return Err(FitError::NoXSlope);
+        }
+    }
     if let Some(s) = &data.sigma {
         if s.len() != n {
             return Err(mismatch("length of sigma", n, s.len()));
@@ -618,12 +680,13 @@ pub fn analyse(
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: data.sigma_x.as_deref().unwrap_or(&[]),
     };
     let mut values = vec![0.0; n];
     let mut resid = vec![0.0; n];
     let mut jac = vec![0.0; n * m];
     let mut scratch = Vec::new();
-    let mut dres = vec![0.0; n];
+    let mut aux = super::refitter::ErrorBuffers::default();
     let likelihood = problem.options.likelihood;
     let chi2 = eval_into(
         problem.model,
@@ -634,7 +697,7 @@ pub fn analyse(
         &mut values,
         &mut resid,
         Some(&mut jac),
-        &mut dres,
+        &mut aux,
         &mut scratch,
     )
     .map_err(|e| FitError::NotFinite { point: e.point })?;
@@ -645,8 +708,25 @@ pub fn analyse(
         // mu = n): rows `d f / d a / sqrt(mu)`.
         for j in 0..m {
             for i in 0..n {
-                let col = jac[j * n + i] / dres[i];
+                let col = jac[j * n + i] / aux.dres[i];
                 jac[j * n + i] = col / values[i].sqrt();
+            }
+        }
+    }
+    if !view.sigma_x.is_empty() {
+        // Errors in x: the covariance from the effective-variance weights
+        // at the solution, rows `d f / d a / sqrt(V)` (Orear 1982); the
+        // parameter dependence of V shapes the minimum, not the curvature
+        // used for the standard errors.
+        let mut raw = vec![0.0; n * m];
+        let mut v = vec![0.0; n];
+        problem
+            .model
+            .eval(params, &xs, &mut v, Some(&mut raw), &mut scratch)
+            .map_err(|e| FitError::NotFinite { point: e.point })?;
+        for j in 0..m {
+            for i in 0..n {
+                jac[j * n + i] = raw[j * n + i] * aux.dres[i];
             }
         }
     }
@@ -759,6 +839,7 @@ pub fn analyse(
         likelihood,
         statistic: likelihood.statistic().to_string(),
         small_counts,
+        errors_in_x: !view.sigma_x.is_empty(),
         converged: refit.converged,
         stop_reason: refit.stop,
         iterations: refit.iterations,

@@ -64,6 +64,8 @@ pub fn p_value_text(fit: &FitResult) -> String {
 pub fn chi2_label(fit: &FitResult) -> &'static str {
     if fit.likelihood == Likelihood::Poisson {
         "Deviance (Poisson likelihood ratio)"
+    } else if fit.errors_in_x {
+        "Chi-squared (effective variance, errors in x)"
     } else if fit.sigma_given {
         "Chi-squared"
     } else {

@@ -587,6 +587,55 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         }
         None => None,
     };
+    let sigma_x_idx = match &d.sigma_x {
+        None => None,
+        Some(spec_x) => {
+            if d.x.len() != 1 {
+                return Err(invalid(
+                    spec,
+                    "data.sigma_x",
+                    format!("needs exactly one x column; data.x names {}", d.x.len()),
+                ));
+            }
+            if poisson {
+                return Err(invalid(
+                    spec,
+                    "data.sigma_x",
+                    "is not allowed with `fit.likelihood = \"poisson\"`: errors in x apply to Gaussian fits",
+                ));
+            }
+            if d.sigma.is_none() {
+                return Err(invalid(
+                    spec,
+                    "data.sigma_x",
+                    "needs data.sigma too: the effective variance adds the x uncertainty to that of y",
+                ));
+            }
+            match spec_x {
+                SigmaSpec::Column(c) => {
+                    let j = resolve(spec, raw, "data.sigma_x", c)?;
+                    if j == y_idx || x_idx.contains(&j) || sigma_idx == Some(j) {
+                        return Err(invalid(
+                            spec,
+                            "data.sigma_x",
+                            "names a column that is also the y, an x or the sigma column",
+                        ));
+                    }
+                    Some(Some(j))
+                }
+                SigmaSpec::Value(v) => {
+                    if !(v.is_finite() && *v >= 0.0) {
+                        return Err(invalid(
+                            spec,
+                            "data.sigma_x",
+                            "must be a finite number >= 0 or a column name",
+                        ));
+                    }
+                    Some(None)
+                }
+            }
+        }
+    };
     raw.require_rows()?;
     let x = x_idx
         .iter()
@@ -623,12 +672,31 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         (Some(SigmaSpec::Value(v)), None) => Some(vec![*v; y.len()]),
         _ => None,
     };
+    let sigma_x = match (&d.sigma_x, sigma_x_idx) {
+        (_, Some(Some(j))) => {
+            let s = raw.numeric_column(j)?;
+            for (v, &line) in s.iter().zip(&raw.lines) {
+                if *v < 0.0 {
+                    return Err(StudyError::BadSigmaX {
+                        at: Box::new(At::cell(&raw.file, line, j + 1)),
+                        column: j + 1,
+                        name: raw.headers[j].clone(),
+                        value: *v,
+                    });
+                }
+            }
+            Some(s)
+        }
+        (Some(SigmaSpec::Value(v)), _) => Some(vec![*v; y.len()]),
+        _ => None,
+    };
     Ok(Dataset {
         x_names: d.x.clone(),
         x,
         y_name: d.y.clone(),
         y,
         sigma,
+        sigma_x,
     })
 }
 

@@ -72,6 +72,10 @@ pub struct DataSpec {
     /// Standard uncertainties: a column, or one number for every point.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sigma: Option<SigmaSpec>,
+    /// Standard uncertainties of the (one) x column, errors in x: a
+    /// column, or one number for every point.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sigma_x: Option<SigmaSpec>,
     /// Aliases: identifier = CSV header, for headers that are not names a
     /// formula can use (`columns = { temp = "Temp (°C)" }`).
     #[serde(default, with = "ordered", skip_serializing_if = "Vec::is_empty")]

@@ -394,6 +394,7 @@ pub fn cooling() -> AuditResults {
         likelihood: fitaudit::fit::Likelihood::Gaussian,
         statistic: "chi2".to_string(),
         small_counts: None,
+        errors_in_x: false,
         converged: true,
         stop_reason: StopReason::ChiSquaredChange,
         iterations: 9,
