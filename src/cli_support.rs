@@ -137,12 +137,17 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     let _ = writeln!(
         s,
         "sigma      {}",
-        if d.has_sigma() {
+        if study.fit_options.likelihood == crate::fit::Likelihood::Poisson {
+            "none: y holds counts (Poisson likelihood, absolute covariance)"
+        } else if d.has_sigma() {
             "given (absolute covariance)"
         } else {
             "none (covariance scaled by chi2/dof)"
         }
     );
+    if d.sigma_x.is_some() {
+        let _ = writeln!(s, "sigma_x    given (errors in x: effective variance)");
+    }
     let _ = writeln!(s, "formula    {}", study.formula);
     for p in &study.parameters {
         let mut line = format!("parameter  {} start {}", p.name, p.start);
