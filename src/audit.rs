@@ -9,6 +9,7 @@ use crate::diagnostics::contour::ContourResult;
 use crate::diagnostics::derived::{DerivedQuantity, DerivedResult};
 use crate::diagnostics::inverse::{InverseModel, InverseRequest, InverseResult};
 use crate::diagnostics::multistart::MultistartResult;
+use crate::diagnostics::nonlinearity::NonlinearityResult;
 use crate::diagnostics::profile::ProfileResult;
 use crate::diagnostics::resample::ResampleResult;
 use crate::diagnostics::verdict::{self, Verdict, VerdictInputs};
@@ -51,6 +52,14 @@ pub enum AuditError {
         study: String,
         /// Why.
         source: fit::FitError,
+    },
+    /// The slices of a study's work do not join (a merge of foreign parts).
+    #[error("study {study}: the parts do not join: {why}")]
+    Parts {
+        /// Study name.
+        study: String,
+        /// Why.
+        why: String,
     },
 }
 
@@ -101,6 +110,39 @@ pub struct Curve {
     pub y: Vec<f64>,
 }
 
+/// One data set's share of a joint fit (a study of several `[[datasets]]`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DatasetShare {
+    /// The data set's name.
+    pub name: String,
+    /// Its formula.
+    pub formula: String,
+    /// Its number of points.
+    pub points: usize,
+    /// Index of its first point in the joint data (`data`, and the fits'
+    /// per-point arrays, before any display reduction).
+    pub start: usize,
+    /// The parameters its formula uses.
+    pub parameters: Vec<String>,
+    /// Of those, the ones another data set uses too.
+    pub shared: Vec<String>,
+    /// Its contribution to the joint chi-squared: the sum of its squared
+    /// normalised residuals (the contributions add up to `fit.chi2`).
+    pub chi2: f64,
+    /// `chi2 / fit.chi2` (0 when the joint chi-squared is 0).
+    pub chi2_fraction: f64,
+    /// Its share of the joint degrees of freedom: its points minus, for
+    /// each free parameter it uses, one over the number of data sets using
+    /// that parameter (the shares add up to `fit.dof`).
+    pub dof_share: f64,
+    /// `chi2 / dof_share` (none when the share is not positive): near the
+    /// joint reduced chi-squared when the data sets agree with the model
+    /// and their sigma alike.
+    pub reduced_chi2: Option<f64>,
+    /// Its fitted curve, when it has one independent variable.
+    pub curve: Option<Curve>,
+}
+
 /// Everything an audit computed: the content of `results.json`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct AuditResults {
@@ -143,6 +185,10 @@ pub struct AuditResults {
     pub contours: Option<Vec<ContourResult>>,
     /// Multi-start search.
     pub multistart: Option<MultistartResult>,
+    /// Curvature measures and Box's bias at the audited fit (every audit,
+    /// whatever `--only` selects).
+    #[serde(default)]
+    pub nonlinearity: NonlinearityResult,
     /// Verdict per parameter.
     pub verdicts: Vec<Verdict>,
     /// Derived quantities of the study's `[derived]` table, in file order
@@ -153,11 +199,18 @@ pub struct AuditResults {
     /// order (empty without any).
     #[serde(default)]
     pub inverse: Vec<InverseResult>,
+    /// A study of several `[[datasets]]`: each data set's share of the
+    /// joint fit, in file order (empty for one data set).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub datasets: Vec<DatasetShare>,
     /// For a study of more than [`crate::reduction::RECORD_POINTS`]
     /// points: which points `data` and the fits' per-point arrays keep
     /// (every diagnostic ran on all of them); absent when all are kept.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reduction: Option<crate::reduction::DataReduction>,
+    /// The study's `[report]` settings the figures were drawn with.
+    #[serde(default)]
+    pub report: crate::study::ReportSpec,
 }
 
 /// What an audit runs on: the study resolved into its parts (the study
@@ -181,6 +234,8 @@ pub struct AuditInput<'a> {
     pub inverse: &'a [InverseRequest],
     /// The model with x as its last parameter (needed when `inverse` is not empty).
     pub inverse_model: Option<&'a InverseModel>,
+    /// How the figures are drawn (the study's `[report]` table).
+    pub report: crate::study::ReportSpec,
 }
 
 impl AuditInput<'_> {
@@ -204,32 +259,49 @@ impl AuditInput<'_> {
 /// minimum and every other diagnostic and the verdicts run at it: `fit` is
 /// then that fit, `start_fit` the fit from the study's start and `rebased`
 /// true.
+///
+/// This is the merge of one part: [`compute`] of the whole slice, then
+/// [`summarise`], the same two steps a sharded run takes on several machines.
 pub fn run(
     input: &AuditInput,
     options: &AuditOptions,
     progress: &dyn Progress,
 ) -> Result<AuditResults, AuditError> {
-    let problem = input.problem();
-    let base = fit::fit(&problem, input.data).map_err(|source| AuditError::BaseFit {
+    let work = compute(input, options, crate::shard::Slice::whole(), progress)?;
+    let joined = crate::shard::Work::join(vec![work]).map_err(|why| AuditError::Parts {
+        study: input.info.name.clone(),
+        why,
+    })?;
+    summarise(input, options, joined)
+}
+
+/// The fit the battery runs at, with the fit from the study's start when
+/// the audit was re-based (deterministic: the same in every shard).
+struct Settled<'a> {
+    audited: FitResult,
+    start_fit: Option<FitResult>,
+    problem: Problem<'a>,
+    multistart: Option<MultistartResult>,
+}
+
+fn base_fit(input: &AuditInput) -> Result<FitResult, AuditError> {
+    fit::fit(&input.problem(), input.data).map_err(|source| AuditError::BaseFit {
         study: input.info.name.clone(),
         source,
-    })?;
-    let wants = |d: Diagnostic| options.only.contains(&d);
+    })
+}
 
-    let mut multistart = wants(Diagnostic::Multistart).then(|| {
-        let ctx = Fitted {
-            problem: input.problem(),
-            data: input.data,
-            fit: &base,
-            settings: &input.settings,
-        };
-        diagnostics::multistart::run(&ctx, progress)
-    });
+fn settle<'a>(
+    input: &'a AuditInput,
+    base: FitResult,
+    mut multistart: Option<MultistartResult>,
+) -> Settled<'a> {
+    let problem = input.problem();
     let rebased_fit = match &multistart {
         Some(ms) if input.settings.multistart.rebase && !ms.base_is_best => rebase(&problem, input.data, ms),
         _ => None,
     };
-    let (audited, start_fit, problem) = match rebased_fit {
+    match rebased_fit {
         Some(best) => {
             if let Some(ms) = multistart.as_mut() {
                 ms.audited_is_best = true;
@@ -238,22 +310,127 @@ pub fn run(
             for (spec, p) in problem.params.iter_mut().zip(&best.parameters) {
                 spec.start = p.value;
             }
-            (best, Some(base), problem)
+            Settled {
+                audited: best,
+                start_fit: Some(base),
+                problem,
+                multistart,
+            }
         }
-        None => (base, None, problem),
+        None => Settled {
+            audited: base,
+            start_fit: None,
+            problem,
+            multistart,
+        },
+    }
+}
+
+/// Computes slice `slice` of the study's work and returns its raw
+/// outcomes (see [`crate::shard`]): the base fit and the multi-start
+/// search in full, then the slice's bootstrap replicates, Monte Carlo
+/// trials, profiles and contour maps.
+pub fn compute(
+    input: &AuditInput,
+    options: &AuditOptions,
+    slice: crate::shard::Slice,
+    progress: &dyn Progress,
+) -> Result<crate::shard::Work, AuditError> {
+    use crate::shard::{Pieces, StoredOutcome};
+    let base = base_fit(input)?;
+    let wants = |d: Diagnostic| options.only.contains(&d);
+    let multistart = wants(Diagnostic::Multistart).then(|| {
+        let ctx = Fitted {
+            problem: input.problem(),
+            data: input.data,
+            fit: &base,
+            settings: &input.settings,
+        };
+        diagnostics::multistart::run(&ctx, progress)
+    });
+    let raw_multistart = multistart.clone();
+    let settled = settle(input, base, multistart);
+    let ctx = Fitted {
+        problem: settled.problem,
+        data: input.data,
+        fit: &settled.audited,
+        settings: &input.settings,
     };
+    let store =
+        |v: Vec<diagnostics::resample::Outcome>| v.iter().map(StoredOutcome::store).collect::<Vec<_>>();
+    let bootstrap = wants(Diagnostic::Bootstrap).then(|| {
+        let s = &input.settings.bootstrap;
+        let range = slice.range(s.replicates);
+        progress.start(
+            &format!("bootstrap ({})", diagnostics::bootstrap::scheme_name(s.scheme)),
+            range.len() as u64,
+        );
+        let o = diagnostics::bootstrap::replicates(&ctx, s, range.clone(), progress);
+        progress.finish();
+        Pieces::new(s.replicates, range, store(o))
+    });
+    let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| {
+        let s = &input.settings.monte_carlo;
+        let range = slice.range(s.replicates);
+        let o = diagnostics::monte_carlo::outcomes(&ctx, s, range.clone(), progress);
+        // An adaptive run of the whole range may stop early: the list is then shorter.
+        let total = if slice.is_whole() { o.len() } else { s.replicates };
+        Pieces::new(total, range, store(o))
+    });
+    let profile = wants(Diagnostic::Profile).then(|| {
+        let total = diagnostics::profile::free_parameters(&ctx).len();
+        let range = slice.range(total);
+        Pieces::new(
+            total,
+            range.clone(),
+            diagnostics::profile::profiles(&ctx, range, progress),
+        )
+    });
+    let contours = wants(Diagnostic::Contours).then(|| {
+        let total = diagnostics::contour::choose_pairs(&ctx).len();
+        let range = slice.range(total);
+        Pieces::new(
+            total,
+            range.clone(),
+            diagnostics::contour::maps(&ctx, range, progress),
+        )
+    });
+    Ok(crate::shard::Work {
+        multistart: raw_multistart,
+        bootstrap,
+        monte_carlo,
+        profile,
+        contours,
+    })
+}
+
+/// The pure summary step: the whole record from the study's work joined
+/// from all its slices (one slice on one machine). The base fit and the
+/// re-basing are recomputed (deterministic); every statistic reads the
+/// joined outcomes in index order.
+pub fn summarise(
+    input: &AuditInput,
+    options: &AuditOptions,
+    work: crate::shard::Joined,
+) -> Result<AuditResults, AuditError> {
+    let base = base_fit(input)?;
+    let settled = settle(input, base, work.multistart);
+    let (audited, start_fit, multistart) = (settled.audited, settled.start_fit, settled.multistart);
     let rebased = start_fit.is_some();
     let ctx = Fitted {
-        problem,
+        problem: settled.problem,
         data: input.data,
         fit: &audited,
         settings: &input.settings,
     };
-
-    let bootstrap = wants(Diagnostic::Bootstrap).then(|| diagnostics::bootstrap::run(&ctx, progress));
-    let monte_carlo = wants(Diagnostic::MonteCarlo).then(|| diagnostics::monte_carlo::run(&ctx, progress));
-    let profile = wants(Diagnostic::Profile).then(|| diagnostics::profile::run(&ctx, progress));
-    let contours = wants(Diagnostic::Contours).then(|| diagnostics::contour::run(&ctx, progress));
+    let bootstrap = work
+        .bootstrap
+        .map(|o| diagnostics::bootstrap::summarise(&ctx, &input.settings.bootstrap, true, o));
+    let monte_carlo = work
+        .monte_carlo
+        .map(|o| diagnostics::monte_carlo::summarise(&ctx, &input.settings.monte_carlo, o));
+    let profile = work.profile.map(|p| diagnostics::profile::assemble(&ctx, p));
+    let contours = work.contours;
 
     let verdict_inputs = VerdictInputs {
         fit: &audited,
@@ -266,7 +443,9 @@ pub fn run(
         sigma_given: audited.sigma_given,
         level: input.settings.level,
     };
-    let verdicts = verdict::decide(&verdict_inputs);
+    let nonlinearity = diagnostics::nonlinearity::run(&ctx);
+    let mut verdicts = verdict::decide(&verdict_inputs);
+    diagnostics::nonlinearity::cite(&mut verdicts, &nonlinearity);
     let derived = diagnostics::derived::evaluate(input.derived, &verdict_inputs);
     let inverse = match input.inverse_model {
         Some(im) if !input.inverse.is_empty() => diagnostics::inverse::evaluate(
@@ -294,6 +473,7 @@ pub fn run(
             monte_carlo.as_ref(),
         )
     });
+    let datasets = dataset_shares(input.model, input.data, &audited, &input.params);
     drop(ctx);
     let mut audited = audited;
     let mut start_fit = start_fit;
@@ -339,11 +519,98 @@ pub fn run(
         profile,
         contours,
         multistart,
+        nonlinearity,
         verdicts,
         derived,
         inverse,
+        datasets,
         reduction,
+        report: input.report,
     })
+}
+
+/// Each data set's share of a joint fit (empty for one data set).
+pub fn dataset_shares(
+    model: &dyn ModelFn,
+    data: &Dataset,
+    fit: &FitResult,
+    params: &[ParamSpec],
+) -> Vec<DatasetShare> {
+    let groups = &data.groups;
+    let users = |name: &str| {
+        groups
+            .iter()
+            .filter(|g| g.parameters.iter().any(|p| p == name))
+            .count()
+    };
+    let values: Vec<f64> = fit.parameters.iter().map(|p| p.value).collect();
+    groups
+        .iter()
+        .enumerate()
+        .map(|(g, group)| {
+            let chi2: f64 = group
+                .range()
+                .map(|i| fit.residuals.get(i).map_or(0.0, |r| r * r))
+                .sum();
+            let dof_share = group.len as f64
+                - group
+                    .parameters
+                    .iter()
+                    .filter(|name| params.iter().any(|p| &p.name == *name && !p.fixed))
+                    .map(|name| 1.0 / users(name) as f64)
+                    .sum::<f64>();
+            let curve = (group.x_names.len() == 1)
+                .then(|| group_curve(model, data, g, &values))
+                .flatten();
+            DatasetShare {
+                name: group.name.clone(),
+                formula: group.formula.clone(),
+                points: group.len,
+                start: group.start,
+                parameters: group.parameters.clone(),
+                shared: group
+                    .parameters
+                    .iter()
+                    .filter(|p| users(p) > 1)
+                    .cloned()
+                    .collect(),
+                chi2,
+                chi2_fraction: if fit.chi2 > 0.0 { chi2 / fit.chi2 } else { 0.0 },
+                dof_share,
+                reduced_chi2: (dof_share > 0.0).then(|| chi2 / dof_share),
+                curve,
+            }
+        })
+        .collect()
+}
+
+/// Data set `g`'s model on 400 points spanning its (single) x column.
+fn group_curve(model: &dyn ModelFn, data: &Dataset, g: usize, params: &[f64]) -> Option<Curve> {
+    let r = data.groups[g].range();
+    let col = &data.x.first()?[r];
+    let lo = col.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = col.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !(lo.is_finite() && hi.is_finite()) {
+        return None;
+    }
+    let n = 400;
+    let xs: Vec<f64> = (0..n)
+        .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
+        .collect();
+    let zeros = vec![0.0; n];
+    let group = vec![g as f64; n];
+    let last = data.x.len() - 1;
+    let cols: Vec<&[f64]> = (0..data.x.len())
+        .map(|k| match k {
+            0 => xs.as_slice(),
+            k if k == last => group.as_slice(),
+            _ => zeros.as_slice(),
+        })
+        .collect();
+    let mut ys = vec![0.0; n];
+    let mut scratch = Vec::new();
+    let _ = model.eval(params, &cols, &mut ys, None, &mut scratch);
+    Some(Curve { x: xs, y: ys })
 }
 
 /// The full fit from the best minimum of the search, when it is a valid
@@ -394,7 +661,7 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
             study_sha256: study.study_sha256.clone(),
             data_sha256: study.data_sha256.clone(),
         },
-        model: &study.model,
+        model: study.model_fn(),
         params: study.parameters.clone(),
         fit_options: study.fit_options.clone(),
         data: &study.dataset,
@@ -402,5 +669,6 @@ pub fn input_from_study(study: &crate::study::Study) -> AuditInput<'_> {
         derived: &study.derived,
         inverse: &study.inverse,
         inverse_model: study.inverse_model.as_ref(),
+        report: study.report,
     }
 }

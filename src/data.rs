@@ -25,6 +25,46 @@ pub struct Dataset {
     /// point (errors in x, `data.sigma_x`); `None` when x is exact.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sigma_x: Option<Vec<f64>>,
+    /// The data sets of a study with several `[[datasets]]`, in file order,
+    /// each a contiguous range of the points; empty for one data set. The
+    /// last `x` column then holds each point's data-set index (0, 1, ...),
+    /// which the joint model reads, so that resampled copies stay correct.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub groups: Vec<DataGroup>,
+}
+
+/// One data set of a joint study: a contiguous range of the joint points.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DataGroup {
+    /// The data set's `name`.
+    pub name: String,
+    /// Its formula.
+    pub formula: String,
+    /// Its data file as resolved, when read from one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub file: Option<String>,
+    /// SHA-256 (hex) of its data file's bytes, when read from one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sha256: Option<String>,
+    /// Its independent variables, in the order of the joint `x` columns
+    /// (column `k` of the joint data holds this data set's `x_names[k]`).
+    pub x_names: Vec<String>,
+    /// Its response column.
+    pub y_name: String,
+    /// The parameters its formula uses, in parameter-vector order (a
+    /// parameter listed by several data sets is shared).
+    pub parameters: Vec<String>,
+    /// Index of its first point in the joint data.
+    pub start: usize,
+    /// Its number of points.
+    pub len: usize,
+}
+
+impl DataGroup {
+    /// The range of its points in the joint data.
+    pub fn range(&self) -> std::ops::Range<usize> {
+        self.start..self.start + self.len
+    }
 }
 
 impl Dataset {
@@ -37,6 +77,7 @@ impl Dataset {
             y,
             sigma,
             sigma_x: None,
+            groups: Vec::new(),
         }
     }
 
@@ -60,6 +101,16 @@ impl Dataset {
         match &self.sigma {
             Some(s) => s.clone(),
             None => vec![1.0; self.len()],
+        }
+    }
+
+    /// The data set (index into `groups`) of each point; all 0 without
+    /// groups. Read from the data-set column, so it stays right for
+    /// resampled or reduced copies.
+    pub fn group_of_points(&self) -> Vec<usize> {
+        match (self.groups.is_empty(), self.x.last()) {
+            (false, Some(col)) => col.iter().map(|&g| g as usize).collect(),
+            _ => vec![0; self.len()],
         }
     }
 

@@ -9,6 +9,7 @@
 #![warn(missing_docs)]
 
 pub mod audit;
+pub mod batch;
 pub mod cli_support;
 pub mod data;
 pub mod demo;
@@ -20,5 +21,6 @@ pub mod reduction;
 pub mod report;
 pub mod rng;
 pub mod settings;
+pub mod shard;
 pub mod study;
 pub mod validation;

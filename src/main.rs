@@ -48,8 +48,26 @@ enum Command {
         study: PathBuf,
     },
     /// Run the diagnostics battery and write report.html, results.json,
-    /// summary.md and figures/ into the output folder.
+    /// summary.md and figures/ into the output folder. Several studies, or
+    /// a folder of them, make a batch: OUT/<study>/ for each, with
+    /// OUT/index.html and OUT/index.json (docs/CLUSTER.md).
     Audit(AuditArgs),
+    /// Join the part folders of `audit --shard K/N` (every K of one N, in
+    /// any order) into the full report, equal to the single-machine run's.
+    Merge {
+        /// Part folders written by `audit --shard`.
+        #[arg(required = true)]
+        parts: Vec<PathBuf>,
+        /// Output folder of the report (or of the batch).
+        #[arg(long)]
+        out: PathBuf,
+        /// Worker threads (default: all cores).
+        #[arg(long, value_parser = parse_threads)]
+        threads: Option<usize>,
+        /// No output on stderr.
+        #[arg(long)]
+        quiet: bool,
+    },
     /// Run the built-in demonstration scenarios on embedded data.
     Demo {
         /// Output folder of the demo reports.
@@ -68,11 +86,22 @@ enum Command {
 
 #[derive(clap::Args, Debug)]
 struct AuditArgs {
-    /// Study file (TOML).
-    study: PathBuf,
-    /// Output folder [default: out/<study name>/].
+    /// Study file(s) (TOML), or folders of them (a batch).
+    #[arg(required = true)]
+    studies: Vec<PathBuf>,
+    /// Output folder [default: out/<study name>/, out/batch/ for a batch,
+    /// with `.part-K-of-N` appended under --shard].
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Run only the K-th of N slices of the work (bootstrap and Monte Carlo
+    /// replicates, profiles, contour maps; in a batch of at least N studies,
+    /// the studies) and write a part folder for `fitaudit merge`.
+    #[arg(long, value_name = "K/N")]
+    shard: Option<fitaudit::shard::Slice>,
+    /// Seconds between progress lines when stderr is not a terminal (0:
+    /// a line at every update).
+    #[arg(long, default_value_t = 30.0, value_name = "SECONDS", value_parser = parse_seconds)]
+    progress_interval: f64,
     /// Comma-separated diagnostics to run: bootstrap, monte-carlo, profile,
     /// contours, multistart [default: all].
     #[arg(long, value_delimiter = ',', value_parser = parse_diagnostic)]
@@ -87,6 +116,10 @@ struct AuditArgs {
     /// Seed of every random stream (overrides the study).
     #[arg(long)]
     seed: Option<u64>,
+    /// Confidence level of every interval, in (0, 1) (overrides
+    /// audit.level).
+    #[arg(long)]
+    level: Option<f64>,
     /// Worker threads (default: all cores); results do not depend on it.
     #[arg(long, value_parser = parse_threads)]
     threads: Option<usize>,
@@ -136,6 +169,13 @@ fn parse_positive(s: &str) -> Result<usize, String> {
     }
 }
 
+fn parse_seconds(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if v.is_finite() && (0.0..=1e6).contains(&v) => Ok(v),
+        _ => Err(format!("'{s}' is not a number of seconds from 0 to 1e6")),
+    }
+}
+
 fn parse_threads(s: &str) -> Result<usize, String> {
     parse_positive(s).map_err(|e| format!("thread count {e}"))
 }
@@ -174,20 +214,32 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 &study.audit,
                 study.dataset.has_sigma(),
             );
+            let datasets =
+                fitaudit::audit::dataset_shares(study.model_fn(), &study.dataset, &fit, &study.parameters);
             if json {
                 #[derive(serde::Serialize)]
                 struct Wrapped<'a> {
                     fit: &'a fitaudit::fit::FitResult,
                     derived: &'a [fitaudit::diagnostics::derived::DerivedResult],
+                    nonlinearity: fitaudit::diagnostics::nonlinearity::NonlinearityResult,
+                    #[serde(skip_serializing_if = "<[_]>::is_empty")]
+                    datasets: &'a [fitaudit::audit::DatasetShare],
                 }
                 let wrapped = Wrapped {
                     fit: &fit,
                     derived: &derived,
+                    nonlinearity: fitaudit::diagnostics::nonlinearity::compute(
+                        study.model_fn(),
+                        &study.dataset,
+                        &fit,
+                    ),
+                    datasets: &datasets,
                 };
                 emit(&(serde_json::to_string_pretty(&wrapped)? + "\n"))?;
             } else {
                 emit(&text::fit_table(study.title.as_deref(), &study.parameters, &fit))?;
                 emit(&text::derived_table(&fit, &derived))?;
+                emit(&text::datasets_table(&datasets, fit.sigma_given))?;
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -197,6 +249,12 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             Ok(ExitCode::SUCCESS)
         }
         Command::Audit(args) => audit_command(args),
+        Command::Merge {
+            parts,
+            out,
+            threads,
+            quiet,
+        } => merge_command(parts, out, threads, quiet),
         Command::Demo { out, threads, quiet } => cli_support::with_threads(threads, || {
             let progress = TerminalProgress::new(quiet);
             let summary = fitaudit::demo::run_all(&out, &command_line(), &progress)?;
@@ -211,56 +269,100 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
 }
 
 fn audit_command(args: AuditArgs) -> anyhow::Result<ExitCode> {
-    let mut study = study::load(&args.study)?;
-    if let Some(n) = args.replicates {
-        study.audit.bootstrap.replicates = n;
-        study.audit.monte_carlo.replicates = n;
-    }
-    if let Some(n) = args.starts {
-        study.audit.multistart.starts = n;
-    }
-    if let Some(s) = args.seed {
-        study.audit.seed = s;
-    }
-    if args.keep_start {
-        study.audit.multistart.rebase = false;
-    }
-    study
-        .audit
-        .validate()
-        .map_err(|(key, why)| study::StudyError::Invalid {
-            at: Box::new(study::At::file(&study.path)),
-            key: format!("{key} (as set in the study or on the command line)"),
-            why,
-        })?;
-    let out = args
-        .out
-        .clone()
-        .unwrap_or_else(|| Path::new("out").join(cli_support::folder_name(&study.name)));
-    fitaudit::output::preflight(&out)?;
+    use fitaudit::batch;
+    let overrides = batch::Overrides {
+        replicates: args.replicates,
+        starts: args.starts,
+        seed: args.seed,
+        keep_start: args.keep_start,
+        level: args.level,
+    };
     let options = AuditOptions {
         only: args.only.clone().unwrap_or_else(|| Diagnostic::ALL.to_vec()),
         command_line: command_line(),
         write_replicates: args.replicates_csv,
     };
+    let is_batch = batch::is_batch(&args.studies);
+    let studies = batch::expand(&args.studies)?;
+    let interval = std::time::Duration::from_secs_f64(args.progress_interval);
+    if !is_batch && args.shard.is_none() {
+        let study = overrides.load(&studies[0])?;
+        let out = args
+            .out
+            .clone()
+            .unwrap_or_else(|| Path::new("out").join(cli_support::folder_name(&study.name)));
+        fitaudit::output::preflight(&out)?;
+        return cli_support::with_threads(args.threads, || {
+            let progress = TerminalProgress::with_interval(args.quiet, interval);
+            let results = audit::run(&audit::input_from_study(&study), &options, &progress)?;
+            let dir = fitaudit::report::write_report(&results, &out, &options)
+                .with_context(|| format!("writing the report into {}", out.display()))?;
+            if !args.quiet {
+                eprintln!("report written to {}", dir.display());
+            }
+            emit(&text::verdict_lines(&results))?;
+            Ok(ExitCode::from(batch::audit_status(&results, args.strict)))
+        });
+    }
+    let base = if is_batch {
+        "batch".to_string()
+    } else {
+        let stem = studies[0].file_stem().map(|s| s.to_string_lossy().into_owned());
+        cli_support::folder_name(&stem.unwrap_or_default())
+    };
+    let out = args.out.clone().unwrap_or_else(|| match args.shard {
+        Some(s) => Path::new("out").join(format!("{base}.part-{}-of-{}", s.k, s.n)),
+        None => Path::new("out").join(&base),
+    });
     cli_support::with_threads(args.threads, || {
-        let progress = TerminalProgress::new(args.quiet);
-        let results = audit::run(&audit::input_from_study(&study), &options, &progress)?;
-        let dir = fitaudit::report::write_report(&results, &out, &options)
-            .with_context(|| format!("writing the report into {}", out.display()))?;
-        if !args.quiet {
-            eprintln!("report written to {}", dir.display());
+        let progress = TerminalProgress::with_interval(args.quiet, interval);
+        let req = batch::Request {
+            studies,
+            overrides,
+            options,
+            strict: args.strict,
+            out: out.clone(),
+            progress: &progress,
+        };
+        match args.shard {
+            Some(slice) => {
+                let part = batch::run_shard(&req, slice, is_batch)?;
+                if !args.quiet {
+                    eprintln!("part {} written to {}", part.shard, out.display());
+                }
+                emit(&text::part_lines(&part))?;
+                Ok(ExitCode::SUCCESS)
+            }
+            None => {
+                let index = batch::run_batch(&req)?;
+                if !args.quiet {
+                    eprintln!("batch written to {}", out.display());
+                }
+                emit(&text::index_lines(&index))?;
+                Ok(ExitCode::from(index.exit_status))
+            }
         }
-        emit(&text::verdict_lines(&results))?;
-        let fails = results
-            .verdicts
-            .iter()
-            .any(|v| v.status == fitaudit::diagnostics::verdict::Status::Fails);
-        Ok(if args.strict && (fails || results.rebased) {
-            ExitCode::from(3)
-        } else {
-            ExitCode::SUCCESS
-        })
+    })
+}
+
+fn merge_command(
+    parts: Vec<PathBuf>,
+    out: PathBuf,
+    threads: Option<usize>,
+    quiet: bool,
+) -> anyhow::Result<ExitCode> {
+    cli_support::with_threads(threads, || {
+        let merged = fitaudit::batch::merge(&parts, &out, &command_line())?;
+        if !quiet {
+            eprintln!("merged {} parts into {}", parts.len(), out.display());
+        }
+        if let Some(r) = &merged.results {
+            emit(&text::verdict_lines(r))?;
+        }
+        if let Some(i) = &merged.index {
+            emit(&text::index_lines(i))?;
+        }
+        Ok(ExitCode::from(merged.exit_status))
     })
 }
 

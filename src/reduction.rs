@@ -139,7 +139,21 @@ pub fn reduce_data(data: &Dataset, indices: &[usize]) -> Dataset {
         y_name: data.y_name.clone(),
         y: pick(&data.y),
         sigma: data.sigma.as_ref().map(|s| pick(s)),
-        sigma_x: None,
+        sigma_x: data.sigma_x.as_ref().map(|s| pick(s)),
+        groups: data
+            .groups
+            .iter()
+            .map(|g| {
+                let r = g.range();
+                let start = indices.iter().filter(|&&i| i < r.start).count();
+                let len = indices.iter().filter(|&&i| r.contains(&i)).count();
+                crate::data::DataGroup {
+                    start,
+                    len,
+                    ..g.clone()
+                }
+            })
+            .collect(),
     }
 }
 

@@ -32,6 +32,48 @@ profile = { points = 11 }
 contours = { grid = 7 }
 "#;
 
+/// The base study as two data sets (both read `d.csv`) sharing `b` and `tau`.
+const JOINT: &str = r#"title = "joint catalogue base"
+[[datasets]]
+name = "A"
+file = "d.csv"
+x = "t"
+y = "y"
+sigma = "u"
+formula = "a + b*exp(-t/tau)"
+
+[[datasets]]
+name = "B"
+file = "d.csv"
+x = "t"
+y = "y"
+sigma = "u"
+formula = "a2 + b*exp(-t/tau)"
+
+[parameters]
+a = { start = 1.0 }
+a2 = { start = 1.0 }
+b = { start = 4.0 }
+tau = { start = 2.0, min = 0.01, max = 100 }
+
+[audit]
+bootstrap = { replicates = 20 }
+monte_carlo = { replicates = 20 }
+multistart = { starts = 8 }
+profile = { points = 11 }
+contours = { grid = 7 }
+"#;
+
+/// The joint base study with the `n`-th (0-based) occurrence of `from` replaced.
+fn joint(from: &str, n: usize, to: &str) -> Option<String> {
+    let at = JOINT
+        .match_indices(from)
+        .nth(n)
+        .unwrap_or_else(|| panic!("joint base study lacks {from:?} #{n}"))
+        .0;
+    Some(format!("{}{to}{}", &JOINT[..at], &JOINT[at + from.len()..]))
+}
+
 fn csv_rows() -> String {
     let mut s = String::from("t,y,u\n");
     for i in 0..12 {
@@ -764,6 +806,162 @@ fn cases() -> Vec<Case> {
             args: FIT,
             code: 0,
             expect: &["\"converged\": true", "\"errors_in_x\": true"],
+        },
+        Case {
+            name: "joint: [data] together with [[datasets]]",
+            study: Some(format!(
+                "{JOINT}\n[data]\nfile = \"d.csv\"\nx = \"t\"\ny = \"y\"\n"
+            )),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &[
+                "study.toml",
+                "`data`",
+                "cannot be used together with [[datasets]]",
+            ],
+        },
+        Case {
+            name: "joint: [model] together with [[datasets]]",
+            study: Some(format!("{JOINT}\n[model]\nformula = \"a\"\n")),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`model`", "[[datasets]]"],
+        },
+        Case {
+            name: "neither [data] nor [[datasets]]",
+            study: Some("[model]\nformula = \"a*t\"\n[parameters]\na = { start = 1 }\n".into()),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["`data`", "is missing", "[[datasets]]"],
+        },
+        Case {
+            name: "joint: unknown name in a data set's formula",
+            study: joint("a2 + b*exp(-t/tau)", 0, "a2 + b*exp(-t/tau3)"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &[
+                "`datasets[1].formula`",
+                "`tau3`",
+                "did you mean `tau`?",
+                "line 16, column 26",
+            ],
+        },
+        Case {
+            name: "joint: parameter used by no formula",
+            study: joint(
+                "b = { start = 4.0 }",
+                0,
+                "b = { start = 4.0 }\nzz = { start = 1 }",
+            ),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`parameters.zz`", "no data set's formula uses it"],
+        },
+        Case {
+            name: "joint: two data sets of one name",
+            study: joint("name = \"B\"", 0, "name = \"A\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[1].name`", "`A`", "datasets[0]"],
+        },
+        Case {
+            name: "joint: data set without a name",
+            study: joint("name = \"A\"\n", 0, ""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[0].name`", "missing"],
+        },
+        Case {
+            name: "joint: data set without a formula",
+            study: joint("formula = \"a + b*exp(-t/tau)\"\n", 0, ""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[0].formula`", "missing"],
+        },
+        Case {
+            name: "joint: missing column in a data set",
+            study: joint("y = \"y\"", 1, "y = \"yy\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[1].y`", "`yy`", "d.csv"],
+        },
+        Case {
+            name: "joint: unknown key in a data set",
+            study: joint("sigma = \"u\"", 1, "sigmaa = \"u\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["sigmaa", "datasets"],
+        },
+        Case {
+            name: "joint: sigma in one data set only",
+            study: joint("sigma = \"u\"\n", 1, ""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[1].sigma`", "every data set states sigma or none"],
+        },
+        Case {
+            name: "joint: non-positive sigma value",
+            study: joint("sigma = \"u\"", 0, "sigma = -0.5"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[0].sigma`", "positive"],
+        },
+        Case {
+            name: "joint: data file absent",
+            study: joint("file = \"d.csv\"", 1, "file = \"absent.csv\""),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[1].file`", "absent.csv"],
+        },
+        Case {
+            name: "joint: inverse prediction",
+            study: Some(format!("{JOINT}\n[[inverse]]\nname = \"s1\"\ny = 2.0\n")),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`inverse[0]`", "single data set"],
+        },
+        Case {
+            name: "joint: x header that is not a name, in a data set",
+            study: joint("x = \"t\"", 0, "x = \"t (s)\""),
+            csv: csv_with(|l| l[0] = l[0].replacen("t,", "t (s),", 1)),
+            args: AUDIT,
+            code: 2,
+            expect: &[
+                "`datasets[0].x`",
+                "`t (s)`",
+                "columns = { t = \"t (s)\" }",
+                "in datasets[0]",
+            ],
+        },
+        Case {
+            name: "joint: alias that is not a name, in a data set",
+            study: joint("sigma = \"u\"", 0, "sigma = \"u\"\ncolumns = { 1u = \"u\" }"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["`datasets[0].columns.1u`", "alias"],
+        },
+        Case {
+            name: "joint: the base joint study fits",
+            study: Some(JOINT.to_string()),
+            csv: None,
+            args: FIT,
+            code: 0,
+            expect: &["\"converged\": true"],
         },
         Case {
             name: "many columns",

@@ -239,6 +239,7 @@ fn an_audit_records_bands_and_writes_bands_csv() {
         derived: &[],
         inverse: &[],
         inverse_model: None,
+        report: Default::default(),
     };
     let options = AuditOptions {
         only: vec![],

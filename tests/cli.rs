@@ -196,3 +196,41 @@ fn no_sigma_fit_uses_the_student_t_factor() {
     assert!((big_u - k * u).abs() <= 1e-12 * big_u);
     assert!((big_u - 2.179 * 2.707_007_524_1).abs() < 2e-3, "U = {big_u}");
 }
+
+/// `check` echoes the sigma it read and the bootstrap scheme as a study file
+/// writes it; `--level` overrides `audit.level` and is validated like it.
+#[test]
+fn check_echoes_sigma_and_scheme_and_level_flag_is_checked() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let out = fitaudit()
+        .arg("check")
+        .arg(format!("{root}/demo-data/cooling.toml"))
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let text = String::from_utf8_lossy(&out.stdout);
+    // demo-data/cooling.csv: u_temp_C is 0.15 on every row (written by
+    // examples/generate_demo_data.rs).
+    assert!(
+        text.contains("sigma      column u_temp_C, 0.15 for every point"),
+        "{text}"
+    );
+    // The default scheme, spelled as in a study file (`"residual"`).
+    assert!(text.contains("(residual)"), "{text}");
+    assert!(!text.contains("Residual"), "{text}");
+    let tmp = tempfile::tempdir().unwrap();
+    let out = fitaudit()
+        .args([
+            "audit",
+            &format!("{root}/demo-data/cooling.toml"),
+            "--quiet",
+            "--level",
+            "1.5",
+            "--out",
+        ])
+        .arg(tmp.path().join("x"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("audit.level"));
+}

@@ -284,3 +284,78 @@ fn more_than_five_parameters_map_the_six_most_correlated_pairs() {
         }
     }
 }
+
+/// The enzyme demo's thin curved valley (Vmax and Km correlated almost
+/// perfectly): on the default 41 x 41 lattice its 95.45 % contour used to
+/// fall apart into islands around single nodes (3 pieces at 6.18, 21 at
+/// 11.83). With the saddle cells refined every closed contour is one closed
+/// line, and no level leaves a tiny island behind. (A marching-squares
+/// contour of a connected region below the level is one polyline: closed,
+/// or ending on the lattice edge where the region runs off it.)
+#[test]
+fn thin_valley_contours_are_traced_whole() {
+    use fitaudit::audit::{self, AuditOptions};
+    use fitaudit::demo::{self, SCENARIOS};
+    use fitaudit::settings::Diagnostic;
+    let work = tempfile::tempdir().unwrap();
+    let sc = SCENARIOS.iter().find(|s| s.name == "enzyme").unwrap();
+    let study = demo::load_scenario(sc, work.path()).unwrap();
+    let options = AuditOptions {
+        only: vec![Diagnostic::Contours],
+        ..AuditOptions::default()
+    };
+    let r = audit::run(&audit::input_from_study(&study), &options, &NoProgress).unwrap();
+    let c = &r.contours.as_ref().unwrap()[0];
+    assert_eq!(c.grid.x.len(), 41);
+    for (k, line) in c.lines.iter().enumerate() {
+        assert_eq!(
+            line.paths.len(),
+            1,
+            "level {}: {} pieces",
+            line.level,
+            line.paths.len()
+        );
+        let p = &line.paths[0];
+        // The 68.27 % region spans only a few nodes of the default lattice
+        // (6 points); the wider ones are long lines, not islands.
+        assert!(
+            p.len() >= if k == 0 { 5 } else { 12 },
+            "level {}: {} points",
+            line.level,
+            p.len()
+        );
+        if k < 2 {
+            // 68.27 % and 95.45 %: the region lies inside the lattice.
+            assert_eq!(p.first(), p.last(), "level {} is closed", line.level);
+        }
+    }
+}
+
+/// A saddle cell is resolved by the centre value when one is supplied: with
+/// corners 0 and 2 low, a low centre joins them (one line crossing the
+/// cell twice as two segments around the high corners), a high centre
+/// cuts them off; the mean of the corners decides otherwise (identity of
+/// the construction).
+#[test]
+fn saddle_cells_follow_the_refined_centre() {
+    use fitaudit::diagnostics::marching::{contour_paths, contour_paths_with, saddle_cells};
+    let x = [0.0, 1.0];
+    let y = [0.0, 1.0];
+    // z[r][c]: (0,0) = 0 low, (0,1) = 10 high, (1,1) = 0 low, (1,0) = 10 high; mean 5.
+    let z = vec![vec![0.0, 10.0], vec![10.0, 0.0]];
+    assert_eq!(saddle_cells(&z, &[4.0]), vec![(0, 0)]);
+    assert!(saddle_cells(&z, &[11.0]).is_empty());
+    let mean = contour_paths(&x, &y, &z, 4.0);
+    let low = contour_paths_with(&x, &y, &z, 4.0, &|_, _| Some(1.0));
+    let high = contour_paths_with(&x, &y, &z, 4.0, &|_, _| Some(9.0));
+    // Level 4 below the mean 5: the mean says "centre high", as a high centre does.
+    assert_eq!(mean, high);
+    assert_ne!(low, high);
+    // A low centre cuts off the two high corners: the segments run from
+    // edge to edge around (1, 0) and (0, 1), crossing at 0.4 of each edge.
+    let ends: Vec<[f64; 2]> = low.iter().flat_map(|p| [p[0], p[p.len() - 1]]).collect();
+    assert!(
+        ends.iter().any(|e| (e[0] - 0.4).abs() < 1e-12 && e[1] == 0.0),
+        "{low:?}"
+    );
+}

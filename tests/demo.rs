@@ -67,6 +67,12 @@ fn demo_verdicts_are_the_intended_ones() {
                     );
                 }
                 assert!(results.derived.iter().all(|d| d.verdict.status == Status::Holds));
+                // Nearly linear: both curvatures below the critical value.
+                let nl = &results.nonlinearity;
+                assert!(
+                    !nl.parameter_effects_exceeds() && !nl.intrinsic_exceeds(),
+                    "{nl:?}"
+                );
                 let inv = &results.inverse[0];
                 assert!(inv.x.is_some() && inv.monte_carlo.is_some(), "{inv:?}");
                 let bands = results.bands.as_ref().unwrap();
@@ -83,6 +89,25 @@ fn demo_verdicts_are_the_intended_ones() {
                 let slope = &results.derived[0];
                 assert_eq!(slope.name, "slope");
                 assert_eq!(slope.verdict.status, Status::Holds, "{:?}", slope.verdict);
+                // README walkthrough: the parametrisation is curved (the
+                // parameter-effects curvature exceeds the critical value,
+                // the intrinsic one does not), Box's bias of Km is marked,
+                // and the verdicts cite it without it deciding them.
+                let nl = &results.nonlinearity;
+                assert!(
+                    nl.parameter_effects_exceeds() && !nl.intrinsic_exceeds(),
+                    "{nl:?}"
+                );
+                assert!(nl.bias_of("Km").is_some_and(|b| b.is_marked()), "{nl:?}");
+                for v in &results.verdicts {
+                    let cited = v
+                        .findings
+                        .iter()
+                        .find(|f| f.rule == fitaudit::diagnostics::verdict::Rule::Nonlinearity);
+                    let cited = cited.expect("the doubted verdict cites the curvature");
+                    assert_eq!(cited.status, Status::Holds);
+                    assert_eq!(cited.detail.as_deref(), Some("parameter-effects"));
+                }
             }
             "vibration" => {
                 let ms = results.multistart.as_ref().unwrap();

@@ -130,3 +130,76 @@ fn refits_allocate_nothing() {
         assert_eq!(n, 0, "{label} steepest");
     }
 }
+
+#[test]
+fn joint_model_refits_allocate_nothing() {
+    use fitaudit::model::{JointModel, JointPart};
+    // Two decays sharing the rate k: set 0 is a1*exp(-k*t), set 1 is
+    // a2*exp(-k*t) + c; joint parameters (a1, k, a2, c).
+    let compile_part = |formula: &str, names: &[&str], map: Vec<usize>| {
+        let p: Vec<String> = names.iter().map(|s| s.to_string()).collect();
+        let v = vec!["t".to_string()];
+        let syms = Symbols {
+            parameters: &p,
+            constants: &[],
+            variables: &v,
+        };
+        JointPart {
+            tape: compile(formula, &syms).unwrap(),
+            map,
+        }
+    };
+    let model = JointModel::new(
+        vec![
+            compile_part("a1*exp(-k*t)", &["a1", "k"], vec![0, 1]),
+            compile_part("a2*exp(-k*t) + c", &["k", "a2", "c"], vec![1, 2, 3]),
+        ],
+        4,
+        1,
+    );
+    let t: Vec<f64> = (0..120).map(|i| (i % 60) as f64 * 0.1).collect();
+    let g: Vec<f64> = (0..120).map(|i| if i < 60 { 0.0 } else { 1.0 }).collect();
+    let y: Vec<f64> = t
+        .iter()
+        .zip(&g)
+        .map(|(&t, &g)| {
+            if g == 0.0 {
+                2.0 * (-0.7 * t).exp()
+            } else {
+                1.5 * (-0.7 * t).exp() + 0.3
+            }
+        })
+        .collect();
+    let sigma = vec![0.01; t.len()];
+    let xs: Vec<&[f64]> = vec![&t, &g];
+    let view = DataView {
+        x: &xs,
+        y: &y,
+        sigma: &sigma,
+    };
+    let problem = Problem {
+        model: &model,
+        params: vec![
+            ParamSpec::free("a1", 2.0),
+            ParamSpec::free("k", 0.7),
+            ParamSpec::free("a2", 1.5),
+            ParamSpec::free("c", 0.3),
+        ],
+        options: FitOptions::default(),
+    };
+    let start = [2.2, 0.6, 1.4, 0.25];
+    let free = [true; 4];
+    let mut rf = Refitter::new(&problem, t.len());
+    rf.refit(&problem, &view, &start, &free);
+    let before = allocations();
+    let mut ok = true;
+    for _ in 0..5 {
+        let r = rf.refit(&problem, &view, &start, &free);
+        // Exact data: the refit recovers the generating values.
+        ok &= r.converged && (rf.params()[1] - 0.7).abs() < 1e-8 && (rf.params()[3] - 0.3).abs() < 1e-8;
+        let r = rf.refit(&problem, &view, &start, &[true, false, true, true]);
+        ok &= r.converged;
+    }
+    assert_eq!(allocations() - before, 0, "joint model refits allocated");
+    assert!(ok);
+}

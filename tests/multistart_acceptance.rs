@@ -81,6 +81,7 @@ impl Case {
             derived: &[],
             inverse: &[],
             inverse_model: None,
+            report: Default::default(),
         };
         let options = AuditOptions {
             only: only.to_vec(),

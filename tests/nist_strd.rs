@@ -93,6 +93,7 @@ fn dataset(p: &NistProblem, m: &NistModel) -> Dataset {
         y,
         sigma: None,
         sigma_x: None,
+        groups: Vec::new(),
     }
 }
 

@@ -1,10 +1,10 @@
 //! The figures: the expected files, well-formed self-contained SVG,
-//! labelled axes, greyscale only, escaped text, safe file names.
+//! labelled axes, colours of one palette only, escaped text, safe file names.
 
 #[path = "common/fixture.rs"]
 mod fixture;
 
-use fitaudit::report::figures::{self, multistart_plane_order, Figures};
+use fitaudit::report::figures::{self, multistart_plane_order, palette, Figures};
 
 fn svg_texts(svg: &str) -> Vec<String> {
     let doc = roxmltree::Document::parse(svg).expect("well-formed SVG");
@@ -28,16 +28,20 @@ fn check_svg(name: &str, svg: &str) {
     for bad in ["href", "<image", "url(", "@import", "<script", "@font-face"] {
         assert!(!svg.contains(bad), "{name} contains {bad}");
     }
-    // Greyscale: every colour has equal red, green and blue.
+    // One palette: every colour is a grey, one of the eight colours of
+    // Okabe and Ito (2008), or a tint of one (mixed with white).
     for node in doc.descendants() {
         for attr in ["fill", "stroke"] {
             if let Some(c) = node.attribute(attr) {
                 if let Some(hex) = c.strip_prefix('#') {
                     assert_eq!(hex.len(), 6, "{name}: colour {c}");
-                    assert!(
-                        hex[0..2] == hex[2..4] && hex[2..4] == hex[4..6],
-                        "{name}: colour {c} is not grey"
-                    );
+                    let v = |i: usize| u8::from_str_radix(&hex[i..i + 2], 16).unwrap();
+                    let (r, g, b) = (v(0), v(2), v(4));
+                    let grey = r == g && g == b;
+                    let in_palette = palette::OKABE_ITO.iter().any(|ink| {
+                        (0..=100).any(|k| palette::tint(*ink, k as f64 / 100.0) == palette::Ink(r, g, b))
+                    });
+                    assert!(grey || in_palette, "{name}: colour {c} is not of the palette");
                 } else {
                     assert!(c == "none" || c == "white" || c == "black", "{name}: colour {c}");
                 }
@@ -260,4 +264,79 @@ fn residuals_without_sigma_are_standardised_by_s_and_say_so() {
     let f = build(&fixture::cooling());
     let texts = svg_texts(&f.get("fit.svg").unwrap().svg).join(" ");
     assert!(texts.contains("normalised residual"));
+}
+
+#[test]
+fn a_joint_study_has_a_fit_figure_per_data_set_on_its_own_points() {
+    let r = fixture::joint();
+    let f = build(&r);
+    let files = f.files();
+    assert!(files.contains(&"fit.svg"));
+    for (name, points) in [("early", 20usize), ("late", 16)] {
+        let file = format!("fit_{name}.svg");
+        let fig = f
+            .get(&file)
+            .unwrap_or_else(|| panic!("{file} missing: {files:?}"));
+        assert!(
+            fig.caption.starts_with(&format!("Data set {name} (")),
+            "{}",
+            fig.caption
+        );
+        let doc = roxmltree::Document::parse(&fig.svg).unwrap();
+        // One open circle per point in the data panel (error bars are
+        // lines), one filled circle per point in the residual panel, plus
+        // the legend's marker.
+        let circles = doc.descendants().filter(|n| n.has_tag_name("circle")).count();
+        assert_eq!(circles, 2 * points + 1, "{file}");
+        let texts = svg_texts(&fig.svg);
+        assert!(texts.iter().filter(|t| *t == "t_s").count() >= 2, "{texts:?}");
+    }
+    // The data sets' figures come right after the joint residual figures.
+    let at = |name: &str| files.iter().position(|f| *f == name).unwrap();
+    assert_eq!(at("fit_early.svg"), at("residuals_x.svg") + 1);
+}
+
+#[test]
+fn report_settings_put_the_data_figure_on_log_axes() {
+    use fitaudit::study::AxisScale;
+    let mut r = fixture::cooling();
+    let linear = build(&r);
+    assert!(!linear.get("fit.svg").unwrap().caption.contains("logarithmic"));
+    r.report.y_axis = AxisScale::Log;
+    r.report.x_axis = AxisScale::Log;
+    let f = build(&r);
+    let fit = f.get("fit.svg").unwrap();
+    assert!(fit.caption.contains("both axes logarithmic"), "{}", fit.caption);
+    // Log ticks print the values 10^t (identity: log10 of a tick label is
+    // the chart coordinate); a t = 0 reading cannot be drawn and is counted.
+    let zeros = r.data.x[0].iter().filter(|t| **t <= 0.0).count();
+    if zeros > 0 {
+        assert!(
+            fit.caption.contains(&format!("{zeros} points at or below zero")),
+            "{}",
+            fit.caption
+        );
+    }
+    let texts = svg_texts(&fit.svg);
+    assert!(texts.iter().any(|t| t == "100" || t == "1000"), "{texts:?}");
+}
+
+#[test]
+fn single_variable_residual_figure_does_not_repeat_the_fit_panel() {
+    let f = build(&fixture::cooling());
+    let rx = f.get("residuals_x.svg").unwrap();
+    let texts = svg_texts(&rx.svg);
+    assert!(texts.iter().any(|t| t == "fitted temp_C"), "{texts:?}");
+    assert!(texts.iter().any(|t| t.starts_with("point number")), "{texts:?}");
+    assert!(!texts.iter().any(|t| t == "t_s"), "{texts:?}");
+}
+
+#[test]
+fn histogram_intervals_are_bars_in_a_strip_not_crowded_lines() {
+    let f = build(&fixture::cooling());
+    let t = svg_texts(&f.get("hist_tau.svg").unwrap().svg);
+    // One row label per interval type, each once.
+    for want in ["value \u{b1} ku", "percentile", "BCa", "Monte Carlo", "profile"] {
+        assert_eq!(t.iter().filter(|s| *s == want).count(), 1, "{want} in {t:?}");
+    }
 }

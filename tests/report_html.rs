@@ -109,16 +109,30 @@ fn tables_hold_the_numbers_of_the_results() {
         row("Covariance", None)[1],
         "absolute (from the stated uncertainties)"
     );
-    // Interval comparison: 15 columns, bootstrap interval at the precision of u.
+    // Interval comparison, split into narrow tables: the bootstrap table
+    // (parameter, u, analytic, SD, percentile, BCa, robust ratio: 7
+    // columns) gives the percentile interval at the precision of u.
     let b = &r.bootstrap.as_ref().unwrap().parameters[2];
     let cmp = rows
         .iter()
-        .find(|r| r[0] == "tau" && r.len() == 15)
-        .expect("comparison row");
+        .find(|r| r[0] == "tau" && r.len() == 7 && r[3] == format::at_precision_of(b.std, Some(1.3)))
+        .expect("bootstrap comparison row");
     assert_eq!(
-        cmp[5],
+        cmp[4],
         format!("[{}, {}]", format::at(b.lower, -1), format::at(b.upper, -1))
     );
+    // The ratio with its uncertainty under a correct u, 1/sqrt(2 nu) (the
+    // standard deviation of a chi-squared variate over its dof, sqrt(2/nu),
+    // halved for the square root): u to two significant digits and the
+    // ratio at the same place, the rule of every table (GUM 7.2.6).
+    let u_ratio = (0.5 / b.null_dof.unwrap()).sqrt();
+    let (rv, ru) = format::value_and_uncertainty(b.robust_ratio.unwrap(), Some(u_ratio));
+    assert_eq!(cmp[6], format!("{rv} \u{b1} {ru}"));
+    assert_eq!(
+        rv.split('.').nth(1).map(str::len),
+        ru.split('.').nth(1).map(str::len)
+    );
+
     // Verdicts.
     let v = rows
         .iter()
@@ -227,4 +241,75 @@ fn a_profile_below_the_base_fit_also_leads_and_skipped_pairs_are_listed() {
     );
     assert!(all.contains("the base fit is not the minimum"));
     assert!(!s.contains("fig-contour_dT_tau"));
+}
+
+#[test]
+fn a_joint_study_has_the_data_set_table_and_a_figure_per_data_set() {
+    let r = fixture::joint();
+    let s = page(&r);
+    let doc = parse(&s).unwrap();
+    assert_self_contained(&s);
+    assert!(headings(&doc, "h3").iter().any(|h| h == "Data sets"));
+    let rows: Vec<Vec<String>> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("tr"))
+        .map(|tr| {
+            tr.children()
+                .filter(|c| c.is_element())
+                .map(|c| text_of(c).trim().to_string())
+                .collect()
+        })
+        .collect();
+    for d in &r.datasets {
+        let row = rows
+            .iter()
+            .find(|row| row[0] == d.name)
+            .unwrap_or_else(|| panic!("row {}", d.name));
+        // The numbers of the record, formatted as the table formats them.
+        assert_eq!(row[2], d.points.to_string());
+        assert_eq!(row[3], "T_env*, dT*, tau*");
+        assert_eq!(row[4], format::chi2(d.chi2));
+        assert_eq!(row[6], format::sig(d.dof_share, 4));
+    }
+    // The fixture's shares: 20 and 16 points, three parameters shared by
+    // both, so dof shares 18.5 and 14.5 (sum 33 = 36 - 3).
+    assert_eq!(
+        r.datasets[0].dof_share + r.datasets[1].dof_share,
+        r.fit.dof as f64
+    );
+    assert!(s.contains("2 data sets fitted jointly"));
+    for file in ["fit_early.svg", "fit_late.svg"] {
+        assert!(s.contains(file), "{file}");
+    }
+}
+
+#[test]
+fn footer_carries_the_readme_caution() {
+    let s = page(&fixture::cooling());
+    let doc = parse(&s).unwrap();
+    let footer = doc
+        .descendants()
+        .find(|n| n.has_tag_name("footer"))
+        .expect("a footer");
+    let text = text_of(footer);
+    // The README's caution, word for word (its first sentence).
+    let readme = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/README.md")).unwrap();
+    let flat = readme
+        .split_whitespace()
+        .filter(|w| *w != ">")
+        .collect::<Vec<_>>()
+        .join(" ");
+    let first = "Statistics support, and do not replace, a laboratory's own validation procedure and the applicable standards.";
+    assert!(flat.contains(first));
+    assert!(
+        text.split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ")
+            .contains(first),
+        "{text}"
+    );
+    // The footer is the last element of the body.
+    let body = doc.descendants().find(|n| n.has_tag_name("body")).unwrap();
+    let last = body.children().rfind(|c| c.is_element()).unwrap();
+    assert!(last.has_tag_name("footer"));
 }

@@ -17,6 +17,7 @@ fn round_trips_to_an_equal_record() {
         fixture::rebased(),
         fixture::fit_only(),
         fixture::two_variables(),
+        fixture::joint(),
     ] {
         let text = json::to_json(&r).unwrap();
         let back: AuditResults = serde_json::from_str(&text).unwrap();
@@ -74,7 +75,12 @@ fn keys(v: &serde_json::Value, out: &mut BTreeSet<String>) {
 fn every_field_is_documented_in_results_md() {
     let doc = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/docs/RESULTS.md")).unwrap();
     let mut all = BTreeSet::new();
-    for r in [fixture::cooling(), fixture::profile_below(), fixture::rebased()] {
+    for r in [
+        fixture::cooling(),
+        fixture::profile_below(),
+        fixture::rebased(),
+        fixture::joint(),
+    ] {
         keys(&serde_json::to_value(r).unwrap(), &mut all);
     }
     assert!(all.len() > 100, "{}", all.len());

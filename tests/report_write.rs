@@ -137,13 +137,16 @@ fn a_failing_render_leaves_no_folder() {
 #[test]
 fn summary_has_the_verdict_rows_and_escapes_pipes() {
     let s = markdown::summary(&fixture::cooling());
-    assert!(s.contains("| Parameter | Quote | Verdict | Reasons |\n|---|---|---|---|\n"));
-    assert!(s.contains(
-        "| doubtful | the profile interval's half-widths are 0.75 (below) and 1.30 (above) times the covariance \
-         half-width 1.313: they differ by more than 20 %; the bootstrap spread differs from the analytic \
-         standard error by 25 % (robust SD 1.642, ratio 1.25 to u, p = 1.0e-6 against a correct u), more than \
-         20 %: the quoted u is too small |"
-    ));
+    assert!(s.contains("| Parameter | Quote | Verdict |\n|---|---|---|\n"));
+    // The reasons follow the table as a list, wrapped at 100 characters.
+    let flat = s.replace("\n  ", " ");
+    assert!(flat.contains(
+        "- tau (doubtful): the profile interval's half-widths are 0.75 (below) and 1.30 (above) times the \
+         covariance half-width 1.313: they differ by more than 20 %; the bootstrap spread differs from the \
+         analytic standard error by 25 % (robust SD 1.642, ratio 1.25 to u, p = 1.0e-6 against a correct u), \
+         more than 20 %: the quoted u is too small"
+    ), "{s}");
+    assert!(s.lines().all(|l| l.chars().count() <= markdown::WIDTH), "{s}");
     assert!(s.contains("| T\\_env | 21.500 \u{b1} 0.047 \\[21.453, 21.547\\] (68.27 %, k = 1.00) | holds |"));
     assert!(s.contains("## Interval comparison (68.27 % level)"));
     assert!(s.contains("| tau | 340.0 | 1.3 |"), "comparison row");
@@ -163,12 +166,9 @@ fn summary_has_the_verdict_rows_and_escapes_pipes() {
     // Every table row has as many unescaped separators as its header.
     for line in h.lines().filter(|l| l.starts_with('|')) {
         let cells = line.replace("\\|", "").matches('|').count();
-        // verdicts 4 columns (quote first), fit 6 (with U), comparison 15,
-        // derived quantities 10, inverse predictions 12.
-        assert!(
-            cells == 5 || cells == 7 || cells == 16 || cells == 11 || cells == 13,
-            "{line}"
-        );
+        // Every table is split to at most 100 characters a line, so the
+        // counts vary; each row has at least two and at most eight columns.
+        assert!((3..=9).contains(&cells), "{line}");
     }
 }
 

@@ -28,6 +28,12 @@
 //! times a second multiplier (wild); the weighted residuals are then those
 //! of the effective variance. The case scheme carries each point's x, y
 //! and both uncertainties together.
+//! With several data sets (a study of `[[datasets]]`, see
+//! [`crate::data::Dataset::groups`]) the case and residual schemes are
+//! stratified: each data set's points are drawn from that data set only,
+//! and each point's residual from its own data set's pool (re-centred on
+//! that data set's mean), so a resample keeps every data set's size and
+//! never mixes them ([`case_draw`], [`strata`]).
 //!
 //! A point with leverage 1 (to 1e-10) has no residual information: it is
 //! left out of the residual pool and gets a zero wild residual. Without
@@ -62,8 +68,23 @@ pub fn run_with(
     let name = recorded_scheme(ctx, settings.scheme);
     progress.start(&format!("bootstrap ({name})"), b as u64);
     let outcomes = replicates(ctx, settings, 0..b, progress);
-    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     progress.finish();
+    summarise(ctx, settings, bca, outcomes)
+}
+
+/// The pure summary step: the result from the outcomes of every replicate
+/// `0..settings.replicates` in replicate order (from one run, or joined
+/// from the slices of several shards: the same outcomes give the same
+/// result bit for bit). `bca` adds the linearised jackknife (no refits).
+pub fn summarise(
+    ctx: &Fitted,
+    settings: &BootstrapSettings,
+    bca: bool,
+    outcomes: Vec<Outcome>,
+) -> ResampleResult {
+    let b = settings.replicates;
+    let name = recorded_scheme(ctx, settings.scheme);
+    let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     resample::assemble(
         ctx,
         Assembly {
@@ -129,6 +150,57 @@ pub fn residual_pool(ctx: &Fitted) -> Vec<f64> {
     adj.iter().map(|r| r - mean).collect()
 }
 
+/// The strata of the case and residual bootstrap: the points of each data
+/// set of a joint study (`0..n` for one data set).
+pub fn strata(data: &crate::data::Dataset) -> Vec<std::ops::Range<usize>> {
+    if data.groups.is_empty() {
+        std::iter::once(0..data.len()).collect()
+    } else {
+        data.groups.iter().map(|g| g.range()).collect()
+    }
+}
+
+/// The point that case-bootstrap position `o` draws: uniformly from the
+/// stratum (data set) holding `o`, so a resample never mixes data sets and
+/// keeps each data set's number of points.
+pub fn case_draw<R: Rng>(strata: &[std::ops::Range<usize>], o: usize, rng: &mut R) -> usize {
+    let r = strata
+        .iter()
+        .find(|r| r.contains(&o))
+        .cloned()
+        .unwrap_or(0..strata.last().map_or(0, |r| r.end));
+    rng.gen_range(r)
+}
+
+/// The points case-bootstrap replicate `k` draws, in position order (the
+/// draws [`replicates`] makes, listed for tests and records).
+pub fn case_indices(data: &crate::data::Dataset, seed: u64, k: usize) -> Vec<usize> {
+    let strata = strata(data);
+    let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
+    (0..data.len()).map(|o| case_draw(&strata, o, &mut rng)).collect()
+}
+
+/// The residual pool of each stratum: its own adjusted residuals re-centred
+/// on their mean; a data set without residual information (every point of
+/// leverage 1) draws from `all`, the pool of all data sets.
+fn stratum_pools(ctx: &Fitted, strata: &[std::ops::Range<usize>], all: &[f64]) -> Vec<Vec<f64>> {
+    if strata.len() <= 1 {
+        return vec![all.to_vec()];
+    }
+    let adjusted = adjusted_residuals(ctx);
+    strata
+        .iter()
+        .map(|r| {
+            let own: Vec<f64> = adjusted[r.clone()].iter().flatten().copied().collect();
+            if own.is_empty() {
+                return all.to_vec();
+            }
+            let mean = own.iter().sum::<f64>() / own.len() as f64;
+            own.iter().map(|v| v - mean).collect()
+        })
+        .collect()
+}
+
 /// Mammen's two-point multiplier: `-(sqrt5 - 1)/2` with probability
 /// `(sqrt5 + 1)/(2 sqrt5)`, otherwise `(sqrt5 + 1)/2`.
 pub fn mammen<R: Rng>(rng: &mut R) -> f64 {
@@ -153,16 +225,20 @@ pub fn replicates(
     let seed = ctx.settings.seed;
     let sigma = data.sigma_or_ones();
     let fitted = ctx.fitted_values();
+    let strata = strata(data);
     match settings.scheme {
         BootstrapScheme::Case => resample::refit_replicates(ctx, indices, n, true, progress, |k, s| {
             let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
             for o in 0..n {
-                let i = rng.gen_range(0..n);
+                let i = case_draw(&strata, o, &mut rng);
                 for (c, col) in data.x.iter().enumerate() {
                     s.x[c][o] = col[i];
                 }
                 s.y[o] = data.y[i];
                 s.sigma[o] = sigma[i];
+                if let Some(sx) = &data.sigma_x {
+                    s.sigma_x[o] = sx[i];
+                }
             }
         }),
         BootstrapScheme::Wild if ctx.problem.options.likelihood == Likelihood::Poisson => {
@@ -184,13 +260,19 @@ pub fn replicates(
                 // there is nothing to resample, and every replicate says so.
                 return indices.map(|_| Outcome::Failed("no-residuals")).collect();
             }
+            // Several data sets: each resamples its own residuals.
+            let pools = stratum_pools(ctx, &strata, &pool);
             resample::refit_replicates(ctx, indices, n, data.sigma_x.is_some(), progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
-                for ((y, (f, sg)), out_sg) in s.y.iter_mut().zip(fitted.iter().zip(&sigma)).zip(&mut s.sigma)
-                {
-                    let e = pool[rng.gen_range(0..pool.len())];
+                let mut stratum = 0;
+                for (o, (y, (f, sg))) in s.y.iter_mut().zip(fitted.iter().zip(&sigma)).enumerate() {
+                    while o >= strata[stratum].end {
+                        stratum += 1;
+                    }
+                    let p = &pools[stratum];
+                    let e = p[rng.gen_range(0..p.len())];
                     *y = f + sg * e;
-                    *out_sg = *sg;
+                    s.sigma[o] = *sg;
                 }
                 if let Some(sx) = &data.sigma_x {
                     // Errors in x: x moves by sigma_x times a second,

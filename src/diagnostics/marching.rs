@@ -23,6 +23,45 @@ struct Crossing {
 ///
 /// Rows of `z` shorter than `x`, or fewer rows than `y`, are treated as holes.
 pub fn contour_paths(x: &[f64], y: &[f64], z: &[Vec<f64>], level: f64) -> Vec<Vec<[f64; 2]>> {
+    contour_paths_with(x, y, z, level, &|_, _| None)
+}
+
+/// Saddle cells of the grid at any of `levels`: `(r, c)` of each cell
+/// whose diagonal corners lie on one side of a level and the other two on
+/// the other side, so that the corners alone cannot tell whether the two
+/// low corners are joined (a valley running diagonally through the cell)
+/// or the two high ones.
+pub fn saddle_cells(z: &[Vec<f64>], levels: &[f64]) -> Vec<(usize, usize)> {
+    let mut out = Vec::new();
+    for r in 0..z.len().saturating_sub(1) {
+        let n = z[r].len().min(z[r + 1].len());
+        for c in 0..n.saturating_sub(1) {
+            let zs = [z[r][c], z[r][c + 1], z[r + 1][c + 1], z[r + 1][c]];
+            if zs.iter().any(|v| !v.is_finite()) {
+                continue;
+            }
+            let saddle = levels.iter().any(|&l| {
+                let a = zs.map(|v| v >= l);
+                a[0] == a[2] && a[1] == a[3] && a[0] != a[1]
+            });
+            if saddle {
+                out.push((r, c));
+            }
+        }
+    }
+    out
+}
+
+/// [`contour_paths`] with the value at the centre of a cell supplied by
+/// `centre(r, c)` where known (a refined lattice point): a saddle cell is
+/// resolved by that value instead of the mean of its corners.
+pub fn contour_paths_with(
+    x: &[f64],
+    y: &[f64],
+    z: &[Vec<f64>],
+    level: f64,
+    centre: &dyn Fn(usize, usize) -> Option<f64>,
+) -> Vec<Vec<[f64; 2]>> {
     let nx = x.len();
     let ny = y.len();
     if nx < 2 || ny < 2 || !level.is_finite() {
@@ -72,7 +111,10 @@ pub fn contour_paths(x: &[f64], y: &[f64], z: &[Vec<f64>], level: f64) -> Vec<Ve
                 4 => {
                     // Saddle: cut off the two corners whose side differs
                     // from the centre's. Corner k touches edges k - 1 and k.
-                    let centre_above = zs.iter().sum::<f64>() / 4.0 >= level;
+                    let mid = centre(r, c)
+                        .filter(|v| v.is_finite())
+                        .unwrap_or(zs.iter().sum::<f64>() / 4.0);
+                    let centre_above = mid >= level;
                     let all: [Crossing; 4] = [crossings[0].1, crossings[1].1, crossings[2].1, crossings[3].1];
                     for k in 0..4 {
                         if above[k] != centre_above {

@@ -16,6 +16,7 @@ pub mod inverse;
 pub mod marching;
 pub mod monte_carlo;
 pub mod multistart;
+pub mod nonlinearity;
 pub mod profile;
 mod profile_scan;
 pub mod resample;

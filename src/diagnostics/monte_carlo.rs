@@ -84,26 +84,71 @@ pub fn batch_size(level: f64) -> usize {
 
 /// Runs the Monte Carlo refits with the given settings.
 pub fn run_with(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Progress) -> ResampleResult {
-    let max = settings.replicates;
-    let scheme = if ctx.problem.options.likelihood == Likelihood::Poisson {
+    let outcomes = outcomes(ctx, settings, 0..settings.replicates, progress);
+    summarise(ctx, settings, outcomes)
+}
+
+/// The scheme's name as recorded in the result: `poisson` for a fit of
+/// counts, else that of the noise law.
+pub fn scheme_name(ctx: &Fitted, settings: &MonteCarloSettings) -> &'static str {
+    if ctx.problem.options.likelihood == Likelihood::Poisson {
         "poisson"
     } else if settings.student_t_dof.is_some() {
         "student-t"
     } else {
         "normal"
-    };
-    progress.start(&format!("Monte Carlo ({scheme})"), max as u64);
-    let (outcomes, adaptive_stable) = if settings.adaptive {
-        let (o, stable) = adaptive(ctx, settings, progress);
-        (o, Some(stable))
+    }
+}
+
+/// The outcomes of trials `indices`. For the whole range `0..replicates`
+/// of an adaptive run the trials are refitted batch by batch and stop at
+/// the first batch after which the uncertainties are stable; for a slice
+/// (a shard) every trial of the slice is refitted, and [`summarise`]
+/// applies the same stopping rule to the joined outcomes, so that the
+/// result does not depend on how the trials were split.
+pub fn outcomes(
+    ctx: &Fitted,
+    settings: &MonteCarloSettings,
+    indices: std::ops::Range<usize>,
+    progress: &dyn Progress,
+) -> Vec<Outcome> {
+    let max = settings.replicates;
+    progress.start(
+        &format!("Monte Carlo ({})", scheme_name(ctx, settings)),
+        indices.len() as u64,
+    );
+    let out = if settings.adaptive && indices == (0..max) {
+        adaptive(ctx, settings, progress)
     } else {
-        (trials(ctx, settings, 0..max, progress), None)
+        trials(ctx, settings, indices, progress)
     };
     progress.finish();
+    out
+}
+
+/// The pure summary step: the result from the outcomes of trials `0..M`
+/// in trial order. When adaptive, the stopping rule is applied here
+/// ([`adaptive_cut`]): only the trials up to the first stable batch are
+/// kept, whether the outcomes stop there (one run) or go on to the cap
+/// (joined shards).
+pub fn summarise(ctx: &Fitted, settings: &MonteCarloSettings, mut outcomes: Vec<Outcome>) -> ResampleResult {
+    let max = settings.replicates;
+    let adaptive_stable = if settings.adaptive {
+        let (keep, stable) = adaptive_cut(
+            &outcomes,
+            batch_size(ctx.settings.level),
+            &ctx.free_mask(),
+            settings.adaptive_tolerance,
+        );
+        outcomes.truncate(keep);
+        Some(stable)
+    } else {
+        None
+    };
     resample::assemble(
         ctx,
         Assembly {
-            scheme: scheme.to_string(),
+            scheme: scheme_name(ctx, settings).to_string(),
             replicates: max,
             outcomes,
             jackknife: None,
@@ -115,47 +160,63 @@ pub fn run_with(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Prog
     )
 }
 
-/// Batches until stable or at the cap; returns the outcomes and stability.
-fn adaptive(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Progress) -> (Vec<Outcome>, bool) {
+/// The adaptive stopping rule on trial outcomes in trial order, batches
+/// of `h`: `(trials kept, stable)`, the kept trials ending with the first
+/// full batch (from the second on) after which [`is_stable`] holds, or all
+/// of them, unstable, when none does.
+pub fn adaptive_cut(outcomes: &[Outcome], h: usize, free: &[bool], tolerance: f64) -> (usize, bool) {
+    let mut batch_u: Vec<Vec<f64>> = Vec::new();
+    let mut end = h;
+    while h > 0 && end <= outcomes.len() {
+        batch_u.push(batch_std(&outcomes[end - h..end], free.len()));
+        if batch_u.len() >= 2 && is_stable(&outcomes[..end], &batch_u, free, tolerance) {
+            return (end, true);
+        }
+        end += h;
+    }
+    (outcomes.len(), false)
+}
+
+/// Per parameter, the standard deviation of one batch's successful trials.
+fn batch_std(batch: &[Outcome], n_params: usize) -> Vec<f64> {
+    let rows: Vec<&Vec<f64>> = batch
+        .iter()
+        .filter_map(|o| match o {
+            Outcome::Ok(p) => Some(p),
+            Outcome::Failed(_) => None,
+        })
+        .collect();
+    (0..n_params)
+        .map(|j| resample::mean_std(&rows.iter().map(|r| r[j]).collect::<Vec<_>>()).1)
+        .collect()
+}
+
+/// Batches until stable or at the cap.
+fn adaptive(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Progress) -> Vec<Outcome> {
     let max = settings.replicates;
     let h = batch_size(ctx.settings.level);
     let free = ctx.free_mask();
     let mut outcomes: Vec<Outcome> = Vec::with_capacity(max);
     // Per full batch, per parameter: the batch's standard deviation.
     let mut batch_u: Vec<Vec<f64>> = Vec::new();
-    let mut stable = false;
     while outcomes.len() < max {
         let start = outcomes.len();
         let end = (start + h).min(max);
         let batch = trials(ctx, settings, start..end, progress);
         let full = end - start == h;
         if full {
-            let rows: Vec<&Vec<f64>> = batch
-                .iter()
-                .filter_map(|o| match o {
-                    Outcome::Ok(p) => Some(p),
-                    Outcome::Failed(_) => None,
-                })
-                .collect();
-            batch_u.push(
-                (0..free.len())
-                    .map(|j| resample::mean_std(&rows.iter().map(|r| r[j]).collect::<Vec<_>>()).1)
-                    .collect(),
-            );
+            batch_u.push(batch_std(&batch, free.len()));
         }
         outcomes.extend(batch);
-        if full && batch_u.len() >= 2 {
-            stable = is_stable(&outcomes, &batch_u, &free, settings.adaptive_tolerance);
-            if stable {
-                break;
-            }
+        if full && batch_u.len() >= 2 && is_stable(&outcomes, &batch_u, &free, settings.adaptive_tolerance) {
+            break;
         }
     }
     if outcomes.len() < max {
         // Stopped early: the bar still owes the trials not run.
         progress.advance((max - outcomes.len()) as u64);
     }
-    (outcomes, stable)
+    outcomes
 }
 
 /// JCGM 101:2008, 7.9.4 applied to the standard uncertainties only.

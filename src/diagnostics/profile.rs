@@ -164,23 +164,51 @@ pub fn threshold_for(fit: &crate::fit::FitResult, level: f64) -> f64 {
 
 /// Runs the profile scans, one per free parameter, in parallel.
 pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ProfileResult {
+    let parameters = profiles(ctx, 0..free_parameters(ctx).len(), progress);
+    assemble(ctx, parameters)
+}
+
+/// The free parameters in parameter order: the items a profile run is
+/// made of (item `i` is the profile of the `i`-th free parameter).
+pub fn free_parameters(ctx: &Fitted) -> Vec<usize> {
+    ctx.free_mask()
+        .iter()
+        .enumerate()
+        .filter_map(|(j, &f)| f.then_some(j))
+        .collect()
+}
+
+/// The profiles of free parameters `items` (positions in
+/// [`free_parameters`]), in that order. Each profile is computed on its
+/// own, so any split of the items gives the same profiles.
+pub fn profiles(
+    ctx: &Fitted,
+    items: std::ops::Range<usize>,
+    progress: &dyn Progress,
+) -> Vec<ParameterProfile> {
     let level = ctx.settings.level;
     let q = threshold_for(ctx.fit, level);
     let scale = chi2_scale(ctx.fit);
     let chi2_min = ctx.fit.chi2;
     let points = ctx.settings.profile.points.max(3);
-    let free: Vec<usize> = ctx
-        .free_mask()
-        .iter()
-        .enumerate()
-        .filter_map(|(j, &f)| f.then_some(j))
-        .collect();
-    progress.start("profile", (free.len() * (points - 1)) as u64);
-    let parameters: Vec<ParameterProfile> = free
+    let free = free_parameters(ctx);
+    let chosen = &free[items.start.min(free.len())..items.end.min(free.len())];
+    progress.start("profile", (chosen.len() * (points - 1)) as u64);
+    let parameters: Vec<ParameterProfile> = chosen
         .par_iter()
         .map(|&j| profile_one(ctx, j, q, scale, chi2_min, points, progress))
         .collect();
     progress.finish();
+    parameters
+}
+
+/// The pure summary step: the result from every free parameter's profile
+/// in parameter order.
+pub fn assemble(ctx: &Fitted, parameters: Vec<ParameterProfile>) -> ProfileResult {
+    let level = ctx.settings.level;
+    let q = threshold_for(ctx.fit, level);
+    let scale = chi2_scale(ctx.fit);
+    let chi2_min = ctx.fit.chi2;
     let failed = parameters.iter().map(|p| p.failed).sum();
     let base_not_minimum = parameters.iter().any(|p| p.below_minimum.is_some());
     ProfileResult {

@@ -56,6 +56,11 @@
 //!    chi2/dof would multiply every `u` by `R`; a clear departure means the
 //!    stated sigma or the model is wrong.
 //!
+//! A tenth rule, `nonlinearity`, never decides: [`super::nonlinearity::cite`]
+//! adds the curvature measures and Box's bias (with status *holds*) to the
+//! reasons of a parameter that a profile, spread, runaway or percentile
+//! rule already doubts, as the explanation of the disagreement.
+//!
 //! **The interval to quote** ([`Quote`]): `value +- k u` (`k` the coverage
 //! factor of the analytic interval at the level) when the verdict holds;
 //! the profile interval when the profile is closed but its half-widths
@@ -120,6 +125,10 @@ pub enum Rule {
     FailedRefits,
     /// Chi-squared against its degrees of freedom (Birge ratio).
     GoodnessOfFit,
+    /// The curvature measures or Box's bias explain a disagreement another
+    /// rule found (never decides: status always holds; see
+    /// [`super::nonlinearity::cite`]).
+    Nonlinearity,
 }
 
 /// The part of the audit a finding reads.

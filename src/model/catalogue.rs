@@ -67,7 +67,7 @@ pub(crate) static FUNCTIONS: &[FunctionInfo] = &[
     FunctionInfo {
         name: "atan2",
         arity: 2,
-        description: "atan2(y, x): angle of the point (x, y)",
+        description: "angle of the point (x, y) in radians, in (-pi, pi]; note the order: y first",
     },
     FunctionInfo {
         name: "sinh",

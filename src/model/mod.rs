@@ -60,12 +60,16 @@ use std::fmt;
 
 mod catalogue;
 mod graph;
+pub mod joint;
 mod ops;
 mod parser;
+mod second;
 mod tape;
 mod xslope;
 
+pub use joint::{JointModel, JointPart};
 pub use parser::MAX_DEPTH;
+pub use second::{n_pairs, pair_index};
 
 /// The first point at which a model value or derivative was not finite.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -126,6 +130,24 @@ pub trait ModelFn: Sync {
         scratch: &mut Vec<f64>,
     ) -> Option<Result<(), NonFinite>> {
         let _ = (params, x, slope, dslope, scratch);
+        None
+    }
+
+    /// Exact second derivatives with respect to the parameters, when the
+    /// model has them: fills `values` and `hess[pair_index(j, k) * n + i]
+    /// = d^2 f(x_i) / (d a_j d a_k)` (packed lower triangle, length
+    /// `n * n_pairs(n_params())`) and returns `Some` with the outcome.
+    /// The default returns `None` (no exact second derivatives); the
+    /// curvature measures then take central differences of the exact
+    /// Jacobian instead and say so (`second_derivatives` in results.json).
+    fn hessian(
+        &self,
+        _params: &[f64],
+        _x: &[&[f64]],
+        _values: &mut [f64],
+        _hess: &mut [f64],
+        _scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
         None
     }
 }
@@ -326,6 +348,7 @@ pub struct Tape {
     full_prog: tape::Program,
     /// `[df/dx, d2f/dx da_j ...]` for one x column (errors in x).
     x_slope_prog: Option<xslope::XSlope>,
+    second: second::Second,
 }
 
 impl Tape {
@@ -431,6 +454,18 @@ impl ModelFn for Tape {
     ) -> Option<Result<(), NonFinite>> {
         self.eval_x_slope_program(params, x, slope, dslope, scratch)
     }
+
+    /// Symbolic second derivatives ([`Tape::eval_hessian`]).
+    fn hessian(
+        &self,
+        params: &[f64],
+        x: &[&[f64]],
+        values: &mut [f64],
+        hess: &mut [f64],
+        scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
+        Some(self.eval_hessian(params, x, values, hess, scratch))
+    }
 }
 
 /// Compiles a formula against the given names.
@@ -455,6 +490,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
     let value_prog = tape::Program::lower(&g, &roots[..1]);
     let full_prog = tape::Program::lower(&g, &roots);
     let x_slope_prog = (symbols.variables.len() == 1).then(|| xslope::lower(&mut g, &roots));
+    let second = second::Second::new(g, roots, used.clone());
     Ok(Tape {
         formula: formula.to_string(),
         n_params,
@@ -464,6 +500,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
         value_prog,
         full_prog,
         x_slope_prog,
+        second,
     })
 }
 

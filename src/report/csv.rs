@@ -52,9 +52,7 @@ pub fn to_csv(results: &AuditResults) -> Result<Vec<u8>, ReportError> {
             let mut rec = vec![label.to_string(), idx.to_string()];
             for c in &cols {
                 rec.push(match c.and_then(|c| row.get(c)) {
-                    // Shortest text that reads back as the same double.
-                    Some(v) if v.is_finite() => format!("{v:e}"),
-                    Some(v) => format!("{v}"),
+                    Some(v) => number(*v),
                     None => String::new(),
                 });
             }
@@ -64,12 +62,27 @@ pub fn to_csv(results: &AuditResults) -> Result<Vec<u8>, ReportError> {
     w.into_inner().map_err(csv_err)
 }
 
-/// Shortest text that reads back as the same double.
-fn number(v: f64) -> String {
-    if v.is_finite() {
-        format!("{v:e}")
+/// Shortest text that reads back as the same double, as a plain decimal
+/// (`97.47266113616185`, `0.000123`), which every spreadsheet reads;
+/// exponent notation only below 1e-6 or from 1e15 on in magnitude, where a
+/// plain decimal would be a long run of zeros; `NaN`, `inf`, `-inf` for
+/// non-finite values.
+pub fn number(v: f64) -> String {
+    if !v.is_finite() {
+        return if v.is_nan() {
+            "NaN".into()
+        } else if v > 0.0 {
+            "inf".into()
+        } else {
+            "-inf".into()
+        };
+    }
+    let a = v.abs();
+    if v == 0.0 || (1e-6..1e15).contains(&a) {
+        // Rust's Display of f64 is the shortest round-trip decimal.
+        format!("{v}")
     } else {
-        "NaN".to_string()
+        format!("{v:e}")
     }
 }
 
@@ -150,5 +163,25 @@ impl Renderer for Replicates {
         _figures: &Figures,
     ) -> Result<Vec<(String, Vec<u8>)>, ReportError> {
         Ok(vec![("replicates.csv".into(), to_csv(results)?)])
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::number;
+
+    #[test]
+    fn plain_decimals_that_read_back_exactly() {
+        for v in [97.472_661_136_161_85, 0.000_123, -2.5, 1e14, 3.0, 1.0 / 3.0] {
+            let t = number(v);
+            assert!(!t.contains('e'), "{t}");
+            // Round trip (identity): the text parses to the same double.
+            assert_eq!(t.parse::<f64>().unwrap(), v, "{t}");
+        }
+        assert_eq!(number(97.472_661_136_161_85), "97.47266113616185");
+        assert_eq!(number(0.0), "0");
+        assert_eq!(number(1.5e-9), "1.5e-9");
+        assert_eq!(number(f64::NAN), "NaN");
+        assert_eq!(number(f64::NEG_INFINITY), "-inf");
     }
 }

@@ -272,6 +272,7 @@ pub fn sentence(f: &Finding) -> String {
                 }
             }
         }
+        Rule::Nonlinearity => crate::report::nonlinearity::finding_sentence(f),
     }
 }
 
@@ -286,7 +287,7 @@ pub fn reasons(v: &Verdict) -> Vec<String> {
     } else {
         v.findings
             .iter()
-            .filter(|f| f.status != Status::Holds)
+            .filter(|f| f.status != Status::Holds || f.rule == Rule::Nonlinearity)
             .map(sentence)
             .collect()
     }

@@ -173,23 +173,64 @@ pub fn p_value(p: f64) -> String {
     sig(p, 2)
 }
 
-/// Tick label for an axis spanning `span`: enough decimals to tell ticks a
-/// fifth of the span apart, no trailing noise.
+/// Most significant digits a tick label shows.
+pub const TICK_DIGITS: i32 = 6;
+
+/// Decimal place of the last digit tick labels need on an axis spanning
+/// `span` around values of magnitude `magnitude`: the place of the tick
+/// step (about a seventh of the span, as the charts put up to seven ticks),
+/// but never more than [`TICK_DIGITS`] significant digits of the magnitude.
+pub fn tick_place(span: f64, magnitude: f64) -> i32 {
+    let step = span / 7.0;
+    let mut place = if step.is_finite() && step > 0.0 {
+        step.log10().floor() as i32
+    } else {
+        0
+    };
+    if magnitude.is_finite() && magnitude > 0.0 {
+        place = place.max(magnitude.log10().floor() as i32 - (TICK_DIGITS - 1));
+    }
+    place
+}
+
+/// Tick label for an axis spanning `span`: rounded at [`tick_place`], so
+/// ticks a step apart are told apart and no digit beyond the axis'
+/// resolution is printed; trailing zeros dropped.
 pub fn tick(v: f64, span: f64) -> String {
     if !(span.is_finite() && span > 0.0) {
         return sig(v, 3);
     }
-    let step = span / 5.0;
-    let place = step.log10().floor() as i32 - 1;
-    let place = place.min(0);
-    if v.abs() < step * 1e-9 {
+    if v.abs() < span * 1e-9 {
         return "0".into();
     }
+    let place = tick_place(span, v.abs().max(span)).min(0);
     let s = at(v, place);
-    if s.contains('e') || !s.contains('.') {
-        return s;
+    trim_zeros(&s)
+}
+
+/// Tick labels of a logarithmic axis at `10^e`: the value itself with at
+/// most three significant digits (`0.01`, `3.16`, `1000`, `1e6`).
+pub fn log_tick(exponent: f64) -> String {
+    let v = 10f64.powf(exponent);
+    trim_zeros(&sig(v, 3))
+}
+
+/// Drops trailing zeros of a decimal mantissa (`1.500` -> `1.5`, `2.0e6` ->
+/// `2e6`); integers are left alone.
+pub fn trim_zeros(s: &str) -> String {
+    let (m, e) = match s.split_once('e') {
+        Some((m, e)) => (m, Some(e)),
+        None => (s, None),
+    };
+    let m = if m.contains('.') {
+        m.trim_end_matches('0').trim_end_matches('.')
+    } else {
+        m
+    };
+    match e {
+        Some(e) => format!("{m}e{e}"),
+        None => m.to_string(),
     }
-    s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
 #[cfg(test)]
@@ -275,5 +316,18 @@ mod tests {
         assert_eq!(tick(1500.0, 2000.0), "1500");
         assert_eq!(tick(-2.0, 8.0), "-2");
         assert_eq!(tick(1e-17, 1.0), "0");
+        // A value known to 18 digits on an axis that needs one decimal: the
+        // label stops at the axis' resolution.
+        assert_eq!(tick(0.482_944_883_619_826_2, 0.7), "0.5");
+        assert_eq!(tick(0.482_944_883_619_826_2, 0.07), "0.48");
+        // Never more than six significant digits, however narrow the axis.
+        assert_eq!(tick(57.700_000_01, 1e-12), "57.7");
+        assert_eq!(tick_place(1.0, 1.0), -1);
+        assert_eq!(tick_place(7000.0, 5000.0), 3);
+        assert_eq!(log_tick(2.0), "100");
+        assert_eq!(log_tick(-2.0), "0.01");
+        assert_eq!(log_tick(0.5), "3.16");
+        assert_eq!(log_tick(6.0), "1e6");
+        assert_eq!(trim_zeros("2.50e7"), "2.5e7");
     }
 }

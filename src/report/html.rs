@@ -8,7 +8,8 @@
 //!
 //! Sections, in order: the lead notice when the multi-start search found a
 //! better minimum; verdict summary; fit; goodness of fit; interval
-//! comparison; figures; diagnostic failures; settings and provenance;
+//! comparison (closed by the linear-approximation part: curvature measures
+//! and Box's bias); figures; diagnostic failures; settings and provenance;
 //! caution.
 
 use std::fmt::Write as _;
@@ -60,7 +61,9 @@ table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.92em; }
 th, td { border: 1px solid #999; padding: 0.25em 0.55em; text-align: left; vertical-align: top; }
 th { background: #e8e8e8; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-table.wide { display: block; overflow-x: auto; }
+td, th { overflow-wrap: break-word; }
+h3 { font-size: 1.05em; margin: 1.2em 0 0.3em 0; }
+table { max-width: 100%; }
 code { font-family: monospace; font-size: 0.95em; overflow-wrap: anywhere; }
 .notice { border: 4px double #000; padding: 0.8em 1em; margin: 1em 0 1.5em 0; font-size: 1.08em; background: #f2f2f2; }
 .notice strong { font-size: 1.1em; }
@@ -72,11 +75,14 @@ figure { margin: 1.2em 0; }
 figure svg { max-width: 100%; height: auto; border: 1px solid #ccc; }
 figcaption { font-size: 0.9em; color: #333; max-width: 60em; }
 .caution { border-left: 4px solid #444; padding-left: 0.8em; }
+footer { margin-top: 2.5em; padding-top: 0.6em; border-top: 1px solid #999; font-size: 0.88em; color: #333; }
 @media print {
   body { font-size: 10pt; max-width: none; margin: 0; }
   h2 { break-after: avoid; page-break-after: avoid; }
   figure, table, .notice { break-inside: avoid; page-break-inside: avoid; }
-  table.wide { display: table; overflow: visible; font-size: 8pt; }
+  table { font-size: 8.5pt; }
+  td, th { overflow-wrap: anywhere; }
+  td.num { white-space: normal; }
   figure svg { border: none; }
   .notice { background: none; }
 }
@@ -250,14 +256,24 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
 
     // Fit.
     let _ = writeln!(o, "<section id=\"fit\">\n<h2>{}</h2>", SECTIONS[1]);
-    let _ = writeln!(
-        o,
-        "<p>Model <code>{}</code> fitted to {} against {} by weighted least squares. Values are rounded \
-         at the second significant digit of their standard error.</p>",
-        escape(&results.study.formula),
-        escape(&results.data.y_name),
-        escape(&results.data.x_names.join(", "))
-    );
+    if results.datasets.is_empty() {
+        let _ = writeln!(
+            o,
+            "<p>Model <code>{}</code> fitted to {} against {} by weighted least squares. Values are rounded \
+             at the second significant digit of their standard error.</p>",
+            escape(&results.study.formula),
+            escape(&results.data.y_name),
+            escape(&results.data.x_names.join(", "))
+        );
+    } else {
+        let _ = writeln!(
+            o,
+            "<p>{} data sets fitted jointly by weighted least squares, each with its own formula, sharing \
+             the parameters they have in common (table \"Data sets\" under the goodness of fit). Values are \
+             rounded at the second significant digit of their standard error.</p>",
+            results.datasets.len()
+        );
+    }
     table(&mut o, &tables::fit_params(&results.fit), &[1, 2, 3], None);
     if !results.derived.is_empty() {
         o.push_str("<h3>Derived quantities</h3>\n");
@@ -284,6 +300,16 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     // Goodness of fit.
     let _ = writeln!(o, "<section id=\"goodness\">\n<h2>{}</h2>", SECTIONS[2]);
     pairs(&mut o, &tables::goodness(&results.fit), &[]);
+    if !results.datasets.is_empty() {
+        o.push_str("<h3>Data sets</h3>\n");
+        table(
+            &mut o,
+            &crate::report::datasets::table(results),
+            &[2, 4, 5, 6, 7],
+            Some("wide"),
+        );
+        let _ = writeln!(o, "<p>{}</p>", escape(crate::report::datasets::NOTE));
+    }
     o.push_str("</section>\n");
 
     // Interval comparison.
@@ -295,12 +321,12 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
          compared with the analytic half-width. An em dash marks a diagnostic that did not run.</p>",
         escape(&format::percent(results.settings.level, 4))
     );
-    table(
-        &mut o,
-        &tables::comparison(results),
-        &(1..14).collect::<Vec<_>>(),
-        Some("wide"),
-    );
+    for (heading, t) in tables::comparisons(results) {
+        let _ = writeln!(o, "<h3>{}</h3>", escape(&heading));
+        let numeric: Vec<usize> = (1..t.header.len()).collect();
+        table(&mut o, &t, &numeric, Some("compare"));
+    }
+    nonlinearity_part(&mut o, results);
     o.push_str("</section>\n");
 
     // Figures.
@@ -355,9 +381,39 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
         SECTIONS[7],
         escape(CAUTION)
     );
+    let _ = writeln!(
+        o,
+        "<footer><p><strong>Caution.</strong> {}</p><p>{} {}</p></footer>",
+        escape(FOOTER_CAUTION),
+        escape(&results.provenance.tool),
+        escape(&results.provenance.version)
+    );
     o.push_str("</body>\n</html>\n");
     o
 }
+
+/// The linear-approximation part of the interval comparison: curvature
+/// measures and Box's bias read in plain words, then their numbers.
+fn nonlinearity_part(o: &mut String, results: &AuditResults) {
+    use crate::report::nonlinearity as nl;
+    let r = &results.nonlinearity;
+    let _ = writeln!(o, "<h3 id=\"nonlinearity\">{}</h3>", nl::HEADING);
+    for p in nl::paragraphs(r) {
+        let _ = writeln!(o, "<p>{}</p>", escape(&p));
+    }
+    pairs(o, &nl::curvature_rows(r), &[]);
+    if !r.bias.is_empty() {
+        table(o, &nl::bias_table(r, &results.fit), &[1, 2, 3, 4, 5], None);
+    }
+    let _ = writeln!(o, "<p>{}</p>", escape(nl::NOTE));
+}
+
+/// The caution of the README, repeated in the footer of every page (and so
+/// on the last printed page).
+pub const FOOTER_CAUTION: &str = "Statistics support, and do not replace, a laboratory's own \
+validation procedure and the applicable standards. A holds verdict says that the diagnostics found no \
+disagreement with the quoted uncertainty; it does not validate the model, the data or the measurement \
+method.";
 
 /// Writes `report.html`.
 pub struct Html;

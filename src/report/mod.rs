@@ -13,7 +13,8 @@
 //! | `bands.csv` | [`csv::BandsCsv`]: confidence and prediction bands on the curve grid (one x column) |
 //! | `replicates.csv` | [`csv::Replicates`]: on request, every replicate estimate |
 //!
-//! The terminal tables of the command line are in [`text`].
+//! The terminal tables of the command line are in [`text`]; the index of a
+//! batch (`index.html`, `index.json`) is in [`index`].
 
 use std::path::{Path, PathBuf};
 
@@ -21,12 +22,15 @@ use crate::audit::{AuditOptions, AuditResults};
 use crate::output::{OutputError, Staging};
 
 pub mod csv;
+pub mod datasets;
 pub mod figures;
 pub mod findings;
 pub mod format;
 pub mod html;
+pub mod index;
 pub mod json;
 pub mod markdown;
+pub mod nonlinearity;
 pub mod tables;
 pub mod text;
 pub mod validation;
@@ -97,6 +101,21 @@ pub fn write_report(
     let renderers = default_renderers(options);
     let refs: Vec<&dyn Renderer> = renderers.iter().map(|r| r.as_ref()).collect();
     write_with(results, &figures, out, &refs)
+}
+
+/// Every file [`write_report`] writes, as `(path relative to the report
+/// folder, contents)`, without touching the disk (a batch writes them
+/// under each study's subfolder of one staging folder).
+pub fn render_files(
+    results: &AuditResults,
+    options: &AuditOptions,
+) -> Result<Vec<(String, Vec<u8>)>, ReportError> {
+    let figures = figures::build(results)?;
+    let mut files = Vec::new();
+    for r in default_renderers(options) {
+        files.extend(r.render(results, &figures)?);
+    }
+    Ok(files)
 }
 
 /// Runs `renderers` and writes their files into `out` atomically: any error
@@ -178,7 +197,7 @@ impl RebasedNotice {
     /// The notice as one plain sentence group (terminal and Markdown).
     pub fn sentence(&self) -> String {
         format!(
-            "The study's start reaches a local minimum (chi2 = {}); audited at the best minimum found              by the multi-start search (chi2 = {}). Put these start values in the study: {}",
+            "The study's start reaches a local minimum (chi2 = {}); audited at the best minimum found by the multi-start search (chi2 = {}). Put these start values in the study: {}",
             format::chi2(self.start_chi2),
             format::chi2(self.audited_chi2),
             self.start_lines()

@@ -510,8 +510,12 @@ fn robust_ratio_cell(p: &ResampledParameter) -> String {
 
 fn ratio_pm(r: Option<f64>, u: Option<f64>) -> String {
     match (r, u) {
-        (Some(r), Some(u)) => format!("{} \u{b1} {}", format::ratio(r), format::sig(u, 2)),
-        (Some(r), None) => format::ratio(r),
+        // The one rounding rule: u to two significant digits, r at its place.
+        (Some(r), Some(u)) if u.is_finite() && u > 0.0 => {
+            let (r, u) = format::value_and_uncertainty(r, Some(u));
+            format!("{r} \u{b1} {u}")
+        }
+        (Some(r), _) => format::ratio(r),
         _ => s(format::ABSENT),
     }
 }
@@ -542,87 +546,120 @@ fn profile_end(x: f64, found: bool, status: EndStatus, se: Option<f64>) -> Strin
     }
 }
 
-/// The interval comparison: per parameter, the analytic, bootstrap, Monte
-/// Carlo and profile uncertainties at the study's level, and their ratios
-/// to the analytic ones.
-pub fn comparison(results: &AuditResults) -> Table {
+/// The interval comparison, split into readable tables (each fits a
+/// 1280 px page and an A4 print): `(heading, table)` for the bootstrap, the
+/// Monte Carlo and the profile, each beside the analytic value and
+/// interval. Per parameter, at the study's level; an SD ratio carries its
+/// standard uncertainty under a correct u.
+pub fn comparisons(results: &AuditResults) -> Vec<(String, Table)> {
     let k = crate::diagnostics::verdict::coverage_factor(&results.fit, results.settings.level);
-    let header = vec![
-        s("Parameter"),
-        s("Value"),
-        s("Analytic \u{b1}u"),
-        format!("Analytic interval (\u{b1}{}u)", format::sig(k, 3)),
-        s("Bootstrap SD"),
-        s("Bootstrap percentile"),
-        s("Bootstrap BCa"),
-        s("Bootstrap robust SD / u"),
-        s("Monte Carlo SD"),
-        s("Monte Carlo interval (symmetric)"),
-        s("Monte Carlo interval (shortest)"),
-        s("Monte Carlo robust SD / u"),
-        s("Profile interval"),
-        format!("Profile half-width / ({}u)", format::sig(k, 3)),
-        s("Profile asymmetry"),
-    ];
+    let ku = format!("\u{b1}{}u", format::sig(k, 3));
     let absent = || s(format::ABSENT);
-    let mut rows = Vec::new();
-    for p in results.fit.parameters.iter().filter(|p| !p.fixed) {
+    let params: Vec<&ParamResult> = results.fit.parameters.iter().filter(|p| !p.fixed).collect();
+    let lead = |p: &ParamResult| -> Vec<String> {
         let se = p.std_error.filter(|u| u.is_finite() && *u > 0.0);
         let (v, u) = format::value_and_uncertainty(p.value, p.std_error);
-        let mut row = vec![p.name.clone(), v, u];
-        row.push(match se {
-            Some(u) => interval(p.value - k * u, p.value + k * u, se),
-            None => absent(),
-        });
-        match resampled(results.bootstrap.as_ref(), &p.name) {
-            Some(b) => {
-                row.push(format::at_precision_of(b.std, se.or(Some(b.std))));
-                row.push(interval(b.lower, b.upper, se));
-                row.push(match (b.bca_lower, b.bca_upper, b.bca_withheld) {
-                    (Some(l), Some(h), _) => interval(l, h, se),
-                    (_, _, Some(w)) => format!("withheld: {}", bca_withheld_words(w)),
-                    _ => absent(),
-                });
-                row.push(robust_ratio_cell(b));
-            }
-            None => row.extend([absent(), absent(), absent(), absent()]),
+        vec![
+            p.name.clone(),
+            v,
+            u,
+            match se {
+                Some(u) => interval(p.value - k * u, p.value + k * u, se),
+                None => absent(),
+            },
+        ]
+    };
+    let head = |rest: &[&str]| -> Vec<String> {
+        let mut h = vec![s("Parameter"), s("Value"), s("u"), format!("Analytic {ku}")];
+        h.extend(rest.iter().map(|r| s(*r)));
+        h
+    };
+    // The resampling tables leave out the value (the analytic interval is
+    // centred on it) so that they stay narrow.
+    let no_value = |mut r: Vec<String>| {
+        r.remove(1);
+        r
+    };
+
+    let mut boot = Table {
+        header: no_value(head(&["SD", "Percentile", "BCa", "Robust SD / u"])),
+        rows: Vec::new(),
+    };
+    let mut mc = Table {
+        header: no_value(head(&["SD", "Symmetric", "Shortest", "Robust SD / u"])),
+        rows: Vec::new(),
+    };
+    let mut prof = Table {
+        header: head(&["Profile interval", "Half-width / (ku)", "Asymmetry"]),
+        rows: Vec::new(),
+    };
+    for p in &params {
+        let se = p.std_error.filter(|u| u.is_finite() && *u > 0.0);
+        if let Some(b) = resampled(results.bootstrap.as_ref(), &p.name) {
+            let mut row = lead(p);
+            row.push(format::at_precision_of(b.std, se.or(Some(b.std))));
+            row.push(interval(b.lower, b.upper, se));
+            row.push(match (b.bca_lower, b.bca_upper, b.bca_withheld) {
+                (Some(l), Some(h), _) => interval(l, h, se),
+                (_, _, Some(w)) => format!("withheld: {}", bca_withheld_words(w)),
+                _ => absent(),
+            });
+            row.push(robust_ratio_cell(b));
+            boot.rows.push(no_value(row));
         }
-        match resampled(results.monte_carlo.as_ref(), &p.name) {
-            Some(m) => {
-                row.push(format::at_precision_of(m.std, se.or(Some(m.std))));
-                row.push(interval(m.lower, m.upper, se));
-                row.push(match (m.shortest_lower, m.shortest_upper) {
-                    (Some(l), Some(h)) => interval(l, h, se),
-                    _ => absent(),
-                });
-                row.push(robust_ratio_cell(m));
-            }
-            None => row.extend([absent(), absent(), absent(), absent()]),
+        if let Some(m) = resampled(results.monte_carlo.as_ref(), &p.name) {
+            let mut row = lead(p);
+            row.push(format::at_precision_of(m.std, se.or(Some(m.std))));
+            row.push(interval(m.lower, m.upper, se));
+            row.push(match (m.shortest_lower, m.shortest_upper) {
+                (Some(l), Some(h)) => interval(l, h, se),
+                _ => absent(),
+            });
+            row.push(robust_ratio_cell(m));
+            mc.rows.push(no_value(row));
         }
-        match results
+        if let Some(q) = results
             .profile
             .as_ref()
             .and_then(|pr| pr.parameters.iter().find(|q| q.name == p.name))
         {
-            Some(q) => {
-                row.push(format!(
-                    "[{}, {}]",
-                    profile_end(q.lower, q.lower_found, q.lower_status, se),
-                    profile_end(q.upper, q.upper_found, q.upper_status, se)
-                ));
-                row.push(match se {
-                    Some(u) if q.lower_found && q.upper_found => {
-                        format::ratio((q.upper - q.lower) / (2.0 * k * u))
-                    }
-                    _ => absent(),
-                });
-                row.push(q.asymmetry.map(format::ratio).unwrap_or_else(absent));
-            }
-            None => row.extend([absent(), absent(), absent()]),
+            let mut row = lead(p);
+            row.push(format!(
+                "[{}, {}]",
+                profile_end(q.lower, q.lower_found, q.lower_status, se),
+                profile_end(q.upper, q.upper_found, q.upper_status, se)
+            ));
+            row.push(match se {
+                Some(u) if q.lower_found && q.upper_found => {
+                    format::ratio((q.upper - q.lower) / (2.0 * k * u))
+                }
+                _ => absent(),
+            });
+            row.push(q.asymmetry.map(format::ratio).unwrap_or_else(absent));
+            prof.rows.push(row);
         }
-        rows.push(row);
     }
-    Table { header, rows }
+    let mut out = Vec::new();
+    if results.bootstrap.is_some() {
+        out.push((s("Bootstrap"), boot));
+    }
+    if results.monte_carlo.is_some() {
+        out.push((s("Monte Carlo (symmetric and shortest coverage intervals)"), mc));
+    }
+    if results.profile.is_some() {
+        out.push((s("Chi-squared profile"), prof));
+    }
+    if out.is_empty() {
+        // Only the analytic values: one table, so the section is never empty.
+        out.push((
+            s("Analytic"),
+            Table {
+                header: head(&[]),
+                rows: params.iter().map(|p| lead(p)).collect(),
+            },
+        ));
+    }
+    out
 }
 
 fn reasons_counted(rs: &ResampleResult) -> String {

@@ -180,8 +180,75 @@ pub fn derived_table(fit: &FitResult, derived: &[crate::diagnostics::derived::De
     )
 }
 
-/// One line per parameter: name, the interval to quote, status, first
-/// reason; led by a warning
+/// The data sets of a joint fit: points, parameters (shared ones starred),
+/// chi2 contribution, its share, dof share and chi2 per dof share; empty
+/// for one data set.
+pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool) -> String {
+    if shares.is_empty() {
+        return String::new();
+    }
+    let t = crate::report::datasets::table_of(shares, sigma_given);
+    // The formula is long and already printed by `check`: the terminal
+    // table leaves it out; headings start in lower case as in `fit_table`.
+    let without_formula = |r: &[String]| -> Vec<String> {
+        r.iter()
+            .enumerate()
+            .filter(|(j, _)| *j != 1)
+            .map(|(_, c)| c.clone())
+            .collect()
+    };
+    let header = without_formula(&t.header)
+        .into_iter()
+        .map(|h| {
+            let mut c = h.chars();
+            c.next()
+                .map(|f| f.to_lowercase().collect::<String>() + c.as_str())
+                .unwrap_or_default()
+        })
+        .collect();
+    let mut rows = vec![header];
+    rows.extend(t.rows.iter().map(|r| without_formula(r)));
+    format!(
+        "\n{}(one joint fit; * marks a shared parameter; the contributions add up to chi2, the dof shares to dof)\n",
+        columns(&rows, &[1, 3, 4, 5, 6])
+    )
+}
+
+/// Every reason of a verdict in a few words: the rule and the diagnostic it
+/// read of each finding that decided it (`profile-half-widths (profile);
+/// spread-ratio (bootstrap)`), or, for a verdict that holds, how many
+/// checks agreed. The sentences are in the report.
+pub fn compact_reasons(v: &crate::diagnostics::verdict::Verdict) -> String {
+    use crate::diagnostics::verdict::Status;
+    let code = |x: serde_json::Value| x.as_str().map(str::to_string).unwrap_or_default();
+    if v.status == Status::Holds {
+        return match v.findings.len() {
+            0 => "no diagnostic ran".to_string(),
+            n => format!("{n} checks agree"),
+        };
+    }
+    let mut parts: Vec<String> = Vec::new();
+    for f in v.findings.iter().filter(|f| f.status != Status::Holds) {
+        let rule = code(serde_json::to_value(f.rule).unwrap_or_default());
+        let source = code(serde_json::to_value(f.diagnostic).unwrap_or_default());
+        let part = if source.is_empty() || source == rule {
+            rule
+        } else {
+            format!("{rule} ({source})")
+        };
+        if !parts.contains(&part) {
+            parts.push(part);
+        }
+    }
+    if parts.is_empty() {
+        format::ABSENT.to_string()
+    } else {
+        parts.join("; ")
+    }
+}
+
+/// One line per parameter: name, the interval to quote, status, every
+/// reason in a few words ([`compact_reasons`]); led by a warning
 /// line when the multi-start search found a better minimum than the base fit.
 pub fn verdict_lines(results: &AuditResults) -> String {
     let mut out = String::new();
@@ -214,10 +281,7 @@ pub fn verdict_lines(results: &AuditResults) -> String {
                 v.parameter.clone(),
                 findings::quote_cell(results, v),
                 status_word(v.status).to_string(),
-                findings::reasons(v)
-                    .first()
-                    .cloned()
-                    .unwrap_or_else(|| format::ABSENT.to_string()),
+                compact_reasons(v),
             ]
         })
         .collect();
@@ -226,6 +290,11 @@ pub fn verdict_lines(results: &AuditResults) -> String {
 }
 
 fn signature(f: &FunctionInfo) -> String {
+    // Functions whose arguments are not interchangeable say which is which:
+    // atan2 takes the ordinate first, as the evaluation does (`y.atan2(x)`).
+    if (f.name, f.arity) == ("atan2", 2) {
+        return "atan2(y, x)".into();
+    }
     let args: Vec<String> = match f.arity {
         0 => return f.name.to_string(),
         1 => vec!["x".into()],
@@ -272,6 +341,56 @@ pub fn catalogue_table(functions: &[FunctionInfo], constants: &[(&str, f64)]) ->
     out
 }
 
+/// What `fitaudit audit` prints after a batch: one line per study.
+pub fn index_lines(index: &crate::batch::BatchIndex) -> String {
+    let mut out = String::new();
+    for r in &index.studies {
+        match &r.error {
+            Some(e) => {
+                let _ = writeln!(out, "  {:<14} error (exit status {}): {e}", r.name, r.exit_status);
+            }
+            None => {
+                let notice = match (r.rebased, r.best_chi2) {
+                    (true, _) => "; the start reaches a local minimum: audited at the best minimum found",
+                    (false, Some(_)) => "; a lower minimum than the start's was found but not audited",
+                    _ => "",
+                };
+                let _ = writeln!(
+                    out,
+                    "  {:<14} {} holds, {} doubtful, {} fails{notice}  -> {}",
+                    r.name,
+                    r.holds,
+                    r.doubtful,
+                    r.fails,
+                    r.report.as_deref().unwrap_or("")
+                );
+            }
+        }
+    }
+    let _ = writeln!(
+        out,
+        "exit status {} (the gravest of {} studies)",
+        index.exit_status,
+        index.studies.len()
+    );
+    out
+}
+
+/// What `fitaudit audit --shard` prints: which work the part holds.
+pub fn part_lines(part: &crate::batch::PartFile) -> String {
+    let mut out = String::new();
+    for s in &part.studies {
+        let what = match (&s.error, s.slice) {
+            (Some((e, _)), _) => format!("error: {e}"),
+            (None, Some(sl)) if sl.is_whole() => "whole study".to_string(),
+            (None, Some(sl)) => format!("slice {sl} of its work"),
+            (None, None) => "in another shard".to_string(),
+        };
+        let _ = writeln!(out, "  {:<14} {what}", s.name);
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -293,7 +412,7 @@ mod tests {
         let t = catalogue_table(&entries, &[("pi", std::f64::consts::PI)]);
         assert_eq!(
             t,
-            "Functions:\n  exp(x)       exponential\n  atan2(x, y)  angle of (x, y)\n\n\
+            "Functions:\n  exp(x)       exponential\n  atan2(y, x)  angle of (x, y)\n\n\
              Constants:\n  pi  3.141592653589793\n"
         );
         assert_eq!(
@@ -303,6 +422,21 @@ mod tests {
         // The language's own catalogue: exp is there, and pi and e with their
         // values (mathematical constants to 16 digits).
         let real = models_table();
+        // atan2 is documented with the argument order the evaluation uses:
+        // atan2(1, 0) is the angle of the point (0, 1), pi/2 (ISO C 7.12.4.4,
+        // atan2(y, x)); the catalogue line names y first.
+        let t = crate::model::compile(
+            "atan2(a, b)",
+            &crate::model::Symbols {
+                parameters: &["a".to_string(), "b".to_string()],
+                constants: &[],
+                variables: &[],
+            },
+        )
+        .unwrap();
+        assert!((t.eval_point(&[1.0, 0.0], &[]).0 - std::f64::consts::FRAC_PI_2).abs() < 1e-15);
+        assert!(t.eval_point(&[0.0, -1.0], &[]).0 == std::f64::consts::PI);
+        assert!(real.lines().any(|l| l.starts_with("  atan2(y, x) ")), "{real}");
         assert!(real.lines().any(|l| l.starts_with("  exp(x) ")), "{real}");
         assert!(real.lines().any(|l| l == "  pi  3.141592653589793"), "{real}");
         assert!(

@@ -501,6 +501,32 @@ pub enum StudyError {
         /// True when the value is finite but a derivative is not.
         derivative: bool,
     },
+    /// The data file of a `[[datasets]]` entry could not be read.
+    #[error("{at}: cannot read the data file named by `{key}` ({key_at}): {source}")]
+    ReadDatasetFile {
+        /// The data file as resolved.
+        at: Box<At>,
+        /// Where the study file names it.
+        key_at: Box<At>,
+        /// The key, `datasets[i].file`.
+        key: String,
+        /// The I/O error.
+        #[source]
+        source: std::io::Error,
+    },
+    /// The formula of a `[[datasets]]` entry does not compile (syntax,
+    /// unknown name, arity).
+    #[error("{at}: `{key}`: {message}{}", column.map(|c| format!(" (column {c} of the formula)")).unwrap_or_default())]
+    DatasetFormula {
+        /// Where the formula is.
+        at: Box<At>,
+        /// The key, `datasets[i].formula`.
+        key: String,
+        /// What is wrong.
+        message: String,
+        /// 1-based column in the formula.
+        column: Option<usize>,
+    },
     /// A programmatic data set that is inconsistent.
     #[error("{at}: the data set {why}")]
     InvalidDataset {

@@ -59,12 +59,15 @@
 
 mod csv;
 mod error;
+mod joint;
 mod spec;
 
 pub use self::csv::{parse_raw, read_csv, RawTable, Table};
 pub use self::error::{At, Shadow, StudyError};
+pub use self::joint::DatasetEntry;
 pub use self::spec::{
-    DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, SigmaSpec, StudySpec,
+    AxisScale, DataSpec, FitSpec, InverseSpec, Loc, Locations, ModelSpec, ParamEntry, ReportSpec, SigmaSpec,
+    StudySpec,
 };
 
 use crate::data::Dataset;
@@ -99,8 +102,16 @@ pub struct Study {
     pub audit: AuditSettings,
     /// `[fit]`, resolved.
     pub fit_options: FitOptions,
-    /// The compiled formula.
+    /// `[report]`: how the figures are drawn.
+    pub report: ReportSpec,
+    /// `data.sigma` as written (a column name or one number), for `check`.
+    pub sigma_spec: Option<SigmaSpec>,
+    /// The compiled formula (with several `[[datasets]]`: the first data
+    /// set's formula over all parameters; fits use [`Study::model_fn`]).
     pub model: Tape,
+    /// The joint model of a study with `[[datasets]]` (each data set's
+    /// formula on its own points); `None` for `[data]` + `[model]`.
+    pub joint: Option<model::JointModel>,
     /// The `[derived]` quantities, compiled, in file order.
     pub derived: Vec<DerivedQuantity>,
     /// The `[[inverse]]` requests, checked, in file order.
@@ -214,6 +225,30 @@ impl Study {
         if spec.origin.as_os_str().is_empty() {
             spec.origin = PathBuf::from(name);
         }
+        if !spec.datasets.is_empty() {
+            return joint::from_spec(spec, base_dir, name);
+        }
+        let from_file = !spec.locations.is_empty();
+        let missing = [
+            (
+                "data",
+                "[data] (the data file and its columns)",
+                spec.data == DataSpec::default(),
+            ),
+            ("model", "[model] (the formula)", spec.model.formula.is_empty()),
+        ];
+        for (table, what, empty) in missing {
+            if !spec.locations.has_table(table) && (from_file || empty) {
+                return Err(invalid(
+                    &spec,
+                    table,
+                    format!(
+                        "is missing: a study needs {what}, or instead of [data] and [model] one or more \
+                         [[datasets]] entries, each with name, file, x, y and formula"
+                    ),
+                ));
+            }
+        }
         let (params, options) = check_spec(&spec)?;
         if spec.data.file.as_os_str().is_empty() {
             return Err(StudyError::Invalid {
@@ -244,6 +279,13 @@ impl Study {
         if spec.origin.as_os_str().is_empty() {
             spec.origin = PathBuf::from(name);
         }
+        if !spec.datasets.is_empty() {
+            return Err(invalid(
+                &spec,
+                "datasets",
+                "cannot be used with a data set built in code: build the joint data set, or load the study file",
+            ));
+        }
         let (params, options) = check_spec(&spec)?;
         check_dataset(&spec, &dataset)?;
         finish(spec, params, options, dataset, None, name)
@@ -252,9 +294,18 @@ impl Study {
     /// The fitting problem: model, parameters and optimiser settings.
     pub fn problem(&self) -> Problem<'_> {
         Problem {
-            model: &self.model,
+            model: self.model_fn(),
             params: self.parameters.clone(),
             options: self.fit_options.clone(),
+        }
+    }
+
+    /// The model every fit evaluates: the joint model with several
+    /// `[[datasets]]`, else the compiled formula.
+    pub fn model_fn(&self) -> &dyn ModelFn {
+        match &self.joint {
+            Some(j) => j,
+            None => &self.model,
         }
     }
 
@@ -697,6 +748,7 @@ fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<Dataset, Study
         y,
         sigma,
         sigma_x,
+        groups: Vec::new(),
     })
 }
 
@@ -1035,7 +1087,10 @@ fn finish(
             ..options
         },
         audit: spec.audit,
+        report: spec.report,
+        sigma_spec: spec.data.sigma.clone(),
         model: tape,
+        joint: None,
         derived,
         inverse,
         inverse_model,

@@ -23,10 +23,19 @@ pub struct StudySpec {
     /// Optional title shown in reports.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub title: Option<String>,
-    /// `[data]`: the data file and its columns.
+    /// `[data]`: the data file and its columns (absent, and empty, in a
+    /// study of several `[[datasets]]`).
+    #[serde(default)]
     pub data: DataSpec,
-    /// `[model]`: the formula.
+    /// `[model]`: the formula (absent, and empty, in a study of several
+    /// `[[datasets]]`).
+    #[serde(default)]
     pub model: ModelSpec,
+    /// `[[datasets]]`: several data sets fitted jointly, each with its own
+    /// file, columns, sigma and formula, sharing the parameters of
+    /// `[parameters]` by name (instead of `[data]` + `[model]`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub datasets: Vec<super::joint::DatasetEntry>,
     /// `[parameters]`, in the order of the file (= order of the parameter
     /// vector).
     #[serde(default, with = "ordered")]
@@ -47,6 +56,9 @@ pub struct StudySpec {
     /// `[fit]`: optimiser settings.
     #[serde(default)]
     pub fit: FitSpec,
+    /// `[report]`: how the figures are drawn.
+    #[serde(default)]
+    pub report: ReportSpec,
     /// The study file this spec was read from (or a virtual name); not part
     /// of the file.
     #[serde(skip)]
@@ -54,6 +66,34 @@ pub struct StudySpec {
     /// Where each key sits in the study file; empty for a spec built in code.
     #[serde(skip)]
     pub locations: Locations,
+}
+
+/// `[report]`: presentation settings of the figures; they change no
+/// number of the audit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReportSpec {
+    /// Scale of the independent-variable axis of the data figures.
+    #[serde(default)]
+    pub x_axis: AxisScale,
+    /// Scale of the response axis of the data figure.
+    #[serde(default)]
+    pub y_axis: AxisScale,
+}
+
+/// Scale of a figure axis.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AxisScale {
+    /// Logarithmic when every value drawn is positive and they span more
+    /// than two decades (largest over smallest above 100), else linear.
+    #[default]
+    Auto,
+    /// Linear.
+    Linear,
+    /// Logarithmic (base 10); values at or below zero are left out and
+    /// the caption says how many.
+    Log,
 }
 
 /// `[data]`.
@@ -275,6 +315,26 @@ impl Locations {
         self.map.is_empty()
     }
 
+    /// True when some key at or below `key` is recorded (`key` or `key.*`).
+    pub fn has_table(&self, key: &str) -> bool {
+        let dotted = format!("{key}.");
+        self.map.keys().any(|k| k == key || k.starts_with(&dotted))
+    }
+
+    /// A copy in which every key starting with `from` also appears with
+    /// `from` replaced by `to` (a `[[datasets]]` entry read as `[data]`).
+    pub(crate) fn renamed(&self, renames: &[(&str, &str)]) -> Locations {
+        let mut out = self.clone();
+        for (k, v) in &self.map {
+            for (from, to) in renames {
+                if let Some(rest) = k.strip_prefix(from) {
+                    out.map.insert(format!("{to}{rest}"), *v);
+                }
+            }
+        }
+        out
+    }
+
     /// `file, line, column` of a key, falling back to the nearest recorded
     /// parent key, then to the file alone.
     pub fn at(&self, file: &Path, key: &str) -> At {
@@ -343,8 +403,10 @@ impl StudySpec {
             constants: Vec::new(),
             derived: Vec::new(),
             inverse: Vec::new(),
+            datasets: Vec::new(),
             audit: AuditSettings::default(),
             fit: FitSpec::default(),
+            report: ReportSpec::default(),
             origin: PathBuf::new(),
             locations: Locations::default(),
         }
@@ -361,7 +423,7 @@ fn is_number_key(key: &str) -> bool {
     matches!(
         parts.as_slice(),
         ["parameters", _, "start" | "min" | "max"] | ["constants", _] | ["data", "sigma"]
-    )
+    ) || key.starts_with("datasets[") && key.ends_with("].sigma")
 }
 
 /// 1-based (line, character column) of a byte offset.
@@ -582,7 +644,7 @@ fn walk_value(v: &SpanNode, key: String, text: &str, locs: &mut Locations, raw: 
 // serde helpers
 
 /// A TOML table as an ordered list of (key, value), in file order.
-mod ordered {
+pub(super) mod ordered {
     use super::*;
 
     pub fn serialize<S: Serializer, V: Serialize>(v: &[(String, V)], s: S) -> Result<S::Ok, S::Error> {
@@ -621,7 +683,7 @@ mod ordered {
 }
 
 /// `"a"` or `["a", "b"]`.
-mod one_or_many {
+pub(super) mod one_or_many {
     use super::*;
 
     pub fn serialize<S: Serializer>(v: &[String], s: S) -> Result<S::Ok, S::Error> {
@@ -651,5 +713,31 @@ mod one_or_many {
             }
         }
         d.deserialize_any(Vis)
+    }
+}
+
+#[cfg(test)]
+mod report_table_tests {
+    use super::*;
+
+    const BASE: &str = "[data]\nfile = \"d.csv\"\nx = \"t\"\ny = \"y\"\n[model]\nformula = \"a*t\"\n[parameters]\na = { start = 1 }\n";
+
+    #[test]
+    fn report_table_sets_axis_scales_and_rejects_unknown_keys() {
+        let spec = StudySpec::from_toml_str(BASE, Path::new("s.toml")).unwrap();
+        assert_eq!(spec.report, ReportSpec::default());
+        assert_eq!(spec.report.x_axis, AxisScale::Auto);
+        let text = format!("{BASE}[report]\nx_axis = \"log\"\ny_axis = \"linear\"\n");
+        let spec = StudySpec::from_toml_str(&text, Path::new("s.toml")).unwrap();
+        assert_eq!(spec.report.x_axis, AxisScale::Log);
+        assert_eq!(spec.report.y_axis, AxisScale::Linear);
+        // A typo is an error naming the key.
+        let text = format!("{BASE}[report]\nx_axes = \"log\"\n");
+        let err = StudySpec::from_toml_str(&text, Path::new("s.toml"))
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("x_axes"), "{err}");
+        let text = format!("{BASE}[report]\nx_axis = \"logarithmic\"\n");
+        assert!(StudySpec::from_toml_str(&text, Path::new("s.toml")).is_err());
     }
 }

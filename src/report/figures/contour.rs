@@ -2,6 +2,7 @@
 //! parameter pair, the covariance ellipses at the same levels and, when the
 //! bootstrap ran, the cloud of bootstrap estimates.
 
+use super::palette::{self, grey};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::{estimate_column, Figure};
 use crate::audit::AuditResults;
@@ -20,14 +21,14 @@ fn polylines(lines: &ContourLine) -> Vec<Vec<(f64, f64)>> {
 }
 
 const LEVEL_STROKES: [Stroke; 3] = [
-    Stroke::new(Dash::Solid, 2, 0),
-    Stroke::new(Dash::Solid, 1, 0),
-    Stroke::new(Dash::Solid, 1, 120),
+    Stroke::new(Dash::Solid, 2, palette::BLUE),
+    Stroke::new(Dash::Solid, 1, palette::BLUE),
+    Stroke::new(Dash::Solid, 1, palette::BLUISH_GREEN),
 ];
 const ELLIPSE_STROKES: [Stroke; 3] = [
-    Stroke::new(Dash::Dashed, 2, 0),
-    Stroke::new(Dash::Dashed, 1, 0),
-    Stroke::new(Dash::Dotted, 1, 60),
+    Stroke::new(Dash::Dashed, 2, palette::VERMILLION),
+    Stroke::new(Dash::Dashed, 1, palette::VERMILLION),
+    Stroke::new(Dash::Dotted, 1, palette::ORANGE),
 ];
 
 /// The contour figure of one pair, or None when nothing can be drawn.
@@ -116,14 +117,17 @@ pub(crate) fn figure(
             None => format!("{what} \u{394}\u{3c7}\u{b2} = {}", format::sig(lv, 3)),
         }
     };
-    let text = svg::render(&file, (640 + svg::LEGEND_WIDTH, 600), |root| {
-        let (plot, side) = root.split_horizontally(640);
+    let entries =
+        usize::from(!cloud.is_empty()) + c.lines.len() + c.ellipse.len() + usize::from(centre.is_some());
+    let legend_h = svg::legend_height(entries).max(svg::LEGEND_HEIGHT);
+    let text = svg::render(&file, (640, 600 + legend_h), |root| {
+        let (plot, side) = root.split_vertically(600);
         let title = format!("Contours of {a} and {b}");
         let mut ch = svg::chart(&plot, Some(&title), xr, yr, a, b)?;
         if !cloud.is_empty() {
             ch.points(
                 &cloud,
-                Mark::new(Shape::Circle, 1, 110, true),
+                Mark::new(Shape::Circle, 1, palette::tint(palette::SKY_BLUE, 0.8), true),
                 Some("bootstrap estimates"),
             )?;
         }
@@ -136,7 +140,7 @@ pub(crate) fn figure(
             ch.lines(&polylines(l), stroke, Some(&level_label(k, "ellipse")))?;
         }
         if let Some(ct) = centre {
-            ch.points(&[ct], Mark::new(Shape::Cross, 5, 0, true), Some("base fit"))?;
+            ch.points(&[ct], Mark::new(Shape::Cross, 5, grey(0), true), Some("base fit"))?;
         }
         svg::legend(&side, &ch.legend)?;
         Ok(())
@@ -151,7 +155,9 @@ pub(crate) fn figure(
          node) and the covariance ellipses at the same levels (dashed), for two parameters jointly."
     );
     if total > 0 {
-        caption.push_str(&format!(" Grey dots: {drawn} of {total} bootstrap estimates"));
+        caption.push_str(&format!(
+            " Light blue dots: {drawn} of {total} bootstrap estimates"
+        ));
         if outside > 0 {
             caption.push_str(&format!(" ({outside} outside the frame)"));
         }

@@ -5,6 +5,7 @@
 use plotters::prelude::*;
 use plotters::style::text_anchor::{HPos, Pos, VPos};
 
+use super::palette;
 use super::svg::{self, FONT};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -95,11 +96,11 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
                 let g = cell_grey(v);
                 root.draw(&Rectangle::new(
                     [(x0, y0), (x0 + cell, y0 + cell)],
-                    svg::grey(g).filled(),
+                    palette::grey(g).rgb().filled(),
                 ))?;
                 root.draw(&Rectangle::new(
                     [(x0, y0), (x0 + cell, y0 + cell)],
-                    svg::grey(90).stroke_width(1),
+                    palette::grey(90).rgb().stroke_width(1),
                 ))?;
                 let s = if v.is_finite() {
                     format!("{v:.digits$}")

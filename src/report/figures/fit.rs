@@ -1,7 +1,8 @@
 //! `fit.svg`: the data with their error bars and the fitted curve, with the
 //! normalised residuals in a panel below.
 
-use super::svg::{self, Dash, Mark, Shape, Stroke};
+use super::palette::{self, grey, Series};
+use super::svg::{self, Dash, Mark, Scale, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
 use crate::diagnostics::bands::NewObservation;
@@ -61,28 +62,38 @@ fn band_lines(results: &AuditResults) -> Vec<BandLines> {
     let mut out = vec![
         BandLines {
             lines: vec![edge(&b.confidence_lower), edge(&b.confidence_upper)],
-            stroke: Stroke::new(Dash::Dashed, 1, 0),
+            stroke: Stroke::new(Dash::Dashed, 1, palette::VERMILLION),
             label: format!("{level} confidence band"),
         },
         BandLines {
             lines: vec![edge(&b.prediction_lower), edge(&b.prediction_upper)],
-            stroke: Stroke::new(Dash::Dotted, 1, 0),
+            stroke: Stroke::new(Dash::Dotted, 2, palette::REDDISH_PURPLE),
             label: format!("{level} prediction band"),
         },
     ];
-    for (name, rb, grey) in [
-        ("bootstrap", b.bootstrap.as_ref(), 90),
-        ("Monte Carlo", b.monte_carlo.as_ref(), 150),
+    for (name, rb, ink, width) in [
+        ("bootstrap", b.bootstrap.as_ref(), palette::SKY_BLUE, 2),
+        ("Monte Carlo", b.monte_carlo.as_ref(), palette::ORANGE, 1),
     ] {
         if let Some(rb) = rb {
             out.push(BandLines {
                 lines: vec![edge(&rb.lower), edge(&rb.upper)],
-                stroke: Stroke::new(Dash::Long, 1, grey),
+                stroke: Stroke::new(Dash::Long, width, ink),
                 label: format!("{name} percentile band"),
             });
         }
     }
     out
+}
+
+/// Caption words on the axis scales: empty when both are linear.
+fn scale_words(sx: Scale, sy: Scale) -> String {
+    match (sx, sy) {
+        (Scale::Linear, Scale::Linear) => String::new(),
+        (Scale::Log, Scale::Log) => " (both axes logarithmic)".into(),
+        (Scale::Log, _) => sx.words("x"),
+        (_, Scale::Log) => sy.words("y"),
+    }
 }
 
 /// The caption's words on the bands drawn (empty without bands).
@@ -143,61 +154,84 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             .map(|c| c.x.iter().copied().zip(c.y.iter().copied()).collect())
             .unwrap_or_default();
         let bands = band_lines(results);
-        let xr = svg::extent(x.iter().copied().chain(curve.iter().map(|p| p.0)));
-        let yr = svg::extent(
+        let sx = Scale::choose(results.report.x_axis, x.iter().copied());
+        let sy = Scale::choose(results.report.y_axis, data.y.iter().copied());
+        let xr = sx.extent(x.iter().copied().chain(curve.iter().map(|p| p.0)));
+        let yr = sy.extent(
             (0..n)
                 .flat_map(|i| [data.y[i] - err(i), data.y[i] + err(i)])
                 .chain(curve.iter().map(|p| p.1))
                 .chain(bands.iter().flat_map(|b| b.lines.iter().flatten().map(|p| p.1))),
         );
+        let left_out = (0..n)
+            .filter(|&i| !(sx.to_axis(x[i]).is_finite() && sy.to_axis(data.y[i]).is_finite()))
+            .count();
         let (Some(xr), Some(yr)) = (xr, yr) else {
             return Ok(None);
         };
         let res_pts: Vec<(f64, f64)> = x.iter().copied().zip(residuals.iter().copied()).collect();
         let rr = svg::extent(res_pts.iter().map(|p| p.1).chain([0.0])).unwrap_or((-1.0, 1.0));
-        let svg_text = svg::render("fit.svg", (720 + svg::LEGEND_WIDTH, 620), |root| {
-            let (plot, side) = root.split_horizontally(720);
+        let svg_text = svg::render("fit.svg", (720, 620 + svg::LEGEND_HEIGHT), |root| {
+            let (plot, side) = root.split_vertically(620);
             let (top, bottom) = plot.split_vertically(410);
-            let mut c = svg::chart(&top, Some("Data and fitted model"), xr, yr, x_name, y_name)?;
+            let mut c = svg::chart_scaled(
+                &top,
+                Some("Data and fitted model"),
+                xr,
+                yr,
+                x_name,
+                y_name,
+                (sx, sy),
+            )?;
             let bars: Vec<(f64, f64, f64)> = (0..n).map(|i| (x[i], data.y[i], err(i))).collect();
-            c.error_bars(&bars, 90)?;
+            c.error_bars(&bars, grey(120))?;
             let pts: Vec<(f64, f64)> = (0..n).map(|i| (x[i], data.y[i])).collect();
             let label = if sigma.is_some() {
                 "data \u{b1} \u{3c3}"
             } else {
                 "data"
             };
-            c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some(label))?;
+            c.points(&pts, Mark::new(Shape::Circle, 3, grey(0), false), Some(label))?;
             c.lines(
                 std::slice::from_ref(&curve),
-                Stroke::new(Dash::Solid, 2, 0),
+                Stroke::of(Series::Curve, 2),
                 Some("fitted model"),
             )?;
             for b in &bands {
                 c.lines(&b.lines, b.stroke, Some(&b.label))?;
             }
             svg::legend(&side, &c.legend)?;
-            let mut r = svg::chart(&bottom, None, xr, rr, x_name, res_label)?;
+            let mut r = svg::chart_scaled(&bottom, None, xr, rr, x_name, res_label, (sx, Scale::Linear))?;
+            let (x_lo, x_hi) = match sx {
+                Scale::Linear => xr,
+                Scale::Log => (10f64.powf(xr.0), 10f64.powf(xr.1)),
+            };
             r.lines(
-                &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
-                Stroke::new(Dash::Solid, 1, 110),
+                &[vec![(x_lo, 0.0), (x_hi, 0.0)]],
+                Stroke::new(Dash::Solid, 1, grey(110)),
                 None,
             )?;
-            r.points(&res_pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+            r.points(&res_pts, Mark::new(Shape::Circle, 3, grey(0), true), None)?;
             Ok(())
         })?;
         return Ok(Some(Figure {
             file: "fit.svg".into(),
             title: "Data and fitted model".into(),
             caption: format!(
-                "Top: {y_name} against {x_name}, {}, and the fitted model{}. Bottom: {} of each point.",
+                "Top: {y_name} against {x_name}{}, {}, and the fitted model{}. Bottom: {} of each point.{}",
+                scale_words(sx, sy),
                 if sigma.is_some() {
                     "error bars \u{b1}1 standard uncertainty"
                 } else {
                     "no uncertainties given"
                 },
                 band_words(results),
-                residual_words(results)
+                residual_words(results),
+                if left_out > 0 {
+                    format!(" {left_out} points at or below zero cannot be drawn on the logarithmic axis.")
+                } else {
+                    String::new()
+                }
             ),
             svg: svg_text,
         }));
@@ -216,8 +250,8 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     let res_pts: Vec<(f64, f64)> = fitted.iter().copied().zip(residuals.iter().copied()).collect();
     let rr = svg::extent(res_pts.iter().map(|p| p.1).chain([0.0])).unwrap_or((-1.0, 1.0));
     let fitted_label = format!("fitted {y_name}");
-    let svg_text = svg::render("fit.svg", (720 + svg::LEGEND_WIDTH, 620), |root| {
-        let (plot, side) = root.split_horizontally(720);
+    let svg_text = svg::render("fit.svg", (720, 620 + svg::LEGEND_HEIGHT), |root| {
+        let (plot, side) = root.split_vertically(620);
         let (top, bottom) = plot.split_vertically(410);
         let mut c = svg::chart(
             &top,
@@ -228,21 +262,21 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             y_name,
         )?;
         let bars: Vec<(f64, f64, f64)> = (0..m).map(|i| (fitted[i], data.y[i], err(i))).collect();
-        c.error_bars(&bars, 90)?;
+        c.error_bars(&bars, grey(120))?;
         c.lines(
             &[vec![(lim.0, lim.0), (lim.1, lim.1)]],
-            Stroke::new(Dash::Dashed, 1, 0),
+            Stroke::new(Dash::Dashed, 1, grey(0)),
             Some("observed = fitted"),
         )?;
-        c.points(&obs, Mark::new(Shape::Circle, 3, 0, false), Some("data"))?;
+        c.points(&obs, Mark::new(Shape::Circle, 3, grey(0), false), Some("data"))?;
         svg::legend(&side, &c.legend)?;
         let mut r = svg::chart(&bottom, None, lim, rr, &fitted_label, res_label)?;
         r.lines(
             &[vec![(lim.0, 0.0), (lim.1, 0.0)]],
-            Stroke::new(Dash::Solid, 1, 110),
+            Stroke::new(Dash::Solid, 1, grey(110)),
             None,
         )?;
-        r.points(&res_pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+        r.points(&res_pts, Mark::new(Shape::Circle, 3, grey(0), true), None)?;
         Ok(())
     })?;
     Ok(Some(Figure {

@@ -1,8 +1,7 @@
 //! `hist_<p>.svg`: bootstrap and Monte Carlo estimates of one parameter as
 //! densities, the analytic normal curve, and the ends of every interval.
 
-use plotters::style::text_anchor::{HPos, Pos, VPos};
-
+use super::palette::{self, Series};
 use super::svg::{self, Dash, Stroke};
 use super::{column, estimate_column, Figure};
 use crate::audit::AuditResults;
@@ -49,7 +48,14 @@ struct Marker {
     label: String,
     short: &'static str,
     stroke: Stroke,
-    ends: Vec<f64>,
+    lo: Option<f64>,
+    hi: Option<f64>,
+}
+
+impl Marker {
+    fn ends(&self) -> impl Iterator<Item = f64> + '_ {
+        [self.lo, self.hi].into_iter().flatten()
+    }
 }
 
 /// The histogram of parameter `j`, or None when no resampling ran for it.
@@ -76,9 +82,10 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
     if let Some(se) = se {
         markers.push(Marker {
             label: format!("analytic value \u{b1} {}\u{b7}u", format::sig(k, 3)),
-            short: "\u{b1}u",
-            stroke: Stroke::new(Dash::Solid, 2, 130),
-            ends: vec![p.value - k * se, p.value + k * se],
+            short: "value \u{b1} ku",
+            stroke: Stroke::of(Series::Analytic, 2),
+            lo: Some(p.value - k * se),
+            hi: Some(p.value + k * se),
         });
     }
     let find = |rs: Option<&crate::diagnostics::resample::ResampleResult>| {
@@ -87,25 +94,28 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
     if let Some(b) = find(results.bootstrap.as_ref()) {
         markers.push(Marker {
             label: "bootstrap percentile".into(),
-            short: "pct",
-            stroke: Stroke::new(Dash::Dashed, 2, 0),
-            ends: vec![b.lower, b.upper],
+            short: "percentile",
+            stroke: Stroke::of(Series::Bootstrap, 2),
+            lo: Some(b.lower),
+            hi: Some(b.upper),
         });
         if let (Some(lo), Some(hi)) = (b.bca_lower, b.bca_upper) {
             markers.push(Marker {
                 label: "bootstrap BCa".into(),
                 short: "BCa",
-                stroke: Stroke::new(Dash::Dotted, 2, 0),
-                ends: vec![lo, hi],
+                stroke: Stroke::of(Series::Bca, 2),
+                lo: Some(lo),
+                hi: Some(hi),
             });
         }
     }
     if let Some(m) = find(results.monte_carlo.as_ref()) {
         markers.push(Marker {
             label: "Monte Carlo interval".into(),
-            short: "MC",
-            stroke: Stroke::new(Dash::Long, 2, 70),
-            ends: vec![m.lower, m.upper],
+            short: "Monte Carlo",
+            stroke: Stroke::of(Series::MonteCarlo, 2),
+            lo: Some(m.lower),
+            hi: Some(m.upper),
         });
     }
     if let Some(pp) = results
@@ -113,22 +123,17 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         .as_ref()
         .and_then(|pr| pr.parameters.iter().find(|q| q.name == p.name))
     {
-        let mut ends = Vec::new();
-        if pp.lower_found {
-            ends.push(pp.lower);
-        }
-        if pp.upper_found {
-            ends.push(pp.upper);
-        }
         markers.push(Marker {
             label: "profile interval".into(),
-            short: "prof",
-            stroke: Stroke::new(Dash::Solid, 1, 0),
-            ends,
+            short: "profile",
+            stroke: Stroke::of(Series::Profile, 2),
+            lo: pp.lower_found.then_some(pp.lower),
+            hi: pp.upper_found.then_some(pp.upper),
         });
     }
     for m in &mut markers {
-        m.ends.retain(|v| v.is_finite());
+        m.lo = m.lo.filter(|v| v.is_finite());
+        m.hi = m.hi.filter(|v| v.is_finite());
     }
 
     // The frame: the central 99 % of the estimates (a few runaway replicates
@@ -140,7 +145,7 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
     let Some(xr) = svg::extent(
         [lo, hi]
             .into_iter()
-            .chain(markers.iter().flat_map(|m| m.ends.iter().copied())),
+            .chain(markers.iter().flat_map(|m| m.ends().collect::<Vec<_>>())),
     ) else {
         return Ok(None);
     };
@@ -181,10 +186,13 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
     let file = format!("hist_{stem}.svg");
     let name = p.name.as_str();
 
-    let text = svg::render(&file, (680 + svg::LEGEND_WIDTH, 500), |root| {
-        let (plot, side) = root.split_horizontally(680);
+    let strip_h = svg::strip_height(markers.len());
+    let legend_h = svg::legend_height(3 + markers.len());
+    let text = svg::render(&file, (680, 380 + strip_h + legend_h), |root| {
+        let (plots, side) = root.split_vertically(380 + strip_h);
+        let (plot, strip) = plots.split_vertically(380);
         let title = format!("Resampled estimates of {name}");
-        let mut c = svg::chart(&plot, Some(&title), xr, (0.0, ymax), name, "density")?;
+        let mut c = svg::chart(&plot, Some(&title), xr, (0.0, ymax), "", "density")?;
         if let Some(d) = &dens_b {
             let boxes: Vec<[f64; 4]> = d
                 .iter()
@@ -193,7 +201,7 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
                 .map(|(i, h)| [lo + w * i as f64, 0.0, lo + w * (i + 1) as f64, *h])
                 .collect();
             let label = format!("bootstrap ({} replicates)", boot.as_ref().map_or(0, Vec::len));
-            c.boxes(&boxes, 205, Some(&label))?;
+            c.boxes(&boxes, palette::tint(palette::SKY_BLUE, 0.45), Some(&label))?;
         }
         if let Some(d) = &dens_m {
             let mut step = vec![(lo, 0.0)];
@@ -203,24 +211,32 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
             }
             step.push((hi, 0.0));
             let label = format!("Monte Carlo ({} trials)", mc.as_ref().map_or(0, Vec::len));
-            c.lines(&[step], Stroke::new(Dash::Dashed, 1, 0), Some(&label))?;
+            c.lines(
+                &[step],
+                Stroke::new(Dash::Dashed, 1, palette::ORANGE),
+                Some(&label),
+            )?;
         }
         if !normal.is_empty() {
             c.lines(
                 std::slice::from_ref(&normal),
-                Stroke::new(Dash::Solid, 2, 0),
+                Stroke::new(Dash::Solid, 2, palette::BLACK),
                 Some("analytic normal"),
             )?;
         }
-        for (row, m) in markers.iter().enumerate() {
-            let segs: Vec<Vec<(f64, f64)>> =
-                m.ends.iter().map(|&x| vec![(x, 0.0), (x, ymax * 0.86)]).collect();
-            c.lines(&segs, m.stroke, Some(&m.label))?;
-            for &x in &m.ends {
-                let y = ymax * (0.975 - 0.028 * row as f64);
-                c.text(m.short, (x, y), 10, Pos::new(HPos::Center, VPos::Center))?;
-            }
+        let bars: Vec<svg::Bar> = markers
+            .iter()
+            .map(|m| svg::Bar {
+                label: m.short.to_string(),
+                stroke: m.stroke,
+                lo: m.lo,
+                hi: m.hi,
+            })
+            .collect();
+        for m in &markers {
+            c.legend.push((m.label.clone(), svg::Key::Line(m.stroke)));
         }
+        svg::interval_strip(&strip, xr, &bars, Some(p.value), name)?;
         svg::legend(&side, &c.legend)?;
         Ok(())
     })?;
@@ -232,18 +248,19 @@ pub(crate) fn figure(results: &AuditResults, j: usize, stem: &str) -> Result<Opt
         String::new()
     };
     if let Some(b) = &boot {
-        parts.push(format!("{} bootstrap replicates (grey bars)", b.len()));
+        parts.push(format!("{} bootstrap replicates (light blue bars)", b.len()));
     }
     if let Some(m) = &mc {
-        parts.push(format!("{} Monte Carlo trials (dashed outline)", m.len()));
+        parts.push(format!("{} Monte Carlo trials (dashed orange outline)", m.len()));
     }
     Ok(Some(Figure {
         file,
         title: format!("Resampled estimates of {name}"),
         caption: format!(
-            "Estimates of {name} from {} as densities{}. Vertical lines mark the ends of every interval \
-             at the {} level: analytic value \u{b1} {}\u{b7}u, bootstrap percentile and BCa, Monte Carlo \
-             and profile, labelled at the top.{beyond}",
+            "Estimates of {name} from {} as densities{}. The strip beneath draws every interval at the {} \
+             level as a horizontal bar, one row per type: analytic value \u{b1} {}\u{b7}u, bootstrap \
+             percentile and BCa, Monte Carlo and profile (an end not found runs dotted to the frame); the \
+             thin vertical line is the estimate.{beyond}",
             parts.join(" and "),
             if se.is_some() {
                 ", with the normal density of the analytic value and standard error (solid curve)"

@@ -5,15 +5,18 @@
 //! |---|---|
 //! | `fit.svg` | data with error bars and the fitted curve, normalised residuals below (several independent variables: observed against fitted, residuals against fitted) |
 //! | `residuals_qq.svg` | normal Q-Q plot of the normalised residuals (Hazen plotting positions) |
-//! | `residuals_x.svg` | normalised residuals against each independent variable |
-//! | `hist_<p>.svg` | bootstrap and Monte Carlo estimates of one parameter, the analytic normal curve, every interval's ends |
+//! | `residuals_x.svg` | normalised residuals against the fitted values and the point order (one independent variable: the fit figure already has them against x), or against each independent variable |
+//! | `fit_<data set>.svg` | several `[[datasets]]`: one data set's points, error bars and fitted curve with its residuals below (as `fit.svg`, on its points alone) |
+//! | `hist_<p>.svg` | bootstrap and Monte Carlo estimates of one parameter, the analytic normal curve, and beneath it every interval as a labelled bar, one row per type |
 //! | `profile_<p>.svg` | chi-squared profile of one parameter, covariance parabola, threshold |
 //! | `contour_<p1>_<p2>.svg` | contour lines of one pair, covariance ellipses, bootstrap cloud |
 //! | `multistart.svg` | multi-start end points and the chi-squared and basin share of each minimum |
 //! | `correlation.svg` | correlation matrix of the base fit as a grey heat map with the values written in |
 //!
-//! Every figure is readable in greyscale: series differ by line style
-//! (solid, dashed, dotted, long dash) and marker shape, not by colour.
+//! Every figure takes its colours from [`palette`] (Okabe and Ito 2008,
+//! colour-blind safe) and is readable in greyscale too: series differ by
+//! line style (solid, dashed, dotted, long dash) and marker shape as well
+//! as by colour.
 //! A diagnostic that did not run simply has no figure.
 
 use crate::audit::AuditResults;
@@ -22,9 +25,11 @@ use crate::report::{Renderer, ReportError};
 
 mod contour;
 mod correlation;
+mod datasets;
 mod fit;
 mod histogram;
 mod multistart;
+pub mod palette;
 mod profile;
 mod residuals;
 pub mod svg;
@@ -70,6 +75,7 @@ pub fn build(results: &AuditResults) -> Result<Figures, ReportError> {
     let mut list = Vec::new();
     list.extend(fit::figure(results)?);
     list.extend(residuals::figures(results)?);
+    list.extend(datasets::figures(results)?);
     if let Some(red) = &results.reduction {
         for f in list
             .iter_mut()

@@ -4,6 +4,7 @@
 
 use plotters::style::text_anchor::{HPos, Pos, VPos};
 
+use super::palette::{self, grey};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -13,12 +14,12 @@ use crate::report::{format, ReportError};
 
 /// Markers of the minima, best first; the last one also marks every further minimum.
 pub(crate) const MINIMUM_MARKS: [Mark; 6] = [
-    Mark::new(Shape::Circle, 4, 0, true),
-    Mark::new(Shape::Triangle, 4, 80, false),
-    Mark::new(Shape::Square, 3, 110, true),
-    Mark::new(Shape::Diamond, 4, 0, false),
-    Mark::new(Shape::Cross, 4, 60, true),
-    Mark::new(Shape::Circle, 3, 150, false),
+    Mark::new(Shape::Circle, 4, palette::BLUE, true),
+    Mark::new(Shape::Triangle, 4, palette::VERMILLION, false),
+    Mark::new(Shape::Square, 3, palette::BLUISH_GREEN, true),
+    Mark::new(Shape::Diamond, 4, palette::REDDISH_PURPLE, false),
+    Mark::new(Shape::Cross, 4, palette::ORANGE, true),
+    Mark::new(Shape::Circle, 3, palette::SKY_BLUE, false),
 ];
 
 fn mark_of(k: usize) -> Mark {
@@ -106,8 +107,8 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     let kmax = MINIMUM_MARKS.len() - 1;
     let dots: Vec<(f64, f64)> = ms.minima.iter().map(|m| (m.chi2, m.fraction)).collect();
     let cr = svg::extent(dots.iter().map(|d| d.0).chain([ms.base_chi2])).unwrap_or((0.0, 1.0));
-    let text = svg::render("multistart.svg", (860 + svg::LEGEND_WIDTH, 500), |root| {
-        let (plots, side) = root.split_horizontally(860);
+    let text = svg::render("multistart.svg", (860, 500 + svg::LEGEND_HEIGHT), |root| {
+        let (plots, side) = root.split_vertically(500);
         let (left, right) = plots.split_horizontally(500);
         let mut c = svg::chart(&left, Some("Where the starts ended"), xr, yr, &name_a, &name_b)?;
         let failed: Vec<(f64, f64)> = ends
@@ -117,7 +118,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             .collect();
         c.points(
             &failed,
-            Mark::new(Shape::Cross, 3, 170, false),
+            Mark::new(Shape::Cross, 3, grey(170), false),
             Some("degenerate end (no minimum)"),
         )?;
         let first = c.legend.len();
@@ -148,7 +149,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         c.legend[first..].reverse();
         c.points(
             &[base],
-            Mark::new(Shape::Diamond, 7, 0, false),
+            Mark::new(Shape::Diamond, 7, grey(0), false),
             Some("fit from the study's start"),
         )?;
         svg::legend(&side, &c.legend)?;
@@ -163,7 +164,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         )?;
         d.lines(
             &[vec![(ms.base_chi2, 0.0), (ms.base_chi2, 1.0)]],
-            Stroke::new(Dash::Dotted, 1, 0),
+            Stroke::new(Dash::Dotted, 1, grey(0)),
             None,
         )?;
         d.text(
@@ -175,7 +176,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
         for (k, dot) in dots.iter().enumerate() {
             d.lines(
                 &[vec![(dot.0, 0.0), *dot]],
-                Stroke::new(Dash::Solid, 1, 150),
+                Stroke::new(Dash::Solid, 1, grey(150)),
                 None,
             )?;
             d.points(&[*dot], mark_of(k), None)?;

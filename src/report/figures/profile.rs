@@ -1,6 +1,7 @@
 //! `profile_<p>.svg`: the chi-squared profile of one parameter with the
 //! covariance parabola and the threshold of the profile interval.
 
+use super::palette::{self, grey, Series};
 use super::svg::{self, Dash, Mark, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
@@ -72,20 +73,20 @@ pub(crate) fn figure(
             format::percent(profile.level, 4)
         )
     };
-    let text = svg::render(&file, (680 + svg::LEGEND_WIDTH, 500), |root| {
-        let (plot, side) = root.split_horizontally(680);
+    let text = svg::render(&file, (680, 500 + svg::LEGEND_HEIGHT), |root| {
+        let (plot, side) = root.split_vertically(500);
         let title = format!("Chi-squared profile of {name}");
         let y_desc = "\u{394}\u{3c7}\u{b2} (profiled minus minimum)";
         let mut c = svg::chart(&plot, Some(&title), xr, yr, name, y_desc)?;
-        let parabola = Stroke::new(Dash::Dashed, 2, 100);
+        let parabola = Stroke::of(Series::Analytic, 2);
         c.lines(std::slice::from_ref(&para), parabola, Some("covariance parabola"))?;
         c.lines(
             std::slice::from_ref(&prof),
-            Stroke::new(Dash::Solid, 2, 0),
+            Stroke::of(Series::Curve, 2),
             Some("profile"),
         )?;
-        c.points(&prof, Mark::new(Shape::Circle, 2, 0, true), None)?;
-        let threshold = Stroke::new(Dash::Dotted, 2, 0);
+        c.points(&prof, Mark::of(Series::Curve, 2, true), None)?;
+        let threshold = Stroke::new(Dash::Dotted, 2, grey(0));
         c.lines(&[vec![(xr.0, t), (xr.1, t)]], threshold, Some(&threshold_label))?;
         let mut ends = Vec::new();
         if p.lower_found {
@@ -94,12 +95,12 @@ pub(crate) fn figure(
         if p.upper_found {
             ends.push((p.upper, t));
         }
-        let end_mark = Mark::new(Shape::Triangle, 5, 0, false);
+        let end_mark = Mark::new(Shape::Triangle, 5, palette::REDDISH_PURPLE, true);
         c.points(&ends, end_mark, Some("profile interval ends"))?;
-        let estimate = Mark::new(Shape::Diamond, 4, 0, true);
+        let estimate = Mark::new(Shape::Diamond, 4, grey(0), true);
         c.points(&[(p.estimate, 0.0)], estimate, Some("estimate"))?;
         if let Some(b) = below {
-            let mark = Mark::new(Shape::Square, 4, 0, false);
+            let mark = Mark::new(Shape::Square, 4, grey(0), false);
             c.points(&[b], mark, Some("point below the base fit"))?;
         }
         svg::legend(&side, &c.legend)?;

@@ -4,7 +4,8 @@
 use statrs::distribution::{ContinuousCDF, Normal};
 
 use super::fit::{plotted_residuals, residual_label, residual_words};
-use super::svg::{self, Dash, Mark, Shape, Stroke};
+use super::palette::{grey, Series};
+use super::svg::{self, Dash, Mark, Scale, Shape, Stroke};
 use super::Figure;
 use crate::audit::AuditResults;
 use crate::report::ReportError;
@@ -60,8 +61,8 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
     if pts.len() >= 3 {
         let lim = svg::extent(pts.iter().flat_map(|p| [p.0, p.1])).unwrap_or((-3.0, 3.0));
         let y_label = format!("ordered {}", residual_label(results));
-        let text = svg::render("residuals_qq.svg", (560 + svg::LEGEND_WIDTH, 520), |root| {
-            let (plot, side) = root.split_horizontally(560);
+        let text = svg::render("residuals_qq.svg", (560, 520 + svg::LEGEND_HEIGHT), |root| {
+            let (plot, side) = root.split_vertically(520);
             let mut c = svg::chart(
                 &plot,
                 Some("Normal Q-Q plot of the residuals"),
@@ -72,10 +73,14 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
             )?;
             c.lines(
                 &[vec![(lim.0, lim.0), (lim.1, lim.1)]],
-                Stroke::new(Dash::Dashed, 1, 0),
+                Stroke::of(Series::Analytic, 1),
                 Some("unit normal (residual = quantile)"),
             )?;
-            c.points(&pts, Mark::new(Shape::Circle, 3, 0, false), Some("residuals"))?;
+            c.points(
+                &pts,
+                Mark::new(Shape::Circle, 3, grey(0), false),
+                Some("residuals"),
+            )?;
             svg::legend(&side, &c.legend)?;
             Ok(())
         })?;
@@ -121,41 +126,95 @@ pub(crate) fn figures(results: &AuditResults) -> Result<Vec<Figure>, ReportError
         return Ok(out);
     }
     let rr = svg::extent(res.iter().copied().chain([0.0])).unwrap_or((-1.0, 1.0));
-    let height = 80 + 240 * k as u32;
+    // One independent variable: fit.svg already draws the residuals against
+    // it, so this figure shows what that panel does not, the residuals
+    // against the fitted values and against the order of the points in the
+    // data file (drift during a run). Several: one panel per variable.
+    let fitted_name = format!("fitted {}", data.y_name);
+    let order: Vec<f64> = (1..=res.len()).map(|i| i as f64).collect();
+    let columns: Vec<(&[f64], &str, Scale)> = if k == 1 {
+        vec![
+            (results.fit.fitted.as_slice(), fitted_name.as_str(), Scale::Linear),
+            (
+                order.as_slice(),
+                "point number (order in the data file)",
+                Scale::Linear,
+            ),
+        ]
+    } else {
+        data.x
+            .iter()
+            .enumerate()
+            .map(|(v, col)| {
+                let name = data.x_names.get(v).map(String::as_str).unwrap_or("x");
+                (
+                    col.as_slice(),
+                    name,
+                    Scale::choose(results.report.x_axis, col.iter().copied()),
+                )
+            })
+            .collect()
+    };
+    let title = if k == 1 {
+        "Residuals against fitted values and point order"
+    } else {
+        "Residuals against the independent variables"
+    };
+    let height = 80 + 240 * columns.len() as u32;
     let text = svg::render("residuals_x.svg", (760, height), |root| {
-        let panels = root.split_evenly((k, 1));
+        let panels = root.split_evenly((columns.len(), 1));
         for (v, panel) in panels.iter().enumerate() {
-            let col = &data.x[v];
-            let name = data.x_names.get(v).map(String::as_str).unwrap_or("x");
-            let Some(xr) = svg::extent(col.iter().copied()) else {
+            let (col, name, sx) = columns[v];
+            let Some(xr) = sx.extent(col.iter().copied()) else {
                 continue;
             };
-            let caption = (v == 0).then_some("Residuals against the independent variables");
-            let mut c = svg::chart(panel, caption, xr, rr, name, residual_label(results))?;
+            let caption = (v == 0).then_some(title);
+            let mut c = svg::chart_scaled(
+                panel,
+                caption,
+                xr,
+                rr,
+                name,
+                residual_label(results),
+                (sx, Scale::Linear),
+            )?;
+            let (xlo, xhi) = match sx {
+                Scale::Linear => xr,
+                Scale::Log => (10f64.powf(xr.0), 10f64.powf(xr.1)),
+            };
             c.lines(
-                &[vec![(xr.0, 0.0), (xr.1, 0.0)]],
-                Stroke::new(Dash::Solid, 1, 110),
+                &[vec![(xlo, 0.0), (xhi, 0.0)]],
+                Stroke::new(Dash::Solid, 1, grey(110)),
                 None,
             )?;
             for band in [-2.0, 2.0] {
                 c.lines(
-                    &[vec![(xr.0, band), (xr.1, band)]],
-                    Stroke::new(Dash::Dotted, 1, 90),
+                    &[vec![(xlo, band), (xhi, band)]],
+                    Stroke::new(Dash::Dotted, 1, grey(90)),
                     None,
                 )?;
             }
             let pts: Vec<(f64, f64)> = col.iter().copied().zip(res.iter().copied()).collect();
-            c.points(&pts, Mark::new(Shape::Circle, 3, 0, true), None)?;
+            c.points(&pts, Mark::new(Shape::Circle, 3, grey(0), true), None)?;
         }
         Ok(())
     })?;
-    let names = data.x_names.join(", ");
+    let names = if k == 1 {
+        format!(
+            "the fitted {} (top) and the point number in the data file (bottom; the residuals against {} \
+             are in the fit figure)",
+            data.y_name,
+            data.x_names.join(", ")
+        )
+    } else {
+        data.x_names.join(", ")
+    };
     out.push(Figure {
         file: "residuals_x.svg".into(),
-        title: "Residuals against the independent variables".into(),
+        title: title.into(),
         caption: format!(
             "{} against {names}; dotted lines at \u{b1}2. A trend or a funnel shape points to a \
-             model or weighting problem.",
+             model or weighting problem; a trend along the point number to drift during the run.",
             capitalise(&residual_words(results))
         ),
         svg: text,

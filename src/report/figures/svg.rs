@@ -1,5 +1,6 @@
-//! Drawing helpers on top of plotters' SVG backend: greyscale line styles
-//! (solid, dashed, dotted, long dash), marker shapes, axis set-up and the
+//! Drawing helpers on top of plotters' SVG backend: line styles (solid,
+//! dashed, dotted, long dash) and marker shapes in the colours of
+//! [`super::palette`], axis set-up and the
 //! conversion of a finished drawing into a self-contained SVG string.
 //!
 //! Text is written as SVG `<text>` elements in the generic `sans-serif`
@@ -14,6 +15,7 @@ use plotters::prelude::*;
 use plotters::style::text_anchor::{HPos, Pos, VPos};
 use plotters_backend::{BackendCoord, DrawingErrorKind};
 
+use super::palette::{self, Ink, Series};
 use crate::report::format;
 use crate::report::ReportError;
 
@@ -37,7 +39,7 @@ pub(crate) fn grey(level: u8) -> RGBColor {
 
 /// Dash pattern of a line.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub(crate) enum Dash {
+pub enum Dash {
     /// Continuous.
     Solid,
     /// 7 px dashes, 4 px gaps.
@@ -60,25 +62,31 @@ impl Dash {
     }
 }
 
-/// How a line is drawn: dash pattern, width in pixels, grey level.
+/// How a line is drawn: dash pattern, width in pixels, colour.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Stroke {
     /// Dash pattern.
     pub dash: Dash,
     /// Width in pixels.
     pub width: u32,
-    /// Grey level.
-    pub grey: u8,
+    /// Colour.
+    pub ink: Ink,
 }
 
 impl Stroke {
     /// A stroke.
-    pub const fn new(dash: Dash, width: u32, grey: u8) -> Stroke {
-        Stroke { dash, width, grey }
+    pub const fn new(dash: Dash, width: u32, ink: Ink) -> Stroke {
+        Stroke { dash, width, ink }
+    }
+
+    /// The line style of a palette series at `width` pixels.
+    pub const fn of(series: Series, width: u32) -> Stroke {
+        let s = palette::series(series);
+        Stroke::new(s.dash, width, s.ink)
     }
 
     fn style(self) -> ShapeStyle {
-        grey(self.grey).stroke_width(self.width)
+        self.ink.rgb().stroke_width(self.width)
     }
 
     fn element<C: Clone>(self, points: Vec<C>) -> DashedPathElement<std::vec::IntoIter<C>, i32> {
@@ -89,7 +97,7 @@ impl Stroke {
 
 /// Marker shape.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub(crate) enum Shape {
+pub enum Shape {
     /// Circle.
     Circle,
     /// Square.
@@ -102,28 +110,34 @@ pub(crate) enum Shape {
     Diamond,
 }
 
-/// A marker: shape, radius in pixels, grey level, filled or hollow.
+/// A marker: shape, radius in pixels, colour, filled or hollow.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Mark {
     /// Shape.
     pub shape: Shape,
     /// Radius in pixels.
     pub size: i32,
-    /// Grey level.
-    pub grey: u8,
+    /// Colour.
+    pub ink: Ink,
     /// Filled (true) or outlined.
     pub filled: bool,
 }
 
 impl Mark {
     /// A marker.
-    pub const fn new(shape: Shape, size: i32, grey: u8, filled: bool) -> Mark {
+    pub const fn new(shape: Shape, size: i32, ink: Ink, filled: bool) -> Mark {
         Mark {
             shape,
             size,
-            grey,
+            ink,
             filled,
         }
+    }
+
+    /// The marker of a palette series.
+    pub const fn of(series: Series, size: i32, filled: bool) -> Mark {
+        let s = palette::series(series);
+        Mark::new(s.shape, size, s.ink, filled)
     }
 
     /// The marker as an element at `c` (data or pixel coordinates).
@@ -158,7 +172,7 @@ impl<C, DB: DrawingBackend> Drawable<DB> for MarkerElement<C> {
         };
         let m = self.mark;
         let s = m.size.max(1);
-        let colour = grey(m.grey);
+        let colour = m.ink.rgb();
         let style = if m.filled {
             colour.filled()
         } else {
@@ -287,9 +301,75 @@ pub(crate) enum Key {
     Line(Stroke),
     /// A marker.
     Mark(Mark),
-    /// A filled box of this grey.
-    Fill(u8),
+    /// A filled box of this colour.
+    Fill(Ink),
 }
+
+/// Scale of a chart axis.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Scale {
+    /// Linear.
+    Linear,
+    /// Base-10 logarithmic: the chart's coordinate is `log10(v)`.
+    Log,
+}
+
+impl Scale {
+    /// The chart coordinate of a data value: itself, or its base-10
+    /// logarithm (NaN, so not drawn, at or below zero).
+    pub fn to_axis(self, v: f64) -> f64 {
+        match self {
+            Scale::Linear => v,
+            Scale::Log if v > 0.0 => v.log10(),
+            Scale::Log => f64::NAN,
+        }
+    }
+
+    /// The scale a `[report]` setting asks for on these values: `auto`
+    /// chooses logarithmic when every finite value is positive and the
+    /// largest exceeds the smallest by more than [`AUTO_LOG_RATIO`].
+    pub fn choose(setting: crate::study::AxisScale, values: impl IntoIterator<Item = f64>) -> Scale {
+        use crate::study::AxisScale;
+        match setting {
+            AxisScale::Linear => Scale::Linear,
+            AxisScale::Log => Scale::Log,
+            AxisScale::Auto => {
+                let (mut lo, mut hi, mut n) = (f64::INFINITY, 0.0f64, 0usize);
+                for v in values.into_iter().filter(|v| v.is_finite()) {
+                    if v <= 0.0 {
+                        return Scale::Linear;
+                    }
+                    lo = lo.min(v);
+                    hi = hi.max(v);
+                    n += 1;
+                }
+                if n >= 2 && hi / lo > AUTO_LOG_RATIO {
+                    Scale::Log
+                } else {
+                    Scale::Linear
+                }
+            }
+        }
+    }
+
+    /// The axis extent of the values on this scale (chart coordinates),
+    /// widened by 5 % on each side.
+    pub fn extent(self, values: impl IntoIterator<Item = f64>) -> Option<(f64, f64)> {
+        extent(values.into_iter().map(|v| self.to_axis(v)))
+    }
+
+    /// Words for a caption: empty for linear, " (logarithmic x axis)".
+    pub fn words(self, axis: &str) -> String {
+        match self {
+            Scale::Linear => String::new(),
+            Scale::Log => format!(" (logarithmic {axis} axis)"),
+        }
+    }
+}
+
+/// Ratio of the largest to the smallest positive value above which an
+/// `auto` axis is drawn logarithmic: more than two decades.
+pub const AUTO_LOG_RATIO: f64 = 100.0;
 
 /// A chart together with the legend entries of what was drawn on it.
 pub(crate) struct Plot<'a, 'b> {
@@ -298,11 +378,20 @@ pub(crate) struct Plot<'a, 'b> {
     /// Legend entries in drawing order.
     pub legend: Vec<(String, Key)>,
     /// The frame `(x range, y range)`: lines are clipped to it, markers
-    /// outside it are not drawn.
+    /// outside it are not drawn. In chart coordinates (logarithms on a
+    /// log axis).
     pub frame: ((f64, f64), (f64, f64)),
+    /// Scales of the x and y axes; data coordinates given to the drawing
+    /// methods are mapped through them.
+    pub scales: (Scale, Scale),
 }
 
 impl<'a, 'b: 'a> Plot<'a, 'b> {
+    /// A data point in chart coordinates.
+    pub fn map(&self, p: (f64, f64)) -> (f64, f64) {
+        (self.scales.0.to_axis(p.0), self.scales.1.to_axis(p.1))
+    }
+
     /// Draws polylines (non-finite points break them) with one legend entry.
     pub fn lines(
         &mut self,
@@ -313,7 +402,8 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
         let (fx, fy) = self.frame;
         let segs: Vec<Vec<(f64, f64)>> = polylines
             .iter()
-            .flat_map(|l| finite_runs(l))
+            .map(|l| l.iter().map(|&p| self.map(p)).collect::<Vec<_>>())
+            .flat_map(|l| finite_runs(&l))
             .flat_map(|l| clip(&l, fx, fy))
             .filter(|s| s.len() >= 2)
             .collect();
@@ -330,7 +420,11 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
 
     /// Draws markers at the finite points, with one legend entry.
     pub fn points(&mut self, pts: &[(f64, f64)], mark: Mark, label: Option<&str>) -> DrawResult {
-        let pts: Vec<(f64, f64)> = pts.iter().copied().filter(|&p| inside(p, self.frame)).collect();
+        let pts: Vec<(f64, f64)> = pts
+            .iter()
+            .map(|&p| self.map(p))
+            .filter(|&p| inside(p, self.frame))
+            .collect();
         if pts.is_empty() {
             return Ok(());
         }
@@ -342,25 +436,41 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
     }
 
     /// Vertical error bars from `y - e` to `y + e` with 3 px caps.
-    pub fn error_bars(&mut self, bars: &[(f64, f64, f64)], stroke_grey: u8) -> DrawResult {
-        let style = grey(stroke_grey).stroke_width(1);
+    pub fn error_bars(&mut self, bars: &[(f64, f64, f64)], ink: Ink) -> DrawResult {
+        let style = ink.rgb().stroke_width(1);
         let ok = |v: &&(f64, f64, f64)| v.0.is_finite() && v.1.is_finite() && v.2.is_finite() && v.2 > 0.0;
+        let bottom = self.frame.1 .0;
+        // (x, lower end, upper end) in chart coordinates; a lower end at or
+        // below zero on a log axis runs to the frame's bottom, uncapped.
+        let ends: Vec<(f64, f64, f64, bool)> = bars
+            .iter()
+            .filter(ok)
+            .map(|&(x, y, e)| {
+                let (cx, lo) = self.map((x, y - e));
+                let (_, hi) = self.map((x, y + e));
+                (cx, if lo.is_finite() { lo } else { bottom }, hi, lo.is_finite())
+            })
+            .filter(|v| v.0.is_finite() && v.2.is_finite())
+            .collect();
         self.chart.draw_series(
-            bars.iter()
-                .filter(ok)
-                .map(|&(x, y, e)| PathElement::new(vec![(x, y - e), (x, y + e)], style)),
+            ends.iter()
+                .map(|&(x, lo, hi, _)| PathElement::new(vec![(x, lo), (x, hi)], style)),
         )?;
-        for sign in [-1.0, 1.0] {
-            self.chart.draw_series(bars.iter().filter(ok).map(|&(x, y, e)| {
-                EmptyElement::at((x, y + sign * e)) + PathElement::new(vec![(-3, 0), (3, 0)], style)
+        self.chart
+            .draw_series(ends.iter().flat_map(|&(x, lo, hi, capped)| {
+                let mut caps =
+                    vec![EmptyElement::at((x, hi)) + PathElement::new(vec![(-3, 0), (3, 0)], style)];
+                if capped {
+                    caps.push(EmptyElement::at((x, lo)) + PathElement::new(vec![(-3, 0), (3, 0)], style));
+                }
+                caps
             }))?;
-        }
         Ok(())
     }
 
     /// Filled boxes `[x0, y0, x1, y1]` in data coordinates, with one legend entry.
-    pub fn boxes(&mut self, boxes: &[[f64; 4]], fill: u8, label: Option<&str>) -> DrawResult {
-        let style = grey(fill).filled();
+    pub fn boxes(&mut self, boxes: &[[f64; 4]], fill: Ink, label: Option<&str>) -> DrawResult {
+        let style = fill.rgb().filled();
         self.chart.draw_series(
             boxes
                 .iter()
@@ -375,6 +485,7 @@ impl<'a, 'b: 'a> Plot<'a, 'b> {
 
     /// Text at a data position (escaped by the backend).
     pub fn text(&mut self, s: &str, at: (f64, f64), size: u32, pos: Pos) -> DrawResult {
+        let at = self.map(at);
         if !(at.0.is_finite() && at.1.is_finite()) {
             return Ok(());
         }
@@ -416,40 +527,65 @@ pub(crate) fn wrap(label: &str, width: usize) -> Vec<String> {
     lines
 }
 
-/// Draws a legend at the top of `area` (a side column beside the charts).
+/// Draws a legend in `area`, a strip beneath the charts: the entries in a
+/// grid of up to three columns (row by row, in drawing order), each label
+/// wrapped to its column, inside a thin frame.
 pub(crate) fn legend(area: &Area, entries: &[(String, Key)]) -> DrawResult {
     if entries.is_empty() {
         return Ok(());
     }
     let (w, _) = area.dim_in_pixel();
-    let chars = ((w as f64 - 52.0) / 6.5).max(12.0) as usize;
+    let longest = entries.iter().map(|(l, _)| l.chars().count()).max().unwrap_or(0);
+    let cols = legend_columns(entries.len(), longest, w);
+    let col_w = (w as i32 - 24) / cols as i32;
+    let chars = ((col_w as f64 - 44.0) / 6.5).max(12.0) as usize;
     let style = TextStyle::from((FONT, 12).into_font())
         .color(&BLACK)
         .pos(Pos::new(HPos::Left, VPos::Center));
-    let mut y = 46;
-    let top = y - 14;
-    for (label, key) in entries {
-        let (x0, x1) = (12, 36);
-        match *key {
-            Key::Line(s) => area.draw(&s.element(vec![(x0, y), (x1, y)]))?,
-            Key::Mark(m) => area.draw(&m.at(((x0 + x1) / 2, y)))?,
-            Key::Fill(g) => area.draw(&Rectangle::new([(x0, y - 6), (x1, y + 6)], grey(g).filled()))?,
+    let top = 8;
+    let mut y = top + 14;
+    for row in entries.chunks(cols) {
+        let mut lines_in_row = 1;
+        for (c, (label, key)) in row.iter().enumerate() {
+            let x0 = 16 + c as i32 * col_w;
+            let x1 = x0 + 24;
+            match *key {
+                Key::Line(s) => area.draw(&s.element(vec![(x0, y), (x1, y)]))?,
+                Key::Mark(m) => area.draw(&m.at(((x0 + x1) / 2, y)))?,
+                Key::Fill(g) => area.draw(&Rectangle::new([(x0, y - 6), (x1, y + 6)], g.rgb().filled()))?,
+            }
+            let lines = wrap(label, chars);
+            lines_in_row = lines_in_row.max(lines.len());
+            for (i, line) in lines.into_iter().enumerate() {
+                area.draw(&Text::new(line, (x1 + 8, y + 15 * i as i32), style.clone()))?;
+            }
         }
-        for line in wrap(label, chars) {
-            area.draw(&Text::new(line, (x1 + 8, y), style.clone()))?;
-            y += 16;
-        }
-        y += 4;
+        y += 15 * lines_in_row as i32 + 5;
     }
     area.draw(&Rectangle::new(
-        [(4, top), (w as i32 - 6, y - 8)],
-        grey(150).stroke_width(1),
+        [(8, top), (w as i32 - 8, y - 8)],
+        grey(190).stroke_width(1),
     ))?;
     Ok(())
 }
 
-/// Width of the legend column.
-pub(crate) const LEGEND_WIDTH: u32 = 240;
+/// Columns of a legend of `n` entries whose longest label has `longest`
+/// characters, on a strip `width` pixels wide: as many as three while each
+/// label still fits its column on one line (12 px text is about 6.5 px a
+/// character), at least one.
+pub(crate) fn legend_columns(n: usize, longest: usize, width: u32) -> usize {
+    let need = 44.0 + 6.5 * longest as f64;
+    let fit = ((width as f64 - 24.0) / need).floor().max(1.0) as usize;
+    n.clamp(1, fit.min(3))
+}
+
+/// Height reserved beneath the charts for the legend.
+pub(crate) const LEGEND_HEIGHT: u32 = 92;
+
+/// Height a legend of `n` entries needs in two columns (one line each).
+pub(crate) const fn legend_height(n: usize) -> u32 {
+    30 + 20 * n.div_ceil(2) as u32
+}
 
 /// Axis extent of the finite values, widened by 5 % on each side; a single
 /// value gets a window around it. None when no value is finite.
@@ -470,16 +606,120 @@ pub(crate) fn extent(values: impl IntoIterator<Item = f64>) -> Option<(f64, f64)
 /// `[lo, hi]` widened by `frac` of its width; a zero width gets a window.
 pub(crate) fn pad(lo: f64, hi: f64, frac: f64) -> (f64, f64) {
     let w = hi - lo;
-    if w > 0.0 && w.is_finite() {
+    // Values that agree to a part in 1e7 are drawn as one value: their
+    // differences are rounding noise, and an axis resolving them would need
+    // ticks of a dozen digits.
+    let agree = w <= 1e-7 * lo.abs().max(hi.abs());
+    if w > 0.0 && w.is_finite() && !agree {
         (lo - frac * w, hi + frac * w)
     } else {
-        let h = if lo != 0.0 { lo.abs() * 0.05 } else { 1.0 };
-        (lo - h, hi + h)
+        let mid = 0.5 * (lo + hi);
+        let h = if mid != 0.0 { mid.abs() * 0.05 } else { 1.0 };
+        (mid - h, mid + h)
     }
 }
 
+/// One row of an interval strip: a horizontal bar from `lo` to `hi` (an
+/// absent end runs to the frame edge, dotted) labelled at the left.
+#[derive(Debug, Clone)]
+pub(crate) struct Bar {
+    /// Short label written left of the frame.
+    pub label: String,
+    /// The bar's line style (drawn 3 px wide).
+    pub stroke: Stroke,
+    /// Lower end, when found.
+    pub lo: Option<f64>,
+    /// Upper end, when found.
+    pub hi: Option<f64>,
+}
+
+/// Pixel height of an interval strip of `rows` rows.
+pub(crate) const fn strip_height(rows: usize) -> u32 {
+    58 + 22 * rows as u32
+}
+
+/// Draws intervals as labelled horizontal bars, one row each (first row on
+/// top), on `area` under a chart with the same x range, so that interval
+/// ends never crowd the chart above; a vertical line marks `centre`. The
+/// x axis carries the tick labels and `x_desc`.
+pub(crate) fn interval_strip(
+    area: &Area,
+    x: (f64, f64),
+    rows: &[Bar],
+    centre: Option<f64>,
+    x_desc: &str,
+) -> DrawResult {
+    let n = rows.len().max(1) as f64;
+    let mut builder = ChartBuilder::on(area);
+    builder
+        .margin_left(12)
+        .margin_right(12)
+        .x_label_area_size(44)
+        .y_label_area_size(68);
+    let mut chart = builder.build_cartesian_2d(x.0..x.1, 0.0..n)?;
+    let xs = x.1 - x.0;
+    let fx = move |v: &f64| format::tick(*v, xs);
+    chart
+        .configure_mesh()
+        .disable_y_mesh()
+        .disable_y_axis()
+        .x_desc(x_desc)
+        .x_labels(7)
+        .x_label_formatter(&fx)
+        .bold_line_style(grey(235))
+        .light_line_style(grey(248))
+        .axis_style(grey(60))
+        .label_style((FONT, 12))
+        .axis_desc_style((FONT, 14))
+        .draw()?;
+    if let Some(c) = centre.filter(|c| c.is_finite() && *c >= x.0 && *c <= x.1) {
+        chart.draw_series(std::iter::once(PathElement::new(
+            vec![(c, 0.0), (c, n)],
+            grey(150).stroke_width(1),
+        )))?;
+    }
+    let label_style = TextStyle::from((FONT, 11).into_font())
+        .color(&BLACK)
+        .pos(Pos::new(HPos::Right, VPos::Center));
+    for (i, bar) in rows.iter().enumerate() {
+        let y = n - i as f64 - 0.5;
+        let clamp = |v: f64| v.clamp(x.0, x.1);
+        let lo = bar.lo.filter(|v| v.is_finite());
+        let hi = bar.hi.filter(|v| v.is_finite());
+        let thick = Stroke::new(bar.stroke.dash, 3, bar.stroke.ink);
+        let open = Stroke::new(Dash::Dotted, 2, bar.stroke.ink);
+        match (lo, hi) {
+            (Some(a), Some(b)) => {
+                chart.draw_series(std::iter::once(thick.element(vec![(clamp(a), y), (clamp(b), y)])))?;
+            }
+            (Some(a), None) => {
+                chart.draw_series(std::iter::once(open.element(vec![(clamp(a), y), (x.1, y)])))?;
+            }
+            (None, Some(b)) => {
+                chart.draw_series(std::iter::once(open.element(vec![(x.0, y), (clamp(b), y)])))?;
+            }
+            (None, None) => {}
+        }
+        let cap = bar.stroke.ink.rgb().stroke_width(2);
+        for v in [lo, hi].into_iter().flatten().filter(|v| *v >= x.0 && *v <= x.1) {
+            chart.draw_series(std::iter::once(PathElement::new(
+                vec![(v, y - 0.32), (v, y + 0.32)],
+                cap,
+            )))?;
+        }
+        let (px, py) = chart.backend_coord(&(x.0, y));
+        let (ox, oy) = area.get_base_pixel();
+        area.draw(&Text::new(
+            bar.label.clone(),
+            (px - ox - 6, py - oy),
+            label_style.clone(),
+        ))?;
+    }
+    Ok(())
+}
+
 /// Builds a chart on `area` with axis titles and tick labels formatted by
-/// [`format::tick`].
+/// [`format::tick`], both axes linear.
 pub(crate) fn chart<'a, 'b>(
     area: &'a Area<'b>,
     caption: Option<&str>,
@@ -488,6 +728,29 @@ pub(crate) fn chart<'a, 'b>(
     x_desc: &str,
     y_desc: &str,
 ) -> Result<Plot<'a, 'b>, Box<dyn std::error::Error>> {
+    chart_scaled(
+        area,
+        caption,
+        x,
+        y,
+        x_desc,
+        y_desc,
+        (Scale::Linear, Scale::Linear),
+    )
+}
+
+/// Builds a chart on `area` with the given axis scales; `x` and `y` are in
+/// chart coordinates ([`Scale::extent`]). A log axis labels its ticks
+/// with the values (`10^t`, [`format::log_tick`]).
+pub(crate) fn chart_scaled<'a, 'b>(
+    area: &'a Area<'b>,
+    caption: Option<&str>,
+    x: (f64, f64),
+    y: (f64, f64),
+    x_desc: &str,
+    y_desc: &str,
+    scales: (Scale, Scale),
+) -> Result<Plot<'a, 'b>, Box<dyn std::error::Error>> {
     let mut builder = ChartBuilder::on(area);
     builder.margin(12).x_label_area_size(44).y_label_area_size(68);
     if let Some(c) = caption {
@@ -495,8 +758,12 @@ pub(crate) fn chart<'a, 'b>(
     }
     let mut chart = builder.build_cartesian_2d(x.0..x.1, y.0..y.1)?;
     let (xs, ys) = (x.1 - x.0, y.1 - y.0);
-    let fx = move |v: &f64| format::tick(*v, xs);
-    let fy = move |v: &f64| format::tick(*v, ys);
+    let label = move |scale: Scale, v: f64, span: f64| match scale {
+        Scale::Linear => format::tick(v, span),
+        Scale::Log => format::log_tick(v),
+    };
+    let fx = move |v: &f64| label(scales.0, *v, xs);
+    let fy = move |v: &f64| label(scales.1, *v, ys);
     chart
         .configure_mesh()
         .x_desc(x_desc)
@@ -515,6 +782,7 @@ pub(crate) fn chart<'a, 'b>(
         chart,
         legend: Vec::new(),
         frame: (x, y),
+        scales,
     })
 }
 
@@ -575,6 +843,12 @@ mod tests {
         );
         assert_eq!(pad(1.0, 1.0, 0.05), (0.95, 1.05));
         assert_eq!(pad(0.0, 0.0, 0.05), (-1.0, 1.0));
+        // Values that agree to rounding noise (all starts at one minimum)
+        // get the window of a single value, not an axis of 1e-13 width
+        // whose ticks would need a dozen digits and overlap.
+        let (lo, hi) = pad(57.7, 57.7 + 1e-12, 0.05);
+        assert!((lo - 57.7 * 0.95).abs() < 1e-9 && (hi - 57.7 * 1.05).abs() < 1e-9);
+        assert_eq!(format::tick(57.7, hi - lo), "57.7");
         assert_eq!(extent([f64::NAN, 0.0, 10.0]), Some((-0.5, 10.5)));
         assert_eq!(extent([f64::NAN]), None);
         // Clipping to the unit square: a line crossing it twice leaves two pieces.
@@ -588,6 +862,31 @@ mod tests {
             ]
         );
         assert!(clip(&[(2.0, 2.0), (3.0, 3.0)], (0.0, 1.0), (0.0, 1.0)).is_empty());
+    }
+
+    #[test]
+    fn automatic_log_scale_beyond_two_decades() {
+        use crate::study::AxisScale;
+        // 0.1 to 100 spans three decades: logarithmic; 1 to 50 does not.
+        assert_eq!(Scale::choose(AxisScale::Auto, [0.1, 1.0, 100.0]), Scale::Log);
+        assert_eq!(Scale::choose(AxisScale::Auto, [1.0, 50.0]), Scale::Linear);
+        // A zero or negative value keeps it linear; the settings override.
+        assert_eq!(Scale::choose(AxisScale::Auto, [0.0, 1.0, 1000.0]), Scale::Linear);
+        assert_eq!(Scale::choose(AxisScale::Log, [1.0, 2.0]), Scale::Log);
+        assert_eq!(Scale::choose(AxisScale::Linear, [1e-3, 1e3]), Scale::Linear);
+        // log10 identities: 1000 -> 3, 0.01 -> -2; no logarithm of 0.
+        assert_eq!(Scale::Log.to_axis(1000.0), 3.0);
+        assert_eq!(Scale::Log.to_axis(0.01), -2.0);
+        assert!(Scale::Log.to_axis(0.0).is_nan());
+    }
+
+    #[test]
+    fn legend_columns_fit_their_labels() {
+        // 640 px: (640 - 24) / (44 + 6.5 * 28) = 2.7, so two columns.
+        assert_eq!(legend_columns(5, 28, 640), 2);
+        assert_eq!(legend_columns(5, 12, 680), 3);
+        assert_eq!(legend_columns(1, 12, 680), 1);
+        assert_eq!(legend_columns(4, 200, 680), 1);
     }
 
     #[test]

@@ -1,0 +1,317 @@
+//! Exact shards through the command line: `audit --shard K/N` parts merged
+//! by `fitaudit merge` give the single-machine results.json bit for bit
+//! (provenance aside), and parts that do not belong together are refused.
+//!
+//! The identity checked: every random draw comes from the stream of its
+//! replicate index and every item is computed on its own, so splitting the
+//! items and joining them in index order cannot change any number.
+
+use std::path::{Path, PathBuf};
+
+use assert_cmd::Command;
+use serde_json::Value;
+
+fn fitaudit() -> Command {
+    Command::cargo_bin("fitaudit").unwrap()
+}
+
+/// An invented decay study: 15 points of y = 2 + 5 exp(-x/3) with a fixed
+/// deterministic disturbance, sigma 0.05, small diagnostics settings.
+fn write_study(dir: &Path, name: &str, extra_audit: &str) -> PathBuf {
+    let mut csv = String::from("x,y,u\n");
+    for i in 0..15 {
+        let x = 0.5 * i as f64;
+        let y = 2.0 + 5.0 * (-x / 3.0).exp() + 0.05 * (7.3 * i as f64).sin();
+        csv.push_str(&format!("{x},{y},0.05\n"));
+    }
+    std::fs::write(dir.join(format!("{name}.csv")), csv).unwrap();
+    let study = format!(
+        "title = \"Decay {name}\"\n[data]\nfile = \"{name}.csv\"\nx = \"x\"\ny = \"y\"\nsigma = \"u\"\n\
+         [model]\nformula = \"c + A*exp(-x/tau)\"\n[parameters]\nc = {{ start = 1 }}\nA = {{ start = 4 }}\n\
+         tau = {{ start = 2, min = 0.01 }}\n[audit]\nseed = 11\n{extra_audit}\
+         bootstrap = {{ replicates = 45 }}\nmonte_carlo = {{ replicates = 37 }}\nprofile = {{ points = 9 }}\n\
+         contours = {{ grid = 7 }}\nmultistart = {{ starts = 6, max_starts = 12 }}\n"
+    );
+    let path = dir.join(format!("{name}.toml"));
+    std::fs::write(&path, study).unwrap();
+    path
+}
+
+/// results.json without its provenance block, as text (the pretty-printed
+/// provenance object is the only part that may differ).
+fn stripped(path: &Path) -> (String, Value) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let mut out = String::new();
+    let mut skipping = false;
+    for line in text.lines() {
+        if line.starts_with("  \"provenance\": {") {
+            skipping = true;
+        } else if skipping {
+            if line == "  }," {
+                skipping = false;
+            }
+        } else {
+            out.push_str(line);
+            out.push('\n');
+        }
+    }
+    let mut v: Value = serde_json::from_str(&text).unwrap();
+    v.as_object_mut().unwrap().remove("provenance");
+    (out, v)
+}
+
+fn shard(study: &Path, k: usize, n: usize, out: &Path, extra: &[&str]) {
+    let o = fitaudit()
+        .arg("audit")
+        .arg(study)
+        .args(["--quiet", "--shard", &format!("{k}/{n}"), "--out"])
+        .arg(out)
+        .args(extra)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+}
+
+fn merge(parts: &[PathBuf], out: &Path) -> std::process::Output {
+    fitaudit()
+        .arg("merge")
+        .args(parts)
+        .arg("--out")
+        .arg(out)
+        .arg("--quiet")
+        .output()
+        .unwrap()
+}
+
+#[test]
+fn merges_of_1_2_3_and_7_shards_equal_the_single_run_bit_for_bit() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = write_study(dir.path(), "decay", "");
+    let single = dir.path().join("single");
+    fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args(["--quiet", "--out"])
+        .arg(&single)
+        .assert()
+        .success();
+    let (want_text, want) = stripped(&single.join("results.json"));
+    // The record holds every diagnostic, so each one's slicing is checked.
+    for key in ["bootstrap", "monte_carlo", "profile", "contours", "multistart"] {
+        assert!(!want[key].is_null(), "{key} missing from the single run");
+    }
+    assert_eq!(
+        want["bootstrap"]["estimates"].as_array().unwrap().len()
+            + want["bootstrap"]["failed"].as_u64().unwrap() as usize,
+        45
+    );
+    for n in [1usize, 2, 3, 7] {
+        let mut parts = Vec::new();
+        // Written in reverse order and given to the merge in that order:
+        // the merge orders the parts itself.
+        for k in (1..=n).rev() {
+            let p = dir.path().join(format!("part-{n}-{k}"));
+            shard(&study, k, n, &p, &[]);
+            parts.push(p);
+        }
+        let out = dir.path().join(format!("merged-{n}"));
+        let o = merge(&parts, &out);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let (text, got) = stripped(&out.join("results.json"));
+        assert_eq!(got, want, "merge of {n} shards differs from the single run");
+        assert_eq!(text, want_text, "merge of {n} shards: results.json text differs");
+        // The same report files as the single run.
+        for f in ["report.html", "summary.md", "bands.csv", "figures/fit.svg"] {
+            assert!(out.join(f).is_file(), "{f} missing after merging {n} shards");
+        }
+        assert_eq!(
+            std::fs::read(out.join("bands.csv")).unwrap(),
+            std::fs::read(single.join("bands.csv")).unwrap()
+        );
+    }
+}
+
+#[test]
+fn adaptive_monte_carlo_shards_compute_to_the_cap_and_the_merge_stops_where_one_machine_stops() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = write_study(dir.path(), "adaptive", "");
+    // Adaptive with a loose tolerance.
+    let text = std::fs::read_to_string(&study).unwrap().replace(
+        "monte_carlo = { replicates = 37 }",
+        "monte_carlo = { replicates = 2000, adaptive = true, adaptive_tolerance = 0.5 }",
+    );
+    std::fs::write(&study, text).unwrap();
+    let single = dir.path().join("single");
+    fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args(["--quiet", "--only", "monte-carlo", "--out"])
+        .arg(&single)
+        .assert()
+        .success();
+    let (want_text, want) = stripped(&single.join("results.json"));
+    // JCGM 101:2008, 7.9: batches of h = ceil(100 / (1 - 0.6827)) = 316
+    // trials; stability is first judged after the second batch, and with a
+    // 50 % tolerance it holds there: 2 h = 632 trials of the cap 2000.
+    assert_eq!(want["monte_carlo"]["run"], 632);
+    assert_eq!(want["monte_carlo"]["adaptive_stable"], true);
+    let mut parts = Vec::new();
+    for k in 1..=3 {
+        let p = dir.path().join(format!("part-{k}"));
+        shard(&study, k, 3, &p, &["--only", "monte-carlo"]);
+        parts.push(p);
+    }
+    let out = dir.path().join("merged");
+    let o = merge(&parts, &out);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (text, got) = stripped(&out.join("results.json"));
+    assert_eq!(got, want);
+    assert_eq!(text, want_text);
+}
+
+fn refused(parts: &[PathBuf], out: &Path) -> String {
+    let o = merge(parts, out);
+    assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(!out.exists(), "a refused merge leaves no folder");
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+#[test]
+fn parts_that_do_not_belong_together_are_refused_naming_them() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = write_study(dir.path(), "decay", "");
+    let fast = ["--only", "bootstrap,monte-carlo"];
+    let part = |name: &str, k: usize, n: usize, extra: &[&str]| {
+        let p = dir.path().join(name);
+        let mut args: Vec<&str> = fast.to_vec();
+        args.extend_from_slice(extra);
+        shard(&study, k, n, &p, &args);
+        p
+    };
+    let p1 = part("p1", 1, 3, &[]);
+    let p2 = part("p2", 2, 3, &[]);
+    let p3 = part("p3", 3, 3, &[]);
+    let out = dir.path().join("merged");
+
+    // Missing: shard 2/3 is named.
+    let e = refused(&[p1.clone(), p3.clone()], &out);
+    assert!(e.contains("shard 2/3 missing"), "{e}");
+    // Duplicated: the part given twice is named with both paths.
+    let p3b = dir.path().join("p3-again");
+    shard(&study, 3, 3, &p3b, &fast);
+    let e = refused(&[p1.clone(), p2.clone(), p3.clone(), p3b.clone()], &out);
+    assert!(
+        e.contains("shard 3/3 given 2 times") && e.contains("p3-again"),
+        "{e}"
+    );
+    // Another split.
+    let q = part("q", 2, 4, &[]);
+    let e = refused(&[p1.clone(), q.clone(), p3.clone()], &out);
+    assert!(e.contains("different splits") && e.contains("2/4"), "{e}");
+    // Another seed.
+    let s2 = part("s2", 2, 3, &["--seed", "12"]);
+    let e = refused(&[p1.clone(), s2, p3.clone()], &out);
+    assert!(e.contains("seed 11") && e.contains("seed 12"), "{e}");
+    // Other settings (replicates).
+    let r2 = part("r2", 2, 3, &["--replicates", "44"]);
+    let e = refused(&[p1.clone(), r2, p3.clone()], &out);
+    assert!(e.contains("different settings"), "{e}");
+    // Another study: the same file name with other contents.
+    let other = tempfile::tempdir().unwrap();
+    let study2 = write_study(other.path(), "decay", "level = 0.9\n");
+    let o2 = dir.path().join("o2");
+    shard(&study2, 2, 3, &o2, &fast);
+    let e = refused(&[p1.clone(), o2, p3.clone()], &out);
+    assert!(
+        e.contains("different studies") || e.contains("different runs"),
+        "{e}"
+    );
+    // Another tool version (a part rewritten as if by another release).
+    let mut f = fitaudit::batch::read_part(&p2).unwrap();
+    f.version = "0.0.1-other".into();
+    let v2 = dir.path().join("v2");
+    fitaudit::batch::write_part(&f, &v2).unwrap();
+    let e = refused(&[p1.clone(), v2, p3.clone()], &out);
+    assert!(e.contains("0.0.1-other") && e.contains("tool version"), "{e}");
+    // A folder that is not a part.
+    let e = refused(&[p1.clone(), dir.path().to_path_buf(), p3.clone()], &out);
+    assert!(e.contains("part.cbor"), "{e}");
+    // A study file changed after the shards ran.
+    let text = std::fs::read_to_string(&study).unwrap();
+    std::fs::write(&study, text.replace("Decay decay", "Decay decay, edited")).unwrap();
+    let e = refused(&[p1, p2, p3], &out);
+    assert!(e.contains("changed since the shards ran"), "{e}");
+}
+
+#[test]
+fn bad_shard_arguments_are_usage_errors() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = write_study(dir.path(), "decay", "");
+    for bad in ["0/3", "4/3", "2", "x/y"] {
+        let o = fitaudit()
+            .arg("audit")
+            .arg(&study)
+            .args(["--shard", bad])
+            .output()
+            .unwrap();
+        assert_eq!(o.status.code(), Some(2), "{bad}");
+        assert!(String::from_utf8_lossy(&o.stderr).contains("K/N"), "{bad}");
+    }
+}
+
+#[test]
+fn a_shard_logs_progress_lines_when_stderr_is_not_a_terminal() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = write_study(dir.path(), "decay", "");
+    // stderr is a pipe here; an interval of 0 logs every update.
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args([
+            "--only",
+            "bootstrap",
+            "--shard",
+            "2/3",
+            "--progress-interval",
+            "0",
+            "--out",
+        ])
+        .arg(dir.path().join("p"))
+        .output()
+        .unwrap();
+    assert!(o.status.success());
+    let err = String::from_utf8_lossy(&o.stderr);
+    // Shard 2/3 of 45 replicates holds replicates 15..30: 15 of them, and
+    // the closing line reports all 15 (100.0 %).
+    assert!(
+        err.contains("progress: bootstrap (residual) 15/15 (100.0 %)"),
+        "{err}"
+    );
+    assert!(
+        !err.contains('\u{1b}'),
+        "no terminal control codes in a log: {err}"
+    );
+    // --quiet silences it, and a bad interval is a usage error.
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args([
+            "--only",
+            "bootstrap",
+            "--quiet",
+            "--progress-interval",
+            "0",
+            "--out",
+        ])
+        .arg(dir.path().join("q"))
+        .output()
+        .unwrap();
+    assert!(o.status.success() && o.stderr.is_empty());
+    let o = fitaudit()
+        .arg("audit")
+        .arg(&study)
+        .args(["--progress-interval", "nan"])
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+}
