@@ -822,6 +822,25 @@ fn cases() -> Vec<Case> {
             ],
         },
         Case {
+            name: "joint: errors in x in a data set",
+            study: joint("sigma = \"u\"\n", 1, "sigma = \"u\"\nsigma_x = 0.01\n"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["datasets[1].sigma_x", "not supported", "[[datasets]]"],
+        },
+        Case {
+            name: "joint: poisson counts are checked per data set",
+            study: Some(format!(
+                "{}\n[fit]\nlikelihood = \"poisson\"\n",
+                JOINT.replace("sigma = \"u\"\n", "")
+            )),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 3, column 2", "whole number"],
+        },
+        Case {
             name: "joint: [model] together with [[datasets]]",
             study: Some(format!("{JOINT}\n[model]\nformula = \"a\"\n")),
             csv: None,
