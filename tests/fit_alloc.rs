@@ -176,6 +176,7 @@ fn joint_model_refits_allocate_nothing() {
         x: &xs,
         y: &y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let problem = Problem {
         model: &model,
