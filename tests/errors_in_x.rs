@@ -130,6 +130,19 @@ fn straight_line_agrees_with_an_independent_minimisation_of_the_same_objective()
         fit::fit(&problem(&tape), &d).unwrap()
     };
     assert!((frozen.parameters[1].value - b).abs() > 1e-6);
+    // Curvature measures: not available with errors in x (the effective
+    // weights move with the slope); without sigma_x the straight line is
+    // linear in its parameters, so both curvatures are 0 (identity: the
+    // second derivatives of a + b x vanish; Bates & Watts 1980).
+    use fitaudit::diagnostics::nonlinearity::{compute, NotAvailable};
+    let nl = compute(&tape, &data, &f);
+    assert_eq!(nl.not_available, Some(NotAvailable::ErrorsInX));
+    let mut plain = data.clone();
+    plain.sigma_x = None;
+    let nl = compute(&tape, &plain, &frozen);
+    assert_eq!(nl.not_available, None);
+    assert!(nl.intrinsic_curvature.is_some_and(|c| c.abs() < 1e-12));
+    assert!(nl.parameter_effects_curvature.is_some_and(|c| c.abs() < 1e-12));
 }
 
 #[test]

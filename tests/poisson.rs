@@ -194,6 +194,36 @@ fn decay_fit_agrees_with_an_independent_newton_mle_and_fisher_information() {
 }
 
 #[test]
+fn curvature_measures_are_not_available_for_a_poisson_fit() {
+    // The Bates-Watts curvatures and Box's bias are formulas of Gaussian
+    // weighted least squares with fixed weights (Bates & Watts 1980;
+    // Box 1971); a Poisson fit gets "not available" with its reason, while
+    // the same model and points fitted by least squares get the measures.
+    use fitaudit::diagnostics::nonlinearity::{compute, NotAvailable};
+    let data = decay_counts(12.0, 0.35, 24);
+    let model = decay_model();
+    let params = vec![ParamSpec::free("b", 5.0), ParamSpec::free("k", 0.1)];
+    let problem = Problem {
+        model: &model,
+        params: params.clone(),
+        options: poisson_options(),
+    };
+    let f = fit::fit(&problem, &data).unwrap();
+    let nl = compute(&model, &data, &f);
+    assert_eq!(nl.not_available, Some(NotAvailable::PoissonLikelihood));
+    assert!(nl.intrinsic_curvature.is_none() && nl.bias.is_empty());
+    let gaussian = Problem {
+        model: &model,
+        params,
+        options: FitOptions::default(),
+    };
+    let g = fit::fit(&gaussian, &data).unwrap();
+    let nl = compute(&model, &data, &g);
+    assert_eq!(nl.not_available, None);
+    assert!(nl.parameter_effects_curvature.is_some_and(|c| c > 0.0));
+}
+
+#[test]
 fn a_step_to_a_non_positive_mean_is_rejected_not_a_crash() {
     // A straight line through counts that fall to zero: the least-squares
     // line would go negative in the tail; every accepted point keeps mu > 0

@@ -110,11 +110,16 @@ pub(crate) fn figure(
             .unwrap_or(f64::NAN);
         match p {
             Some(p) => format!(
-                "{what} \u{394}\u{3c7}\u{b2} = {} ({})",
+                "{what} {} = {} ({})",
+                super::fit::delta_symbol(results),
                 format::sig(lv, 3),
                 format::percent(p, 3)
             ),
-            None => format!("{what} \u{394}\u{3c7}\u{b2} = {}", format::sig(lv, 3)),
+            None => format!(
+                "{what} {} = {}",
+                super::fit::delta_symbol(results),
+                format::sig(lv, 3)
+            ),
         }
     };
     let entries =
@@ -166,7 +171,8 @@ pub(crate) fn figure(
     if !clipped.is_empty() {
         let lv: Vec<String> = clipped.iter().map(|l| format::sig(*l, 3)).collect();
         caption.push_str(&format!(
-            " The contour at \u{394}\u{3c7}\u{b2} = {} runs beyond the frame.",
+            " The contour at {} = {} runs beyond the frame.",
+            super::fit::delta_symbol(results),
             lv.join(" and ")
         ));
     }

@@ -61,13 +61,15 @@ pub(crate) fn figure(
     let name = p.name.as_str();
     let threshold_label = if scale == 1.0 {
         format!(
-            "threshold \u{394}\u{3c7}\u{b2} = {} ({})",
+            "threshold {} = {} ({})",
+            super::fit::delta_symbol(results),
             format::sig(t, 4),
             format::percent(profile.level, 4)
         )
     } else {
         format!(
-            "threshold \u{394}\u{3c7}\u{b2} = {} \u{d7} {} ({})",
+            "threshold {} = {} \u{d7} {} ({})",
+            super::fit::delta_symbol(results),
             format::sig(profile.threshold, 4),
             format::sig(scale, 4),
             format::percent(profile.level, 4)
@@ -75,9 +77,9 @@ pub(crate) fn figure(
     };
     let text = svg::render(&file, (680, 500 + svg::LEGEND_HEIGHT), |root| {
         let (plot, side) = root.split_vertically(500);
-        let title = format!("Chi-squared profile of {name}");
-        let y_desc = "\u{394}\u{3c7}\u{b2} (profiled minus minimum)";
-        let mut c = svg::chart(&plot, Some(&title), xr, yr, name, y_desc)?;
+        let title = format!("{upper} profile of {name}");
+        let y_desc = format!("{} (profiled minus minimum)", super::fit::delta_symbol(results));
+        let mut c = svg::chart(&plot, Some(&title), xr, yr, name, &y_desc)?;
         let parabola = Stroke::of(Series::Analytic, 2);
         c.lines(std::slice::from_ref(&para), parabola, Some("covariance parabola"))?;
         c.lines(
