@@ -183,11 +183,11 @@ pub fn derived_table(fit: &FitResult, derived: &[crate::diagnostics::derived::De
 /// The data sets of a joint fit: points, parameters (shared ones starred),
 /// chi2 contribution, its share, dof share and chi2 per dof share; empty
 /// for one data set.
-pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool) -> String {
+pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool, poisson: bool) -> String {
     if shares.is_empty() {
         return String::new();
     }
-    let t = crate::report::datasets::table_of(shares, sigma_given);
+    let t = crate::report::datasets::table_for(shares, sigma_given, poisson);
     // The formula is long and already printed by `check`: the terminal
     // table leaves it out; headings start in lower case as in `fit_table`.
     let without_formula = |r: &[String]| -> Vec<String> {
