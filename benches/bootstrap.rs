@@ -190,6 +190,7 @@ fn bench(label: &str, model: &dyn ModelFn, data: &Dataset) {
                 x: &xs,
                 y,
                 sigma: &sigma,
+                sigma_x: &[],
             };
             let r = rf.refit(&ctx.problem, &view, &start, &[true; 4]);
             iterations += r.iterations;

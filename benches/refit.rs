@@ -64,6 +64,7 @@ fn bench_model(c: &mut Criterion, label: &str, model: &dyn ModelFn, data: &Datas
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let free = [true; 4];
     let mut rf = Refitter::new(&problem, data.len());

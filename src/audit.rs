@@ -471,7 +471,8 @@ pub fn summarise(
         profile: profile.as_ref(),
         multistart: multistart.as_ref(),
         tolerance: input.settings.tolerance,
-        sigma_given: input.data.has_sigma(),
+        // Stated sigma, or counts (whose variance is their mean).
+        sigma_given: audited.sigma_given,
         level: input.settings.level,
     };
     let nonlinearity = diagnostics::nonlinearity::run(&ctx);

@@ -295,6 +295,9 @@ fn sigma_words(study: &crate::study::Study) -> String {
         let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
         (lo <= hi).then_some((lo, hi))
     });
+    if study.fit_options.likelihood == crate::fit::Likelihood::Poisson {
+        return "none: y holds counts (Poisson likelihood, absolute covariance)".to_string();
+    }
     match (&study.sigma_spec, range) {
         (Some(SigmaSpec::Value(v)), _) => format!("{v} for every point (absolute covariance)"),
         (Some(SigmaSpec::Column(c)), Some((lo, hi))) if lo == hi => {
@@ -338,6 +341,9 @@ pub fn check_summary(study: &crate::study::Study) -> String {
     let _ = writeln!(s, "x          {}", d.x_names.join(", "));
     let _ = writeln!(s, "y          {}", bounded(&d.y_name, 200));
     let _ = writeln!(s, "sigma      {}", bounded(&sigma_words(study), 400));
+    if d.sigma_x.is_some() {
+        let _ = writeln!(s, "sigma_x    given (errors in x: effective variance)");
+    }
     let _ = writeln!(s, "formula    {}", bounded(&study.formula, 1000));
     for p in &study.parameters {
         let mut line = format!("parameter  {} start {}", p.name, p.start);

@@ -21,6 +21,10 @@ pub struct Dataset {
     /// Standard uncertainty of each response; `None` when the study gives
     /// none (every sigma is then 1 and the covariance is scaled by chi2/dof).
     pub sigma: Option<Vec<f64>>,
+    /// Standard uncertainty of the (one) independent variable at each
+    /// point (errors in x, `data.sigma_x`); `None` when x is exact.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sigma_x: Option<Vec<f64>>,
     /// The data sets of a study with several `[[datasets]]`, in file order,
     /// each a contiguous range of the points; empty for one data set. The
     /// last `x` column then holds each point's data-set index (0, 1, ...),
@@ -72,6 +76,7 @@ impl Dataset {
             y_name: y_name.to_string(),
             y,
             sigma,
+            sigma_x: None,
             groups: Vec::new(),
         }
     }

@@ -1,8 +1,9 @@
 //! Built-in demonstration scenarios on embedded data.
 //!
-//! Three invented scenarios show what the audit is for: one fit whose quoted
+//! Four invented scenarios show what the audit is for: one fit whose quoted
 //! uncertainties hold, one small-sample nonlinear fit where the symmetric +-
-//! misleads, and one whose starting guess leads into a local minimum. Their
+//! misleads, one whose starting guess leads into a local minimum, and a
+//! counting experiment with a few counts per bin (Poisson likelihood). Their
 //! data are generated reproducibly by [`scenarios_csv`] (see the example
 //! `generate_demo_data`), stored in `demo-data/` and embedded in the binary,
 //! so `fitaudit demo` works from any folder.
@@ -10,7 +11,7 @@
 use std::path::{Path, PathBuf};
 
 use rand::Rng;
-use rand_distr::{Distribution, Normal};
+use rand_distr::{Distribution, Normal, Poisson};
 use serde::{Deserialize, Serialize};
 
 use crate::rng::{self, Stream};
@@ -31,7 +32,7 @@ pub struct Scenario {
 }
 
 /// The embedded scenarios, in the order the demo runs them.
-pub const SCENARIOS: [Scenario; 3] = [
+pub const SCENARIOS: [Scenario; 4] = [
     Scenario {
         name: "cooling",
         purpose: "a well-behaved fit: analytic and resampled uncertainties agree",
@@ -53,6 +54,13 @@ pub const SCENARIOS: [Scenario; 3] = [
         data_file: "vibration.csv",
         data: include_str!("../demo-data/vibration.csv"),
     },
+    Scenario {
+        name: "tracer",
+        purpose: "a few counts per bin: the Poisson likelihood instead of chi-squared",
+        study: include_str!("../demo-data/tracer.toml"),
+        data_file: "tracer.csv",
+        data: include_str!("../demo-data/tracer.csv"),
+    },
 ];
 
 fn gaussian_noise(scenario: u32, n: usize) -> Vec<f64> {
@@ -66,7 +74,9 @@ fn gaussian_noise(scenario: u32, n: usize) -> Vec<f64> {
 /// Cooling: T = 21.5 + 58 exp(-t / 340 s), 36 readings every 50 s, sigma
 /// 0.15 degC. Enzyme: v = 12 S / (25 + S), 6 substrate levels well below
 /// saturation, sigma 6 % of v. Vibration: y = 1.8 sin(2 pi 3.3 t + 0.7) +
-/// 0.25, 80 samples over 2.4 s, sigma 0.2.
+/// 0.25, 80 samples over 2.4 s, sigma 0.2. Tracer: Poisson counts of mean
+/// 1.2 + 16 exp(-t / 45 s) in 30 bins of 10 s (bin starts t = 0, 10, ...,
+/// 290 s).
 pub fn scenarios_csv() -> Vec<(String, String)> {
     let mut out = Vec::new();
 
@@ -101,6 +111,17 @@ pub fn scenarios_csv() -> Vec<(String, String)> {
         csv.push_str(&format!("{t:.4},{y:.4},{sigma:.2}\n"));
     }
     out.push(("vibration.csv".to_string(), csv));
+
+    let mut rng = rng::stream(20261201, Stream::Other(5), 0);
+    let mut csv =
+        String::from("# invented demo data: a short-lived tracer in a well counter, 10 s bins\nt_s,counts\n");
+    for i in 0..30 {
+        let t = 10.0 * i as f64;
+        let mu = 1.2 + 16.0 * (-t / 45.0f64).exp();
+        let n: f64 = Poisson::new(mu).expect("positive mean").sample(&mut rng);
+        csv.push_str(&format!("{t:.0},{n:.0}\n"));
+    }
+    out.push(("tracer.csv".to_string(), csv));
     out
 }
 

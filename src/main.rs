@@ -262,7 +262,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             } else {
                 emit(&text::fit_table(study.title.as_deref(), &study.parameters, &fit))?;
                 emit(&text::derived_table(&fit, &derived))?;
-                emit(&text::datasets_table(&datasets, fit.sigma_given))?;
+                emit(&text::datasets_table(
+                    &datasets,
+                    fit.sigma_given,
+                    fit.likelihood == fitaudit::fit::Likelihood::Poisson,
+                ))?;
             }
             Ok(ExitCode::SUCCESS)
         }

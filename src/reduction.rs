@@ -139,6 +139,7 @@ pub fn reduce_data(data: &Dataset, indices: &[usize]) -> Dataset {
         y_name: data.y_name.clone(),
         y: pick(&data.y),
         sigma: data.sigma.as_ref().map(|s| pick(s)),
+        sigma_x: data.sigma_x.as_ref().map(|s| pick(s)),
         groups: data
             .groups
             .iter()

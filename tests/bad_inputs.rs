@@ -85,6 +85,53 @@ fn csv_rows() -> String {
     s
 }
 
+/// A counting study (Poisson likelihood) on the same file name.
+const COUNTS: &str = r#"title = "catalogue counts"
+[data]
+file = "d.csv"
+x = "t"
+y = "y"
+
+[model]
+formula = "b*exp(-t/tau)"
+
+[parameters]
+b = { start = 8.0, min = 0 }
+tau = { start = 2.0, min = 0.01, max = 100 }
+
+[fit]
+likelihood = "poisson"
+
+[audit]
+bootstrap = { replicates = 20 }
+monte_carlo = { replicates = 20 }
+multistart = { starts = 8 }
+profile = { points = 11 }
+contours = { grid = 7 }
+"#;
+
+/// Counts of a decay with zero counts in the tail (header on line 1, the
+/// point at t = 0.5 i on line i + 2).
+fn count_rows() -> String {
+    let counts = [9, 7, 6, 4, 5, 2, 3, 1, 0, 1, 0, 0];
+    let mut s = String::from("t,y,u\n");
+    for (i, c) in counts.iter().enumerate() {
+        s.push_str(&format!("{},{c},1\n", 0.5 * i as f64));
+    }
+    s
+}
+
+fn counts_with(f: impl Fn(&mut Vec<String>)) -> Option<Vec<u8>> {
+    let mut lines: Vec<String> = count_rows().lines().map(str::to_string).collect();
+    f(&mut lines);
+    Some((lines.join("\n") + "\n").into_bytes())
+}
+
+fn counts_study(from: &str, to: &str) -> Option<String> {
+    assert!(COUNTS.contains(from), "counting study lacks {from:?}");
+    Some(COUNTS.replacen(from, to, 1))
+}
+
 struct Case {
     name: &'static str,
     study: Option<String>,
@@ -647,6 +694,120 @@ fn cases() -> Vec<Case> {
             expect: &["\"converged\": true"],
         },
         Case {
+            name: "poisson: a negative count",
+            study: Some(COUNTS.to_string()),
+            csv: counts_with(|l| l[4] = "1.5,-1,1".into()),
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 5, column 2", "count -1", "whole number"],
+        },
+        Case {
+            name: "poisson: a count that is not a whole number",
+            study: Some(COUNTS.to_string()),
+            csv: counts_with(|l| l[7] = "3,2.5,1".into()),
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 8, column 2", "count 2.5"],
+        },
+        Case {
+            name: "poisson: sigma given with counts",
+            study: counts_study("y = \"y\"\n", "y = \"y\"\nsigma = \"u\"\n"),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma", "line 6", "poisson"],
+        },
+        Case {
+            name: "poisson: wild bootstrap",
+            study: counts_study(
+                "bootstrap = { replicates = 20 }",
+                "bootstrap = { replicates = 20, scheme = \"wild\" }",
+            ),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["audit.bootstrap.scheme", "poisson"],
+        },
+        Case {
+            name: "poisson: Student-t Monte Carlo noise",
+            study: counts_study(
+                "monte_carlo = { replicates = 20 }",
+                "monte_carlo = { replicates = 20, student_t_dof = 5 }",
+            ),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["audit.monte_carlo.student_t_dof"],
+        },
+        Case {
+            name: "unknown likelihood",
+            study: counts_study("likelihood = \"poisson\"", "likelihood = \"binomial\""),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["line 15", "binomial", "`gaussian` or `poisson`"],
+        },
+        Case {
+            name: "poisson: zero counts are data, not an error",
+            study: Some(COUNTS.to_string()),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 0,
+            expect: &[
+                "\"converged\": true",
+                "\"statistic\": \"deviance\"",
+                "\"likelihood\": \"poisson\"",
+            ],
+        },
+        Case {
+            name: "errors in x without sigma of y",
+            study: replace("sigma = \"u\"\n", "sigma_x = 0.01\n"),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma_x", "line 6", "needs data.sigma"],
+        },
+        Case {
+            name: "errors in x: negative sigma_x",
+            study: replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = -0.1\n"),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma_x", ">= 0"],
+        },
+        Case {
+            name: "errors in x: a negative sigma_x in its column",
+            study: replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = \"ux\"\n"),
+            csv: csv_with(|l| {
+                for (k, r) in l.iter_mut().enumerate() {
+                    r.push_str(match k {
+                        0 => ",ux",
+                        3 => ",-0.02",
+                        _ => ",0.02",
+                    });
+                }
+            }),
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 4, column 4", "sigma_x -0.02"],
+        },
+        Case {
+            name: "errors in x with counts",
+            study: counts_study("y = \"y\"\n", "y = \"y\"\nsigma_x = 0.1\n"),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["data.sigma_x", "poisson"],
+        },
+        Case {
+            name: "errors in x: a number for every point fits",
+            study: replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = 0.01\n"),
+            csv: None,
+            args: FIT,
+            code: 0,
+            expect: &["\"converged\": true", "\"errors_in_x\": true"],
+        },
+        Case {
             name: "joint: [data] together with [[datasets]]",
             study: Some(format!(
                 "{JOINT}\n[data]\nfile = \"d.csv\"\nx = \"t\"\ny = \"y\"\n"
@@ -659,6 +820,25 @@ fn cases() -> Vec<Case> {
                 "`data`",
                 "cannot be used together with [[datasets]]",
             ],
+        },
+        Case {
+            name: "joint: errors in x in a data set",
+            study: joint("sigma = \"u\"\n", 1, "sigma = \"u\"\nsigma_x = 0.01\n"),
+            csv: None,
+            args: AUDIT,
+            code: 2,
+            expect: &["datasets[1].sigma_x", "not supported", "[[datasets]]"],
+        },
+        Case {
+            name: "joint: poisson counts are checked per data set",
+            study: Some(format!(
+                "{}\n[fit]\nlikelihood = \"poisson\"\n",
+                JOINT.replace("sigma = \"u\"\n", "")
+            )),
+            csv: None,
+            args: FIT,
+            code: 2,
+            expect: &["d.csv, line 3, column 2", "whole number"],
         },
         Case {
             name: "joint: [model] together with [[datasets]]",

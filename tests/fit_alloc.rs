@@ -64,6 +64,7 @@ fn count_refit_allocations(model: &dyn ModelFn, options: FitOptions) -> (usize, 
         x: &xs,
         y: &y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let mut bounded = ParamSpec::free("a2", 0.8);
     bounded.min = 0.0;
@@ -175,6 +176,7 @@ fn joint_model_refits_allocate_nothing() {
         x: &xs,
         y: &y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let problem = Problem {
         model: &model,

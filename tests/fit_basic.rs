@@ -319,6 +319,7 @@ fn refitter_warm_start_and_held_parameters() {
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let mut rf = Refitter::new(&problem, data.len());
     let best: Vec<f64> = full.parameters.iter().map(|p| p.value).collect();
@@ -526,6 +527,7 @@ fn refitter_handles_a_different_number_of_points_and_clamps_starts() {
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     // The data rise with slope about 2, so b ends on its upper bound; a start
     // above the bound is moved onto it.

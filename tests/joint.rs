@@ -803,3 +803,64 @@ fn coverage_runs_on_a_joint_study_and_two_lines_cover_at_the_level() {
         assert_eq!(f.status, fitaudit::diagnostics::verdict::Status::Holds);
     }
 }
+
+// ---------------------------------------------------------------------------
+// Counts in two data sets (Poisson likelihood).
+
+#[test]
+fn joint_poisson_counts_match_the_closed_form_mle_and_fisher_information() {
+    // Invented counts. A: mean r; B: mean r q. The Poisson MLE is
+    // r = mean(A), q = mean(B) / mean(A) (closed form: the likelihood
+    // factorises); the Fisher information J^T diag(1/mu) J inverted by
+    // hand gives Var r = r / n_A and Var q = q (n_A + n_B q) / (r n_A n_B).
+    let a = [4.0, 7.0, 5.0, 3.0, 6.0, 5.0, 8.0, 2.0, 5.0, 6.0];
+    let b = [12.0, 9.0, 11.0, 14.0, 10.0, 13.0, 8.0, 11.0];
+    let rows =
+        |v: &[f64]| -> Vec<Vec<f64>> { v.iter().enumerate().map(|(i, y)| vec![i as f64, *y]).collect() };
+    let toml = "title = \"joint counts\"\n[[datasets]]\nname = \"A\"\nfile = \"a.csv\"\nx = \"t\"\ny = \"n\"\n\
+                formula = \"r + 0*t\"\n[[datasets]]\nname = \"B\"\nfile = \"b.csv\"\nx = \"t\"\ny = \"n\"\n\
+                formula = \"r*q + 0*t\"\n[parameters]\nr = { start = 3, min = 0.01 }\nq = { start = 1, min = 0.01 }\n\
+                [fit]\nlikelihood = \"poisson\"\n[audit]\nseed = 2\nbootstrap = { replicates = 40 }\n\
+                monte_carlo = { replicates = 40 }\nprofile = { points = 7 }\ncontours = { grid = 5 }\n\
+                multistart = { starts = 4 }\n";
+    let dir = folder(&[
+        ("a.csv", &csv("t,n", &rows(&a))),
+        ("b.csv", &csv("t,n", &rows(&b))),
+        ("j.toml", toml),
+    ]);
+    let s = load(dir.path(), "j.toml");
+    let f = fit::fit(&s.problem(), &s.dataset).unwrap();
+    assert!(f.converged);
+    let (na, nb) = (a.len() as f64, b.len() as f64);
+    let r = a.iter().sum::<f64>() / na;
+    let q = b.iter().sum::<f64>() / nb / r;
+    assert!(
+        (f.parameters[0].value - r).abs() < 1e-7 * r,
+        "{}",
+        f.parameters[0].value
+    );
+    assert!(
+        (f.parameters[1].value - q).abs() < 1e-7 * q,
+        "{}",
+        f.parameters[1].value
+    );
+    let ur = (r / na).sqrt();
+    let uq = (q * (na + nb * q) / (r * na * nb)).sqrt();
+    assert!((f.parameters[0].std_error.unwrap() - ur).abs() < 1e-5 * ur);
+    assert!((f.parameters[1].std_error.unwrap() - uq).abs() < 1e-5 * uq);
+    // The residual bootstrap becomes the parametric Poisson bootstrap, and
+    // the curvature measures say they do not apply.
+    let res = run_audit(&s, 1);
+    assert_eq!(res.bootstrap.as_ref().unwrap().scheme, "parametric-poisson");
+    assert_eq!(res.monte_carlo.as_ref().unwrap().scheme, "poisson");
+    assert_eq!(
+        res.nonlinearity.not_available,
+        Some(fitaudit::diagnostics::nonlinearity::NotAvailable::PoissonLikelihood)
+    );
+    // Each data set's contribution is its share of the deviance, headed so;
+    // the contributions add up to the joint deviance (identity).
+    let t = fitaudit::report::datasets::table(&res);
+    assert_eq!(t.header[4], "Deviance");
+    let sum: f64 = res.datasets.iter().map(|d| d.chi2).sum();
+    assert!((sum - res.fit.chi2).abs() < 1e-9 * res.fit.chi2.max(1.0));
+}

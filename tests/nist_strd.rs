@@ -92,6 +92,7 @@ fn dataset(p: &NistProblem, m: &NistModel) -> Dataset {
         y_name: "y".into(),
         y,
         sigma: None,
+        sigma_x: None,
         groups: Vec::new(),
     }
 }

@@ -314,6 +314,7 @@ fn brute_crossing(
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: &[],
     };
     let mut rf = Refitter::new(problem, data.len());
     let mut start: Vec<f64> = base.parameters.iter().map(|p| p.value).collect();

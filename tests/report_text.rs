@@ -21,6 +21,10 @@ fn param(name: &str, value: f64, se: Option<f64>, at_bound: bool, fixed: bool) -
 fn fit_table_rounds_values_at_the_uncertainty_and_flags_bounds() {
     // The first row is the GUM 7.2.2 example: m_s = 100.021 47 g, u_c = 0.35 mg.
     let fit = FitResult {
+        likelihood: fitaudit::fit::Likelihood::Gaussian,
+        statistic: "chi2".to_string(),
+        small_counts: None,
+        errors_in_x: false,
         converged: false,
         stop_reason: StopReason::IterationLimit,
         iterations: 1000,

@@ -341,3 +341,70 @@ fn a_shard_logs_progress_lines_when_stderr_is_not_a_terminal() {
         .unwrap();
     assert_eq!(o.status.code(), Some(2));
 }
+
+/// The single run's results.json (provenance aside) against the merge of
+/// `n` shards of the same study.
+fn assert_merge_equals_single(dir: &Path, study: &Path, tag: &str, n: usize) {
+    let single = dir.join(format!("single-{tag}"));
+    fitaudit()
+        .arg("audit")
+        .arg(study)
+        .args(["--quiet", "--out"])
+        .arg(&single)
+        .assert()
+        .success();
+    let (want_text, want) = stripped(&single.join("results.json"));
+    let parts: Vec<PathBuf> = (1..=n)
+        .map(|k| {
+            let p = dir.join(format!("part-{tag}-{k}"));
+            shard(study, k, n, &p, &[]);
+            p
+        })
+        .collect();
+    let out = dir.join(format!("merged-{tag}"));
+    let o = merge(&parts, &out);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (text, got) = stripped(&out.join("results.json"));
+    assert_eq!(
+        got, want,
+        "{tag}: merge of {n} shards differs from the single run"
+    );
+    assert_eq!(text, want_text, "{tag}: results.json text differs");
+}
+
+#[test]
+fn poisson_and_errors_in_x_shards_merge_to_the_single_run() {
+    // Identity as above: the Poisson counts (Monte Carlo, parametric
+    // bootstrap) and the x draws of errors in x come from each replicate's
+    // own stream, so slicing cannot change them.
+    let dir = tempfile::tempdir().unwrap();
+    // Invented counts: round(1 + 12 exp(-x/3)) with a fixed disturbance.
+    let mut csv = String::from("x,n\n");
+    for i in 0..15 {
+        let x = 0.5 * i as f64;
+        let n = (1.0 + 12.0 * (-x / 3.0).exp() + 1.5 * (7.3 * i as f64).sin())
+            .round()
+            .max(0.0);
+        csv.push_str(&format!("{x},{n}\n"));
+    }
+    std::fs::write(dir.path().join("counts.csv"), csv).unwrap();
+    let counts = dir.path().join("counts.toml");
+    std::fs::write(
+        &counts,
+        "title = \"Counts\"\n[data]\nfile = \"counts.csv\"\nx = \"x\"\ny = \"n\"\n\
+         [model]\nformula = \"c + A*exp(-x/tau)\"\n[parameters]\nc = { start = 1, min = 0 }\n\
+         A = { start = 10, min = 0 }\ntau = { start = 2, min = 0.01 }\n[fit]\nlikelihood = \"poisson\"\n\
+         [audit]\nseed = 5\nbootstrap = { replicates = 30 }\nmonte_carlo = { replicates = 30 }\n\
+         profile = { points = 7 }\ncontours = { grid = 5 }\nmultistart = { starts = 4, max_starts = 8 }\n",
+    )
+    .unwrap();
+    assert_merge_equals_single(dir.path(), &counts, "poisson", 3);
+    let xerr = write_study(dir.path(), "xerr", "");
+    let text = std::fs::read_to_string(&xerr)
+        .unwrap()
+        .replace("sigma = \"u\"\n", "sigma = \"u\"\nsigma_x = 0.02\n")
+        .replace("replicates = 45", "replicates = 30")
+        .replace("replicates = 37", "replicates = 30");
+    std::fs::write(&xerr, text).unwrap();
+    assert_merge_equals_single(dir.path(), &xerr, "xerr", 2);
+}

@@ -119,6 +119,7 @@ fn run(study_bytes: &[u8], csv: &[u8]) {
                 y_name: spec.data.y.clone(),
                 y: numeric[k].clone(),
                 sigma: numeric.get(k + 1).cloned(),
+                sigma_x: None,
                 groups: Vec::new(),
             };
             match Study::from_dataset(spec, ds, "fuzz") {

@@ -52,6 +52,9 @@ pub enum NewObservation {
     ScaledSigma,
     /// No sigma: the residual variance `s^2 = chi2/dof`.
     ResidualVariance,
+    /// A Poisson fit: a new count has variance equal to its mean, the
+    /// fitted value (times `deviance/dof` when the covariance is scaled).
+    PoissonCount,
 }
 
 /// A pointwise percentile band of the replicate curves.
@@ -174,7 +177,12 @@ pub fn analytic(model: &dyn ModelFn, data: &Dataset, fit: &FitResult, x: &[f64])
     } else {
         1.0
     };
+    let poisson = fit.likelihood == crate::fit::Likelihood::Poisson;
     let (new_observation, sigma) = match interpolated_sigma(data, x) {
+        _ if poisson => (
+            NewObservation::PoissonCount,
+            y.iter().map(|f| f.max(0.0).sqrt()).collect(),
+        ),
         Some(s) if fit.covariance_scaled => (NewObservation::ScaledSigma, s),
         Some(s) => (NewObservation::InterpolatedSigma, s),
         None => (NewObservation::ResidualVariance, vec![1.0; n]),

@@ -17,6 +17,17 @@
 //!   multipliers (`-(sqrt 5 - 1)/2` with probability `(sqrt 5 + 1)/(2 sqrt 5)`,
 //!   else `(sqrt 5 + 1)/2`; mean 0, variance 1, third moment 1).
 //!
+//! - **parametric Poisson** (a Poisson fit's residual scheme): every count
+//!   drawn from the Poisson law of mean `f_i`, the fitted value (Davison &
+//!   Hinkley 1997, sec. 2.2, the parametric bootstrap). The case scheme is
+//!   kept as it is; the wild scheme does not apply to counts and is refused.
+//!
+//! With errors in x (`data.sigma_x`), the residual and wild schemes move x
+//! as well: `x*_i = x_i + sigma_x,i * e'*_i`, with `e'*_i` a second,
+//! independent draw from the pool (residual) or the adjusted residual
+//! times a second multiplier (wild); the weighted residuals are then those
+//! of the effective variance. The case scheme carries each point's x, y
+//! and both uncertainties together.
 //! With several data sets (a study of `[[datasets]]`, see
 //! [`crate::data::Dataset::groups`]) the case and residual schemes are
 //! stratified: each data set's points are drawn from that data set only,
@@ -30,8 +41,10 @@
 
 use rand::Rng;
 
+use super::monte_carlo::poisson_draw;
 use super::resample::{self, Assembly, Outcome, ResampleResult};
 use super::{Fitted, Progress};
+use crate::fit::Likelihood;
 use crate::rng::{self, Stream};
 use crate::settings::{BootstrapScheme, BootstrapSettings, WildWeights};
 
@@ -52,7 +65,8 @@ pub fn run_with(
     progress: &dyn Progress,
 ) -> ResampleResult {
     let b = settings.replicates;
-    progress.start(&format!("bootstrap ({})", scheme_name(settings.scheme)), b as u64);
+    let name = recorded_scheme(ctx, settings.scheme);
+    progress.start(&format!("bootstrap ({name})"), b as u64);
     let outcomes = replicates(ctx, settings, 0..b, progress);
     progress.finish();
     summarise(ctx, settings, bca, outcomes)
@@ -69,17 +83,18 @@ pub fn summarise(
     outcomes: Vec<Outcome>,
 ) -> ResampleResult {
     let b = settings.replicates;
+    let name = recorded_scheme(ctx, settings.scheme);
     let jackknife = bca.then(|| super::influence::linearised_jackknife(ctx));
     resample::assemble(
         ctx,
         Assembly {
-            scheme: scheme_name(settings.scheme).to_string(),
+            scheme: name.to_string(),
             replicates: b,
             outcomes,
             jackknife,
             adaptive_stable: None,
             noise_scale: None,
-            scatter_dof: (!ctx.fit.covariance_scaled).then_some(ctx.fit.dof),
+            scatter_dof: (!ctx.fit.covariance_scaled && name != PARAMETRIC_POISSON).then_some(ctx.fit.dof),
             jcgm: false,
         },
     )
@@ -91,6 +106,22 @@ pub fn scheme_name(scheme: BootstrapScheme) -> &'static str {
         BootstrapScheme::Case => "case",
         BootstrapScheme::Residual => "residual",
         BootstrapScheme::Wild => "wild",
+    }
+}
+
+/// Name of the parametric Poisson scheme that the residual scheme becomes
+/// in a Poisson fit.
+pub const PARAMETRIC_POISSON: &str = "parametric-poisson";
+
+/// The scheme as recorded in the result: for a Poisson fit the residual
+/// scheme is the parametric Poisson bootstrap (counts drawn at the fitted
+/// means; residuals of counts are neither exchangeable nor symmetric), the
+/// case scheme stays case resampling, and the wild scheme is refused
+/// (`wild-not-for-counts`; the study loader rejects it up front).
+pub fn recorded_scheme(ctx: &Fitted, scheme: BootstrapScheme) -> &'static str {
+    match (ctx.problem.options.likelihood, scheme) {
+        (Likelihood::Poisson, BootstrapScheme::Residual) => PARAMETRIC_POISSON,
+        _ => scheme_name(scheme),
     }
 }
 
@@ -205,8 +236,23 @@ pub fn replicates(
                 }
                 s.y[o] = data.y[i];
                 s.sigma[o] = sigma[i];
+                if let Some(sx) = &data.sigma_x {
+                    s.sigma_x[o] = sx[i];
+                }
             }
         }),
+        BootstrapScheme::Wild if ctx.problem.options.likelihood == Likelihood::Poisson => {
+            indices.map(|_| Outcome::Failed("wild-not-for-counts")).collect()
+        }
+        BootstrapScheme::Residual if ctx.problem.options.likelihood == Likelihood::Poisson => {
+            resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
+                let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
+                for (y, f) in s.y.iter_mut().zip(&fitted) {
+                    *y = poisson_draw(&mut rng, *f);
+                }
+                s.sigma.copy_from_slice(&sigma);
+            })
+        }
         BootstrapScheme::Residual => {
             let pool = residual_pool(ctx);
             if pool.is_empty() {
@@ -216,7 +262,7 @@ pub fn replicates(
             }
             // Several data sets: each resamples its own residuals.
             let pools = stratum_pools(ctx, &strata, &pool);
-            resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
+            resample::refit_replicates(ctx, indices, n, data.sigma_x.is_some(), progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
                 let mut stratum = 0;
                 for (o, (y, (f, sg))) in s.y.iter_mut().zip(fitted.iter().zip(&sigma)).enumerate() {
@@ -228,6 +274,13 @@ pub fn replicates(
                     *y = f + sg * e;
                     s.sigma[o] = *sg;
                 }
+                if let Some(sx) = &data.sigma_x {
+                    // Errors in x: x moves by sigma_x times a second,
+                    // independent draw from the same pool.
+                    for ((xo, x0), sxi) in s.x[0].iter_mut().zip(&data.x[0]).zip(sx) {
+                        *xo = x0 + sxi * pool[rng.gen_range(0..pool.len())];
+                    }
+                }
             })
         }
         BootstrapScheme::Wild => {
@@ -238,22 +291,33 @@ pub fn replicates(
                 .map(|(r, sg)| sg * r.unwrap_or(0.0))
                 .collect();
             let weights = settings.weights;
-            resample::refit_replicates(ctx, indices, n, false, progress, |k, s| {
+            let adjusted: Vec<f64> = adjusted_residuals(ctx)
+                .into_iter()
+                .map(|r| r.unwrap_or(0.0))
+                .collect();
+            resample::refit_replicates(ctx, indices, n, data.sigma_x.is_some(), progress, |k, s| {
                 let mut rng = rng::stream(seed, Stream::Bootstrap, k as u64);
-                for (y, (f, a)) in s.y.iter_mut().zip(fitted.iter().zip(&amp)) {
-                    let v = match weights {
-                        WildWeights::Rademacher => {
-                            if rng.gen::<bool>() {
-                                1.0
-                            } else {
-                                -1.0
-                            }
+                let draw = |rng: &mut rand_chacha::ChaCha12Rng| match weights {
+                    WildWeights::Rademacher => {
+                        if rng.gen::<bool>() {
+                            1.0
+                        } else {
+                            -1.0
                         }
-                        WildWeights::Mammen => mammen(&mut rng),
-                    };
-                    *y = f + a * v;
+                    }
+                    WildWeights::Mammen => mammen(rng),
+                };
+                for (y, (f, a)) in s.y.iter_mut().zip(fitted.iter().zip(&amp)) {
+                    *y = f + a * draw(&mut rng);
                 }
                 s.sigma.copy_from_slice(&sigma);
+                if let Some(sx) = &data.sigma_x {
+                    // Errors in x: x moves by sigma_x times the adjusted
+                    // residual and a second, independent multiplier.
+                    for (((xo, x0), sxi), r) in s.x[0].iter_mut().zip(&data.x[0]).zip(sx).zip(&adjusted) {
+                        *xo = x0 + sxi * r * draw(&mut rng);
+                    }
+                }
             })
         }
     }

@@ -279,6 +279,9 @@ pub fn outcomes(ctx: &Fitted, indices: Range<usize>, progress: &dyn Progress) ->
 fn replicate(ctx: &Fitted, noise: &Noise, w: &mut Worker, k: usize) -> ReplicateOutcome {
     let mut rng = rng::stream(ctx.settings.seed, Stream::Coverage, k as u64);
     noise.draw(&mut rng, &mut w.data.y);
+    if noise.moves_x() {
+        noise.draw_x(&mut rng, &mut w.data.x[0]);
+    }
     let failed = |why: &str, refits: usize| ReplicateOutcome {
         index: k,
         failed: Some(why.to_string()),
@@ -293,6 +296,7 @@ fn replicate(ctx: &Fitted, noise: &Noise, w: &mut Worker, k: usize) -> Replicate
         x: &xs,
         y: &w.data.y,
         sigma: &sigma,
+        sigma_x: w.data.sigma_x.as_deref().unwrap_or(&[]),
     };
     let refit = w.refitter.refit(&ctx.problem, &view, &start, &free);
     let params = w.refitter.params().to_vec();

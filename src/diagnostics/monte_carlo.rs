@@ -1,6 +1,13 @@
 //! Monte Carlo refits from synthetic noise around the base fit.
 //!
-//! Trial `k` simulates `y*_i = f(x_i; a_hat) + s * sigma_i * e_i` from
+//! With errors in x (`data.sigma_x`) every trial also moves each x off
+//! its observed value by `s * sigma_x,i * e'_i` (independent draws of the
+//! same law), so the refit sees noise in both coordinates.
+//!
+//! For a Poisson fit (`likelihood = "poisson"`) trial `k` draws each count
+//! from the Poisson law of mean `mu_i = f(x_i; a_hat)` instead (scheme
+//! `poisson`, noise scale 1). Otherwise trial `k` simulates
+//! `y*_i = f(x_i; a_hat) + s * sigma_i * e_i` from
 //! `rng::stream(seed, Stream::MonteCarlo, k)` and refits it through
 //! [`crate::fit::Refitter`] from `a_hat`. The noise `e_i` is standard
 //! normal, or Student-t with `nu = student_t_dof` degrees of freedom scaled
@@ -32,10 +39,11 @@
 //! belongs to the bootstrap: the Monte Carlo runs no jackknife.
 
 use rand::Rng;
-use rand_distr::{Distribution, StandardNormal, StudentT};
+use rand_distr::{Distribution, Poisson, StandardNormal, StudentT};
 
 use super::resample::{self, Assembly, Outcome, ResampleResult};
 use super::{Fitted, Progress};
+use crate::fit::Likelihood;
 use crate::rng::{self, Stream};
 use crate::settings::MonteCarloSettings;
 
@@ -49,6 +57,10 @@ pub fn run(ctx: &Fitted, progress: &dyn Progress) -> ResampleResult {
 
 /// The noise factor `s` (see the module documentation).
 pub fn noise_scale(ctx: &Fitted) -> f64 {
+    if ctx.problem.options.likelihood == Likelihood::Poisson {
+        // Counts are drawn from the Poisson law at the fitted mean.
+        return 1.0;
+    }
     if ctx.data.has_sigma() && !ctx.fit.covariance_scaled {
         return 1.0;
     }
@@ -76,9 +88,12 @@ pub fn run_with(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Prog
     summarise(ctx, settings, outcomes)
 }
 
-/// The scheme's name as recorded in the result.
-pub fn scheme_name(settings: &MonteCarloSettings) -> &'static str {
-    if settings.student_t_dof.is_some() {
+/// The scheme's name as recorded in the result: `poisson` for a fit of
+/// counts, else that of the noise law.
+pub fn scheme_name(ctx: &Fitted, settings: &MonteCarloSettings) -> &'static str {
+    if ctx.problem.options.likelihood == Likelihood::Poisson {
+        "poisson"
+    } else if settings.student_t_dof.is_some() {
         "student-t"
     } else {
         "normal"
@@ -99,7 +114,7 @@ pub fn outcomes(
 ) -> Vec<Outcome> {
     let max = settings.replicates;
     progress.start(
-        &format!("Monte Carlo ({})", scheme_name(settings)),
+        &format!("Monte Carlo ({})", scheme_name(ctx, settings)),
         indices.len() as u64,
     );
     let out = if settings.adaptive && indices == (0..max) {
@@ -133,7 +148,7 @@ pub fn summarise(ctx: &Fitted, settings: &MonteCarloSettings, mut outcomes: Vec<
     resample::assemble(
         ctx,
         Assembly {
-            scheme: scheme_name(settings).to_string(),
+            scheme: scheme_name(ctx, settings).to_string(),
             replicates: max,
             outcomes,
             jackknife: None,
@@ -237,10 +252,13 @@ pub fn trials(
     let seed = ctx.settings.seed;
     let noise = Noise::new(ctx, settings.student_t_dof);
     let given_sigma = ctx.data.sigma_or_ones();
-    resample::refit_replicates(ctx, indices, n, false, progress, |k, smp| {
+    resample::refit_replicates(ctx, indices, n, noise.moves_x(), progress, |k, smp| {
         let mut rng = rng::stream(seed, Stream::MonteCarlo, k as u64);
         noise.draw(&mut rng, &mut smp.y);
         smp.sigma.copy_from_slice(&given_sigma);
+        if noise.moves_x() {
+            noise.draw_x(&mut rng, &mut smp.x[0]);
+        }
     })
 }
 
@@ -251,6 +269,11 @@ pub struct Noise {
     fitted: Vec<f64>,
     sigma: Vec<f64>,
     t: Option<(StudentT<f64>, f64)>,
+    /// Poisson counts at the fitted means instead of additive noise.
+    poisson: bool,
+    /// Errors in x: the scaled sigma_x and the observed x (one column).
+    sigma_x: Option<Vec<f64>>,
+    x0: Vec<f64>,
 }
 
 impl Noise {
@@ -262,11 +285,27 @@ impl Noise {
             fitted: ctx.fitted_values(),
             sigma: ctx.data.sigma_or_ones().iter().map(|v| v * s).collect(),
             t: student_t_dof.and_then(|nu| StudentT::new(nu).ok().map(|d| (d, ((nu - 2.0) / nu).sqrt()))),
+            poisson: ctx.problem.options.likelihood == Likelihood::Poisson,
+            sigma_x: ctx
+                .data
+                .sigma_x
+                .as_ref()
+                .map(|sx| sx.iter().map(|v| v * s).collect()),
+            x0: match ctx.data.sigma_x {
+                Some(_) => ctx.data.x.first().cloned().unwrap_or_default(),
+                None => Vec::new(),
+            },
         }
     }
 
     /// Writes one simulated response per point into `y`, drawing from `rng`.
     pub fn draw<R: Rng>(&self, rng: &mut R, y: &mut [f64]) {
+        if self.poisson {
+            for (y, f) in y.iter_mut().zip(&self.fitted) {
+                *y = poisson_draw(rng, *f);
+            }
+            return;
+        }
         for (y, (f, sg)) in y.iter_mut().zip(self.fitted.iter().zip(&self.sigma)) {
             let e: f64 = match &self.t {
                 Some((d, scale)) => d.sample(rng) * scale,
@@ -274,6 +313,35 @@ impl Noise {
             };
             *y = f + sg * e;
         }
+    }
+
+    /// Whether the error model moves x too (errors in x).
+    pub fn moves_x(&self) -> bool {
+        self.sigma_x.is_some()
+    }
+
+    /// Errors in x: moves the observed x off the true x_i (the curve value
+    /// stays that at the true x), drawing from `rng` after the responses.
+    /// Does nothing without `sigma_x`.
+    pub fn draw_x<R: Rng>(&self, rng: &mut R, x: &mut [f64]) {
+        if let Some(sx) = &self.sigma_x {
+            for ((xo, x0), sxi) in x.iter_mut().zip(&self.x0).zip(sx) {
+                let e: f64 = match &self.t {
+                    Some((d, scale)) => d.sample(rng) * scale,
+                    None => rng.sample(StandardNormal),
+                };
+                *xo = x0 + sxi * e;
+            }
+        }
+    }
+}
+
+/// One Poisson count of mean `mu` (NaN when `mu` is not a positive finite
+/// number, so that the replicate fails visibly).
+pub fn poisson_draw<R: Rng>(rng: &mut R, mu: f64) -> f64 {
+    match Poisson::new(mu) {
+        Ok(d) => d.sample(rng),
+        Err(_) => f64::NAN,
     }
 }
 

@@ -1077,6 +1077,7 @@ pub fn run(ctx: &Fitted, progress: &dyn Progress) -> MultistartResult {
         x: &x,
         y: &ctx.data.y,
         sigma: &sigma,
+        sigma_x: ctx.data.sigma_x.as_deref().unwrap_or(&[]),
     };
     let n_points = ctx.data.len();
     let data_norm = ctx

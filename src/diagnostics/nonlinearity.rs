@@ -108,6 +108,14 @@ pub enum NotAvailable {
     NoDegreesOfFreedom,
     /// The model or its derivatives are not finite at the solution.
     NotFinite,
+    /// A Poisson fit (`fit.likelihood = "poisson"`): the curvature
+    /// measures and Box's bias are formulas of Gaussian weighted least
+    /// squares with fixed weights; they are not computed for counts.
+    PoissonLikelihood,
+    /// A fit with errors in x (`data.sigma_x`): the effective-variance
+    /// weights depend on the parameters, which the formulas do not allow
+    /// for; not computed.
+    ErrorsInX,
 }
 
 /// Where the second derivatives came from.
@@ -233,6 +241,12 @@ pub fn run(ctx: &Fitted) -> NonlinearityResult {
 /// which ones are estimated, the covariance scaling and the level).
 pub fn compute(model: &dyn ModelFn, data: &Dataset, fit: &FitResult) -> NonlinearityResult {
     let level = fit.level;
+    if fit.likelihood == crate::fit::Likelihood::Poisson {
+        return NonlinearityResult::unavailable(NotAvailable::PoissonLikelihood, level);
+    }
+    if fit.errors_in_x || data.sigma_x.is_some() {
+        return NonlinearityResult::unavailable(NotAvailable::ErrorsInX, level);
+    }
     if !fit.converged {
         return NonlinearityResult::unavailable(NotAvailable::NotConverged, level);
     }

@@ -77,6 +77,7 @@ impl<'c> Scanner<'c> {
             x: &self.xs,
             y: &self.ctx.data.y,
             sigma: &self.sigma,
+            sigma_x: self.ctx.data.sigma_x.as_deref().unwrap_or(&[]),
         };
         self.refits += 1;
         let out = self

@@ -343,6 +343,10 @@ pub struct Sample {
     pub y: Vec<f64>,
     /// Standard uncertainties.
     pub sigma: Vec<f64>,
+    /// Standard uncertainties of x (errors in x; empty when x is exact).
+    /// Set to the base data's by [`refit_replicates`]; a scheme that
+    /// reorders points (case, jackknife) overwrites it.
+    pub sigma_x: Vec<f64>,
 }
 
 impl Sample {
@@ -352,6 +356,7 @@ impl Sample {
             x: vec![vec![0.0; n]; n_vars],
             y: vec![0.0; n],
             sigma: vec![0.0; n],
+            sigma_x: Vec::new(),
         }
     }
 }
@@ -390,10 +395,15 @@ where
         .into_par_iter()
         .map_init(
             || {
-                (
-                    Refitter::new(&ctx.problem, n_points),
-                    Sample::new(if own_x { n_vars } else { 0 }, n_points),
-                )
+                let mut sample = Sample::new(if own_x { n_vars } else { 0 }, n_points);
+                if let Some(sx) = &ctx.data.sigma_x {
+                    sample.sigma_x = if sx.len() == n_points {
+                        sx.clone()
+                    } else {
+                        vec![0.0; n_points]
+                    };
+                }
+                (Refitter::new(&ctx.problem, n_points), sample)
             },
             |(refitter, sample), range| {
                 let mut out = Vec::with_capacity(range.len());
@@ -410,6 +420,7 @@ where
                         x,
                         y: &sample.y,
                         sigma: &sample.sigma,
+                        sigma_x: &sample.sigma_x,
                     };
                     let refit = refitter.refit(&ctx.problem, &view, &start, &free);
                     let params = refitter.params();
@@ -442,6 +453,9 @@ pub fn jackknife(ctx: &Fitted, progress: &dyn Progress) -> Vec<Outcome> {
             }
             s.y[o] = data.y[i];
             s.sigma[o] = sigma[i];
+            if let Some(sx) = &data.sigma_x {
+                s.sigma_x[o] = sx[i];
+            }
         }
     })
 }

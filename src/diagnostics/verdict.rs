@@ -390,7 +390,10 @@ pub fn decide(inputs: &VerdictInputs) -> Vec<Verdict> {
         .map(|(index, p)| {
             let mut f = Findings(Vec::new());
             base_rules(fit, p, &mut f);
-            if inputs.sigma_given && !fit.covariance_scaled {
+            // With many small counts the deviance's chi-squared p-value is
+            // unreliable: the goodness-of-fit rule does not vote.
+            let small_counts = fit.small_counts.is_some_and(|s| s.warning);
+            if inputs.sigma_given && !fit.covariance_scaled && !small_counts {
                 goodness_rule(fit, tol, &mut f);
             }
             if let Some(ms) = inputs.multistart {
@@ -627,19 +630,19 @@ fn goodness_rule(fit: &FitResult, tol: f64, f: &mut Findings) {
     let p = two_tailed_p(fit.chi2, dof);
     let clear = p < CLEAR_P;
     let status = departure_status(clear, (birge - 1.0).abs(), tol);
-    f.add(
-        Rule::GoodnessOfFit,
-        Source::Fit,
-        status,
-        numbers([
-            ("chi2", fit.chi2),
-            ("dof", dof),
-            ("birge_ratio", birge),
-            ("p_value", p),
-            ("clear_p", CLEAR_P),
-            ("tolerance", tol),
-        ]),
-    );
+    let mut nums = numbers([
+        ("chi2", fit.chi2),
+        ("dof", dof),
+        ("birge_ratio", birge),
+        ("p_value", p),
+        ("clear_p", CLEAR_P),
+        ("tolerance", tol),
+    ]);
+    if fit.likelihood == crate::fit::Likelihood::Poisson {
+        // The statistic is the Poisson deviance (same value as `chi2`).
+        nums.insert("deviance".to_string(), fit.chi2);
+    }
+    f.add(Rule::GoodnessOfFit, Source::Fit, status, nums);
 }
 
 fn multistart_rule(ms: &MultistartResult, fit: &FitResult, p: &ParamResult, f: &mut Findings) {
@@ -886,6 +889,10 @@ mod tests {
     fn fit_of(parameters: Vec<ParamResult>) -> FitResult {
         let m = parameters.len();
         FitResult {
+            likelihood: crate::fit::Likelihood::Gaussian,
+            statistic: "chi2".to_string(),
+            small_counts: None,
+            errors_in_x: false,
             converged: true,
             stop_reason: StopReason::ChiSquaredChange,
             iterations: 7,

@@ -24,10 +24,10 @@ mod result;
 mod steepest;
 
 pub use covariance::{RANK_TOLERANCE, UNDETERMINED_WEIGHT};
-pub use refitter::Refitter;
+pub use refitter::{poisson_residual, Refitter};
 pub use result::{
     analyse, coverage_factor, fit, fit_from, CoverageBasis, EndIssue, FitError, FitResult, ParamResult,
-    MAX_RESTARTS,
+    SmallCounts, MAX_RESTARTS, SMALL_COUNT, SMALL_COUNT_SHARE,
 };
 
 /// Minimisation method.
@@ -65,6 +65,41 @@ impl ParamSpec {
             min: f64::NEG_INFINITY,
             max: f64::INFINITY,
             fixed: false,
+        }
+    }
+}
+
+/// The error model of the fit: what the weighted residuals minimised by
+/// the refit primitive are.
+///
+/// Every variant reduces the fit to minimising a sum of squared weighted
+/// residuals `sum r_i(a)^2`, so Levenberg-Marquardt, steepest descent, the
+/// end-point test and every diagnostic work unchanged on top of it; the
+/// residuals and their exact Jacobian are computed in one evaluation
+/// helper of [`Refitter`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum Likelihood {
+    /// Normal errors of known (or common unknown) sigma in y:
+    /// `r_i = (f_i - y_i) / sigma_i`, `sum r_i^2` is chi-squared. With
+    /// `sigma_x` in the data (errors in x), the effective variance
+    /// `sigma_i^2 + (df/dx)^2 sigma_x,i^2` replaces `sigma_i^2`.
+    #[default]
+    Gaussian,
+    /// Counts: the signed deviance residuals of the Poisson likelihood
+    /// (Baker and Cousins, NIM 221 (1984) 437),
+    /// `r_i = sign(mu_i - n_i) sqrt(2 (mu_i - n_i + n_i ln(n_i / mu_i)))`
+    /// (`sqrt(2 mu_i)` for `n_i = 0`), so `sum r_i^2` is the deviance.
+    Poisson,
+}
+
+impl Likelihood {
+    /// Name of the goodness-of-fit statistic `sum r_i^2`: `"chi2"` or
+    /// `"deviance"`.
+    pub fn statistic(self) -> &'static str {
+        match self {
+            Likelihood::Gaussian => "chi2",
+            Likelihood::Poisson => "deviance",
         }
     }
 }
@@ -113,6 +148,9 @@ pub struct FitOptions {
     /// refines to rounding, whatever this says.
     #[serde(default = "default_true")]
     pub stop_at_optimality: bool,
+    /// The error model (Gaussian by default; Poisson for counts).
+    #[serde(default)]
+    pub likelihood: Likelihood,
 }
 
 fn default_true() -> bool {
@@ -139,6 +177,7 @@ impl Default for FitOptions {
             covariance: CovarianceScaling::Auto,
             level: DEFAULT_LEVEL,
             stop_at_optimality: true,
+            likelihood: Likelihood::Gaussian,
         }
     }
 }
@@ -165,6 +204,9 @@ pub struct DataView<'a> {
     pub y: &'a [f64],
     /// Standard uncertainties.
     pub sigma: &'a [f64],
+    /// Standard uncertainties of the one x column (errors in x: the
+    /// effective variance); empty when x is exact.
+    pub sigma_x: &'a [f64],
 }
 
 /// Why the optimiser stopped.

@@ -1,7 +1,7 @@
 //! The reusable refit workspace and the evaluation helpers shared by the
 //! two methods.
 
-use super::{DataView, EndCheck, Method, Problem, Refit, StopReason, OPTIMALITY_TOLERANCE};
+use super::{DataView, EndCheck, Likelihood, Method, Problem, Refit, StopReason, OPTIMALITY_TOLERANCE};
 use crate::model::{ModelFn, NonFinite};
 
 /// Reusable workspace (Send). Allocation-free refits after construction for
@@ -64,6 +64,10 @@ pub struct Refitter {
     pub(crate) jd: Vec<f64>,
     /// `1 / sigma` of the current data (n).
     pub(crate) inv_sigma: Vec<f64>,
+    /// The error model of the current refit.
+    pub(crate) likelihood: Likelihood,
+    /// Buffers of the non-Gaussian error models (empty until one is used).
+    pub(crate) aux: ErrorBuffers,
     /// The model's scratch buffer.
     pub(crate) scratch: Vec<f64>,
     /// Start of the current refit (after projection into the bounds) and
@@ -128,6 +132,8 @@ impl Refitter {
             colnorm: Vec::new(),
             jd: Vec::new(),
             inv_sigma: Vec::new(),
+            likelihood: Likelihood::Gaussian,
+            aux: ErrorBuffers::default(),
             scratch: Vec::new(),
             a0: Vec::new(),
             colnorm0: Vec::new(),
@@ -224,6 +230,7 @@ impl Refitter {
             && start.len() == m
             && free.len() == m
             && data.sigma.len() == n
+            && (data.sigma_x.is_empty() || (data.sigma_x.len() == n && data.x.len() == 1))
             && data.x.iter().all(|c| c.len() == n);
         if !consistent {
             return Refit {
@@ -236,6 +243,7 @@ impl Refitter {
             };
         }
         self.resize(n, m);
+        self.likelihood = problem.options.likelihood;
         for (o, s) in self.inv_sigma.iter_mut().zip(data.sigma.iter()) {
             *o = 1.0 / s;
         }
@@ -496,11 +504,13 @@ impl Refitter {
         eval_into(
             model,
             data,
+            self.likelihood,
             &self.inv_sigma,
             &self.a,
             &mut self.values,
             &mut self.resid,
             if with_jac { Some(&mut self.jac) } else { None },
+            &mut self.aux,
             &mut self.scratch,
         )
     }
@@ -516,11 +526,13 @@ impl Refitter {
         eval_into(
             model,
             data,
+            self.likelihood,
             &self.inv_sigma,
             &self.trial,
             &mut self.trial_values,
             &mut self.trial_resid,
             if with_jac { Some(&mut self.trial_jac) } else { None },
+            &mut self.aux,
             &mut self.scratch,
         )
     }
@@ -662,10 +674,128 @@ pub(crate) fn judge(out: &mut Refit) {
     }
 }
 
+/// Per-point buffers of the error models other than plain Gaussian: the
+/// residuals' derivative with respect to the model value (Poisson) or the
+/// effective weights `1 / sqrt(V)` (errors in x), the x-slope `df/dx` and
+/// its parameter derivatives. Sized on first use, then reused.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct ErrorBuffers {
+    /// `d r_i / d f_i` (n).
+    pub(crate) dres: Vec<f64>,
+    /// `df/dx` (n).
+    pub(crate) slope: Vec<f64>,
+    /// `d2f / dx da_j` (n x m, column-major).
+    pub(crate) dslope: Vec<f64>,
+}
+
 /// Evaluates values, weighted residuals and (optionally) the weighted
-/// Jacobian at `params`; returns chi2. `inv_sigma` is `1 / data.sigma`.
+/// Jacobian (the Jacobian of the residuals) at `params`; returns
+/// `sum r_i^2` (chi2, or the deviance for Poisson counts). `inv_sigma` is
+/// `1 / data.sigma`; `aux` holds the buffers of the non-Gaussian error
+/// models (`aux.dres` receives `d r_i / d f_i`, for errors in x the
+/// effective weights `1 / sqrt(V_i)`). A residual that is not finite (for counts: a
+/// model value `<= 0`) is reported as [`NonFinite`], which the methods
+/// treat as a rejected step.
 #[allow(clippy::too_many_arguments)] // buffers passed apart so the caller can split borrows
 pub(crate) fn eval_into(
+    model: &dyn ModelFn,
+    data: &DataView,
+    likelihood: Likelihood,
+    inv_sigma: &[f64],
+    params: &[f64],
+    values: &mut [f64],
+    resid: &mut [f64],
+    jac: Option<&mut Vec<f64>>,
+    aux: &mut ErrorBuffers,
+    scratch: &mut Vec<f64>,
+) -> Result<f64, NonFinite> {
+    let n = values.len();
+    if aux.dres.len() != n && (likelihood != Likelihood::Gaussian || !data.sigma_x.is_empty()) {
+        aux.dres.resize(n, 0.0);
+    }
+    match likelihood {
+        Likelihood::Gaussian if data.sigma_x.is_empty() => {
+            eval_gaussian(model, data, inv_sigma, params, values, resid, jac, scratch)
+        }
+        Likelihood::Gaussian => {
+            eval_effective(model, data, inv_sigma, params, values, resid, jac, aux, scratch)
+        }
+        Likelihood::Poisson => eval_poisson(model, data, params, values, resid, jac, &mut aux.dres, scratch),
+    }
+}
+
+/// Errors in x: the effective-variance residuals `r = (f - y) / sqrt(V)`,
+/// `V = sigma_y^2 + (df/dx)^2 sigma_x^2` (Orear, Am. J. Phys. 50 (1982)
+/// 912), with their exact Jacobian including the parameter dependence of
+/// `V`: `dr/da_j = (df/da_j) / sqrt(V) - r (df/dx) sigma_x^2
+/// (d2f/dx da_j) / V`.
+#[allow(clippy::too_many_arguments)]
+fn eval_effective(
+    model: &dyn ModelFn,
+    data: &DataView,
+    inv_sigma: &[f64],
+    params: &[f64],
+    values: &mut [f64],
+    resid: &mut [f64],
+    mut jac: Option<&mut Vec<f64>>,
+    aux: &mut ErrorBuffers,
+    scratch: &mut Vec<f64>,
+) -> Result<f64, NonFinite> {
+    let n = values.len();
+    let m = model.n_params();
+    if aux.slope.len() != n {
+        aux.slope.resize(n, 0.0);
+    }
+    match jac.as_mut() {
+        Some(j) => {
+            if aux.dslope.len() != n * m {
+                aux.dslope.resize(n * m, 0.0);
+            }
+            model.eval(params, data.x, values, Some(j.as_mut_slice()), scratch)?
+        }
+        None => model.eval(params, data.x, values, None, scratch)?,
+    }
+    let dslope = if jac.is_some() {
+        Some(aux.dslope.as_mut_slice())
+    } else {
+        None
+    };
+    match model.eval_x_slope(params, data.x, &mut aux.slope, dslope, scratch) {
+        Some(r) => r?,
+        // No x-slope: the checked entry points refuse this before.
+        None => return Err(NonFinite { point: 0 }),
+    }
+    let mut chi2 = 0.0;
+    for i in 0..n {
+        let sy = 1.0 / inv_sigma[i];
+        let sx = data.sigma_x[i];
+        let s = aux.slope[i];
+        let w = 1.0 / (sy * sy + s * s * sx * sx).sqrt();
+        let r = (values[i] - data.y[i]) * w;
+        resid[i] = r;
+        aux.dres[i] = w;
+        chi2 += r * r;
+    }
+    if let Some(j) = jac {
+        for (col, dcol) in j
+            .chunks_exact_mut(n.max(1))
+            .take(m)
+            .zip(aux.dslope.chunks_exact(n.max(1)))
+        {
+            for i in 0..n {
+                let w = aux.dres[i];
+                let sx = data.sigma_x[i];
+                col[i] = col[i] * w - resid[i] * aux.slope[i] * sx * sx * dcol[i] * w * w;
+            }
+        }
+    }
+    finish_sum(chi2, resid)
+}
+
+/// The Gaussian residuals `(f - y) / sigma` (the ordinary weighted least
+/// squares, unchanged hot path).
+#[allow(clippy::too_many_arguments)]
+fn eval_gaussian(
     model: &dyn ModelFn,
     data: &DataView,
     inv_sigma: &[f64],
@@ -694,6 +824,48 @@ pub(crate) fn eval_into(
         resid[i] = r;
         chi2 += r * r;
     }
+    finish_sum(chi2, resid)
+}
+
+/// The Poisson deviance residuals of the counts `y` at the model values
+/// `mu = f`, and the Jacobian `d r / d a = (d r / d mu) (d f / d a)`.
+#[allow(clippy::too_many_arguments)]
+fn eval_poisson(
+    model: &dyn ModelFn,
+    data: &DataView,
+    params: &[f64],
+    values: &mut [f64],
+    resid: &mut [f64],
+    mut jac: Option<&mut Vec<f64>>,
+    dres: &mut [f64],
+    scratch: &mut Vec<f64>,
+) -> Result<f64, NonFinite> {
+    let n = values.len();
+    match jac.as_mut() {
+        Some(j) => model.eval(params, data.x, values, Some(j.as_mut_slice()), scratch)?,
+        None => model.eval(params, data.x, values, None, scratch)?,
+    }
+    let mut dev = 0.0;
+    for i in 0..n {
+        let (r, dr) = poisson_residual(values[i], data.y[i]);
+        resid[i] = r;
+        dres[i] = dr;
+        dev += r * r;
+    }
+    if let Some(j) = jac {
+        let m = j.len() / n.max(1);
+        for col in j.chunks_exact_mut(n.max(1)).take(m) {
+            for (v, w) in col.iter_mut().zip(dres.iter()) {
+                *v *= w;
+            }
+        }
+    }
+    finish_sum(dev, resid)
+}
+
+/// `Ok(sum)` when the sum of squared residuals is finite, else the point
+/// to blame.
+fn finish_sum(chi2: f64, resid: &[f64]) -> Result<f64, NonFinite> {
     if chi2.is_finite() {
         Ok(chi2)
     } else {
@@ -713,5 +885,88 @@ pub(crate) fn eval_into(
                     .unwrap_or(0)
             });
         Err(NonFinite { point })
+    }
+}
+
+/// The signed deviance residual of a count `n >= 0` at the Poisson mean
+/// `mu` and its derivative with respect to `mu` (Baker and Cousins, NIM
+/// 221 (1984) 437, eq. for the Poisson likelihood ratio):
+/// `r = sign(mu - n) sqrt(2 (mu - n + n ln(n / mu)))`, `r = sqrt(2 mu)` for
+/// `n = 0`, so that `r^2` is the point's deviance.
+///
+/// Written with `t = (mu - n) / n` as `r = t sqrt(n h(t))`,
+/// `dr/dmu = 1 / ((1 + t) sqrt(n h(t)))`, `h(t) = 2 (t - ln(1 + t)) / t^2`
+/// (its Taylor series for `|t| < 0.01`), which has no cancellation and the
+/// right limit `dr/dmu -> 1 / sqrt(mu)` at `mu = n`. `mu <= 0` (or not a
+/// number) gives NaN: a rejected step.
+pub fn poisson_residual(mu: f64, n: f64) -> (f64, f64) {
+    if !(mu.is_finite() && mu > 0.0) {
+        return (f64::NAN, f64::NAN);
+    }
+    if n == 0.0 {
+        let r = (2.0 * mu).sqrt();
+        return (r, 1.0 / r);
+    }
+    let t = (mu - n) / n;
+    let h = if t.abs() < 0.01 {
+        // 2 sum_{k >= 2} (-1)^k t^(k-2) / k, through t^8 (error below 1e-19).
+        let c = [
+            1.0 / 2.0,
+            -1.0 / 3.0,
+            1.0 / 4.0,
+            -1.0 / 5.0,
+            1.0 / 6.0,
+            -1.0 / 7.0,
+            1.0 / 8.0,
+            -1.0 / 9.0,
+            1.0 / 10.0,
+        ];
+        2.0 * c.iter().rev().fold(0.0, |acc, ck| acc * t + ck)
+    } else {
+        2.0 * (t - t.ln_1p()) / (t * t)
+    };
+    let s = (n * h).sqrt();
+    (t * s, 1.0 / ((1.0 + t) * s))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::poisson_residual;
+
+    #[test]
+    fn deviance_residual_identities() {
+        // Definition (Baker and Cousins 1984): r^2 = 2 (mu - n + n ln(n/mu)),
+        // sign of mu - n; n = 0 gives 2 mu.
+        for &(mu, n) in &[(3.0, 7.0), (12.5, 4.0), (0.2, 1.0), (40.0, 39.0), (5.0, 5.05)] {
+            let (r, dr) = poisson_residual(mu, n);
+            let d: f64 = 2.0 * (mu - n + n * (n / mu).ln());
+            assert!((r * r - d).abs() <= 1e-12 * d.max(1e-3), "{mu} {n}");
+            assert_eq!(r.signum(), (mu - n).signum());
+            // dr/dmu = (1 - n/mu) / r (differentiating r^2 = D).
+            assert!((dr - (1.0 - n / mu) / r).abs() <= 1e-10 * dr.abs());
+        }
+        let (r, dr) = poisson_residual(2.0, 0.0);
+        assert_eq!((r, dr), (2.0, 0.5));
+        // At mu = n: r = 0 and dr/dmu = 1/sqrt(mu) (the limit of (1 - n/mu)/r).
+        let (r, dr) = poisson_residual(9.0, 9.0);
+        assert_eq!(r, 0.0);
+        assert!((dr - 1.0 / 3.0).abs() < 1e-15);
+        // Continuity across the series/direct switch at |t| = 0.01, and
+        // against a central difference of r in mu.
+        for &mu in &[
+            9.0 * 1.0099,
+            9.0 * 1.0101,
+            9.0 * 0.9901,
+            9.0 * 0.9899,
+            9.0 * 1.0000001,
+        ] {
+            let (_, dr) = poisson_residual(mu, 9.0);
+            let h = 1e-6;
+            let num = (poisson_residual(mu + h, 9.0).0 - poisson_residual(mu - h, 9.0).0) / (2.0 * h);
+            assert!((dr - num).abs() < 1e-8, "{mu}: {dr} vs {num}");
+        }
+        // mu <= 0 where a count exists: not finite (a rejected step).
+        assert!(poisson_residual(0.0, 3.0).0.is_nan());
+        assert!(poisson_residual(-1.0, 0.0).0.is_nan());
     }
 }

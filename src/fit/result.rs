@@ -3,7 +3,7 @@
 
 use super::covariance::{analyse_jacobian, significant};
 use super::refitter::{eval_into, Refitter};
-use super::{CovarianceScaling, DataView, EndCheck, Problem, Refit, StopReason};
+use super::{CovarianceScaling, DataView, EndCheck, Likelihood, Problem, Refit, StopReason};
 use crate::data::Dataset;
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF, Normal, StudentsT};
@@ -84,6 +84,22 @@ pub enum EndIssue {
 /// diagnostics of the linearised problem at the solution.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct FitResult {
+    /// The error model the fit minimised (`gaussian` or `poisson`).
+    #[serde(default)]
+    pub likelihood: Likelihood,
+    /// Name of the goodness-of-fit statistic in `chi2`: `"chi2"` (Gaussian)
+    /// or `"deviance"` (Poisson).
+    #[serde(default = "default_statistic")]
+    pub statistic: String,
+    /// For a Poisson fit, how many counts are small (the chi-squared
+    /// approximation of the deviance's distribution is then doubtful).
+    #[serde(default)]
+    pub small_counts: Option<SmallCounts>,
+    /// The data carry `sigma_x` (errors in x): `chi2` is the
+    /// effective-variance chi-squared `sum (y - f)^2 / (sigma^2 + (df/dx)^2
+    /// sigma_x^2)` and `residuals` are normalised by the effective sigma.
+    #[serde(default)]
+    pub errors_in_x: bool,
     /// True only when the end point passed the first-order optimality test
     /// (the Gauss-Newton step promises no chi2 reduction above
     /// [`super::OPTIMALITY_TOLERANCE`]^2 chi2 units) and no parameter is on
@@ -95,7 +111,8 @@ pub struct FitResult {
     pub iterations: usize,
     /// Model evaluations.
     pub evaluations: usize,
-    /// Chi-squared at the solution.
+    /// Chi-squared at the solution (for a Poisson fit the deviance, see
+    /// `statistic`).
     pub chi2: f64,
     /// Degrees of freedom: points minus parameters not fixed.
     pub dof: usize,
@@ -106,7 +123,8 @@ pub struct FitResult {
     /// where chi2 is a plain sum of squares and has no chi-squared
     /// distribution in known units.
     pub p_value: Option<f64>,
-    /// Whether the data state sigma.
+    /// Whether the noise level is known: the data state sigma, or the
+    /// fit is a Poisson fit (the variance of a count is its mean).
     pub sigma_given: bool,
     /// Confidence level of the analytic interval.
     pub level: f64,
@@ -146,6 +164,49 @@ pub struct FitResult {
     /// Diagonal of the hat matrix of the weighted Jacobian (estimated
     /// parameters).
     pub leverage: Vec<f64>,
+}
+
+fn default_statistic() -> String {
+    "chi2".to_string()
+}
+
+/// Counts below this are small for the warning of [`SmallCounts`]
+/// (common practice for the chi-squared approximation, e.g. the rule of
+/// thumb that expected counts should be at least 5; no single source).
+pub const SMALL_COUNT: f64 = 5.0;
+
+/// The share of small counts above which the deviance's p-value is
+/// flagged as unreliable (our documented rule: more than 20 % of the bins
+/// below [`SMALL_COUNT`]).
+pub const SMALL_COUNT_SHARE: f64 = 0.2;
+
+/// The small-count check of a Poisson fit's goodness of fit.
+#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq)]
+pub struct SmallCounts {
+    /// Bins with a count below [`SMALL_COUNT`].
+    pub below: usize,
+    /// All bins.
+    pub bins: usize,
+    /// `below / bins`.
+    pub share: f64,
+    /// `share > SMALL_COUNT_SHARE`: the p-value of the deviance from the
+    /// chi-squared approximation may be far off.
+    pub warning: bool,
+}
+
+impl SmallCounts {
+    /// The check of the counts `y`.
+    pub fn of(y: &[f64]) -> SmallCounts {
+        let below = y.iter().filter(|&&v| v < SMALL_COUNT).count();
+        let bins = y.len();
+        let share = if bins > 0 { below as f64 / bins as f64 } else { 0.0 };
+        SmallCounts {
+            below,
+            bins,
+            share,
+            warning: share > SMALL_COUNT_SHARE,
+        }
+    }
 }
 
 /// One parameter of a [`FitResult`].
@@ -216,6 +277,41 @@ pub enum FitError {
         /// The offending value.
         value: f64,
     },
+    /// A count of a Poisson fit that is negative or not an integer.
+    #[error("data point {} has count {value}; counts must be whole numbers >= 0", point + 1)]
+    InvalidCount {
+        /// 0-based point index.
+        point: usize,
+        /// The offending value.
+        value: f64,
+    },
+    /// A Poisson fit was given sigma (the counts' variance is their mean).
+    #[error("a Poisson fit takes no sigma: the variance of a count is its mean")]
+    SigmaWithCounts,
+    /// Errors in x with more or fewer than one x column.
+    #[error("errors in x (sigma_x) need exactly one x column; the data have {columns}")]
+    XErrorsNeedOneX {
+        /// Number of x columns.
+        columns: usize,
+    },
+    /// Errors in x in a Poisson fit.
+    #[error("errors in x (sigma_x) apply to Gaussian fits only, not to a Poisson fit")]
+    XErrorsWithCounts,
+    /// Errors in x without sigma of y.
+    #[error("errors in x (sigma_x) need the standard uncertainty of y (sigma) too")]
+    XErrorsNeedSigma,
+    /// A sigma_x that is negative or not finite.
+    #[error("data point {} has sigma_x {value}; sigma_x must be finite and >= 0", point + 1)]
+    InvalidSigmaX {
+        /// 0-based point index.
+        point: usize,
+        /// The offending value.
+        value: f64,
+    },
+    /// The model has no exact x-slope (a native model without
+    /// [`crate::model::ModelFn::eval_x_slope`]).
+    #[error("the model gives no df/dx, which errors in x (sigma_x) need; use a formula or implement ModelFn::eval_x_slope")]
+    NoXSlope,
     /// Bounds in the wrong order, or not numbers.
     #[error("parameter {name}: bounds [{min}, {max}] are not an interval")]
     InvalidBounds {
@@ -279,20 +375,24 @@ pub fn fit_from(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<FitR
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: data.sigma_x.as_deref().unwrap_or(&[]),
     };
     let m = problem.params.len();
     // The start must be finite.
     let mut values = vec![0.0; data.len()];
     let mut resid = vec![0.0; data.len()];
     let mut scratch = Vec::new();
+    let mut aux = super::refitter::ErrorBuffers::default();
     eval_into(
         problem.model,
         &view,
+        problem.options.likelihood,
         &inv_sigma,
         start,
         &mut values,
         &mut resid,
         None,
+        &mut aux,
         &mut scratch,
     )
     .map_err(|e| FitError::NotFiniteAtStart { point: e.point })?;
@@ -493,6 +593,49 @@ fn check(problem: &Problem, data: &Dataset, start: &[f64]) -> Result<(), FitErro
             column: data.y_name.clone(),
         });
     }
+    if problem.options.likelihood == Likelihood::Poisson {
+        if let Some(point) = data.y.iter().position(|v| !(*v >= 0.0 && v.fract() == 0.0)) {
+            return Err(FitError::InvalidCount {
+                point,
+                value: data.y[point],
+            });
+        }
+        if data.sigma.is_some() {
+            return Err(FitError::SigmaWithCounts);
+        }
+    }
+    if let Some(sx) = &data.sigma_x {
+        if data.x.len() != 1 {
+            return Err(FitError::XErrorsNeedOneX {
+                columns: data.x.len(),
+            });
+        }
+        if problem.options.likelihood == Likelihood::Poisson {
+            return Err(FitError::XErrorsWithCounts);
+        }
+        if data.sigma.is_none() {
+            return Err(FitError::XErrorsNeedSigma);
+        }
+        if sx.len() != n {
+            return Err(mismatch("length of sigma_x", n, sx.len()));
+        }
+        if let Some(point) = sx.iter().position(|v| !(v.is_finite() && *v >= 0.0)) {
+            return Err(FitError::InvalidSigmaX {
+                point,
+                value: sx[point],
+            });
+        }
+        let mut slope = vec![0.0; n];
+        let mut scratch = Vec::new();
+        let xs = data.x_slices();
+        if problem
+            .model
+            .eval_x_slope(start, &xs, &mut slope, None, &mut scratch)
+            .is_none()
+        {
+            return Err(FitError::NoXSlope);
+        }
+    }
     if let Some(s) = &data.sigma {
         if s.len() != n {
             return Err(mismatch("length of sigma", n, s.len()));
@@ -552,22 +695,56 @@ pub fn analyse(
         x: &xs,
         y: &data.y,
         sigma: &sigma,
+        sigma_x: data.sigma_x.as_deref().unwrap_or(&[]),
     };
     let mut values = vec![0.0; n];
     let mut resid = vec![0.0; n];
     let mut jac = vec![0.0; n * m];
     let mut scratch = Vec::new();
+    let mut aux = super::refitter::ErrorBuffers::default();
+    let likelihood = problem.options.likelihood;
     let chi2 = eval_into(
         problem.model,
         &view,
+        likelihood,
         &inv_sigma,
         params,
         &mut values,
         &mut resid,
         Some(&mut jac),
+        &mut aux,
         &mut scratch,
     )
     .map_err(|e| FitError::NotFinite { point: e.point })?;
+    if likelihood == Likelihood::Poisson {
+        // The covariance comes from the Fisher information
+        // `J^T diag(1/mu) J` of the Poisson likelihood, not from the
+        // Jacobian of the deviance residuals (which equals it only where
+        // mu = n): rows `d f / d a / sqrt(mu)`.
+        for j in 0..m {
+            for i in 0..n {
+                let col = jac[j * n + i] / aux.dres[i];
+                jac[j * n + i] = col / values[i].sqrt();
+            }
+        }
+    }
+    if !view.sigma_x.is_empty() {
+        // Errors in x: the covariance from the effective-variance weights
+        // at the solution, rows `d f / d a / sqrt(V)` (Orear 1982); the
+        // parameter dependence of V shapes the minimum, not the curvature
+        // used for the standard errors.
+        let mut raw = vec![0.0; n * m];
+        let mut v = vec![0.0; n];
+        problem
+            .model
+            .eval(params, &xs, &mut v, Some(&mut raw), &mut scratch)
+            .map_err(|e| FitError::NotFinite { point: e.point })?;
+        for j in 0..m {
+            for i in 0..n {
+                jac[j * n + i] = raw[j * n + i] * aux.dres[i];
+            }
+        }
+    }
     if let Some(idx) = jac.iter().position(|v| !v.is_finite()) {
         return Err(FitError::NotFinite {
             point: idx % n.max(1),
@@ -593,7 +770,9 @@ pub fn analyse(
     let n_free = problem.params.iter().filter(|p| !p.fixed).count();
     let dof = n.saturating_sub(n_free);
     let reduced_chi2 = if dof > 0 { chi2 / dof as f64 } else { 0.0 };
-    let sigma_given = data.has_sigma();
+    let poisson = likelihood == Likelihood::Poisson;
+    // Counts state their variance (the mean): the noise level is known.
+    let sigma_given = data.has_sigma() || poisson;
     let p_value = if !sigma_given {
         None
     } else if dof > 0 {
@@ -670,7 +849,12 @@ pub fn analyse(
                 .collect()
         })
         .collect();
+    let small_counts = poisson.then(|| SmallCounts::of(&data.y));
     let mut result = FitResult {
+        likelihood,
+        statistic: likelihood.statistic().to_string(),
+        small_counts,
+        errors_in_x: !view.sigma_x.is_empty(),
         converged: refit.converged,
         stop_reason: refit.stop,
         iterations: refit.iterations,

@@ -65,6 +65,7 @@ mod ops;
 mod parser;
 mod second;
 mod tape;
+mod xslope;
 
 pub use joint::{JointModel, JointPart};
 pub use parser::MAX_DEPTH;
@@ -111,6 +112,25 @@ pub trait ModelFn: Sync {
     /// then falls back to the start's magnitude.
     fn positions(&self) -> Vec<Option<usize>> {
         Vec::new()
+    }
+
+    /// Errors in x: `df/dx` at every point into `slope` and, when given,
+    /// the mixed derivatives `d2f / dx da_j` into column `j` of `dslope`
+    /// (column-major, `n * n_params`), for a model with one independent
+    /// variable. None when the model cannot say (the default: a native
+    /// model has no exact x-slope, and a fit with `sigma_x` is refused
+    /// with [`crate::fit::FitError::NoXSlope`]); compiled formulas with one
+    /// x column always can.
+    fn eval_x_slope(
+        &self,
+        params: &[f64],
+        x: &[&[f64]],
+        slope: &mut [f64],
+        dslope: Option<&mut [f64]>,
+        scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
+        let _ = (params, x, slope, dslope, scratch);
+        None
     }
 
     /// Exact second derivatives with respect to the parameters, when the
@@ -326,6 +346,8 @@ pub struct Tape {
     positions: Vec<Option<usize>>,
     value_prog: tape::Program,
     full_prog: tape::Program,
+    /// `[df/dx, d2f/dx da_j ...]` for one x column (errors in x).
+    x_slope_prog: Option<xslope::XSlope>,
     second: second::Second,
 }
 
@@ -422,6 +444,17 @@ impl ModelFn for Tape {
         self.positions.clone()
     }
 
+    fn eval_x_slope(
+        &self,
+        params: &[f64],
+        x: &[&[f64]],
+        slope: &mut [f64],
+        dslope: Option<&mut [f64]>,
+        scratch: &mut Vec<f64>,
+    ) -> Option<Result<(), NonFinite>> {
+        self.eval_x_slope_program(params, x, slope, dslope, scratch)
+    }
+
     /// Symbolic second derivatives ([`Tape::eval_hessian`]).
     fn hessian(
         &self,
@@ -456,6 +489,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
     }
     let value_prog = tape::Program::lower(&g, &roots[..1]);
     let full_prog = tape::Program::lower(&g, &roots);
+    let x_slope_prog = (symbols.variables.len() == 1).then(|| xslope::lower(&mut g, &roots));
     let second = second::Second::new(g, roots, used.clone());
     Ok(Tape {
         formula: formula.to_string(),
@@ -465,6 +499,7 @@ pub fn compile(formula: &str, symbols: &Symbols) -> Result<Tape, ModelError> {
         positions,
         value_prog,
         full_prog,
+        x_slope_prog,
         second,
     })
 }

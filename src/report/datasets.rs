@@ -11,32 +11,42 @@ pub const NOTE: &str = "One joint fit: every parameter listed once, a parameter 
 formulas (marked *) shared. The chi2 contributions add up to the joint chi2 and the dof shares to the \
 joint degrees of freedom (each free parameter counts 1/k towards each of the k data sets using it). A \
 contribution per dof share far from the joint value means the data sets disagree with the model or \
-with their sigma: look at that data set's fit figure before quoting the shared parameters.";
+with their sigma: look at that data set's fit figure before quoting the shared parameters. In a Poisson \
+fit the contributions are those of the deviance.";
 
 /// Name, formula, points, parameters (shared ones starred), chi2, share
 /// of the joint chi2, dof share and chi2 per dof share; one row per data
 /// set (no rows for a study of one data set).
 pub fn table(results: &AuditResults) -> Table {
-    table_of(&results.datasets, results.fit.sigma_given)
+    let poisson = results.fit.likelihood == crate::fit::Likelihood::Poisson;
+    table_for(&results.datasets, results.fit.sigma_given, poisson)
 }
 
 /// [`table`] from the shares themselves (for `fitaudit fit`).
 pub fn table_of(shares: &[DatasetShare], sigma: bool) -> Table {
+    table_for(shares, sigma, false)
+}
+
+/// [`table_of`] naming the statistic: with `poisson` the contributions are
+/// those of the deviance (a Poisson fit), headed so.
+pub fn table_for(shares: &[DatasetShare], sigma: bool, poisson: bool) -> Table {
+    let (stat, per) = if poisson {
+        ("Deviance", "Deviance / dof share")
+    } else if sigma {
+        ("chi2", "chi2 / dof share")
+    } else {
+        ("Sum of squares", "Sum / dof share")
+    };
     Table {
         header: vec![
             "Data set".into(),
             "Formula".into(),
             "Points".into(),
             "Parameters".into(),
-            if sigma { "chi2" } else { "Sum of squares" }.into(),
+            stat.into(),
             "Share of total".into(),
             "dof share".into(),
-            if sigma {
-                "chi2 / dof share"
-            } else {
-                "Sum / dof share"
-            }
-            .into(),
+            per.into(),
         ],
         rows: shares
             .iter()

@@ -245,21 +245,32 @@ pub fn sentence(f: &Finding) -> String {
         ),
         Rule::GoodnessOfFit => {
             let b = n("birge_ratio");
+            let stat = if has("deviance") { "deviance" } else { "chi2" };
             let head = format!(
-                "chi2 = {} for {} degrees of freedom (two-tailed {}, Birge ratio sqrt(chi2/dof) = {})",
+                "{stat} = {} for {} degrees of freedom (two-tailed {}, Birge ratio sqrt({stat}/dof) = {})",
                 num(n("chi2")),
                 num(n("dof")),
                 p_phrase(n("p_value")),
                 fixed2(b)
             );
-            if f.status == Status::Holds {
+            if f.status == Status::Holds && has("deviance") {
+                format!("{head}: the scatter agrees with Poisson counts")
+            } else if f.status == Status::Holds {
                 format!("{head}: the scatter agrees with the stated sigma")
             } else {
-                format!(
-                    "{head}: scaling the covariance by chi2/dof would multiply u by {}; either the stated \
-                     sigma or the model is wrong",
-                    fixed2(b)
-                )
+                if has("deviance") {
+                    format!(
+                        "{head}: scaling the covariance by deviance/dof would multiply u by {}; either the \
+                         counts scatter more than Poisson counts (over-dispersion) or the model is wrong",
+                        fixed2(b)
+                    )
+                } else {
+                    format!(
+                        "{head}: scaling the covariance by chi2/dof would multiply u by {}; either the stated \
+                         sigma or the model is wrong",
+                        fixed2(b)
+                    )
+                }
             }
         }
         Rule::Coverage => {
@@ -314,6 +325,23 @@ pub fn reasons(v: &Verdict) -> Vec<String> {
             .map(sentence)
             .collect()
     }
+}
+
+/// [`reasons`] for a fit whose statistic is `statistic` (`"chi2"` or
+/// `"deviance"`, [`crate::fit::FitResult::statistic`]): for the deviance
+/// of a Poisson fit the sentences name the deviance.
+pub fn reasons_with(v: &Verdict, statistic: &str) -> Vec<String> {
+    let out = reasons(v);
+    if statistic != "deviance" {
+        return out;
+    }
+    out.into_iter()
+        .map(|t| {
+            t.replace("chi-squared profile", "deviance profile")
+                .replace("chi-squared surface", "deviance surface")
+                .replace("chi2 = ", "deviance = ")
+        })
+        .collect()
 }
 
 /// Why no interval is quoted, in words.

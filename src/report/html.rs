@@ -221,7 +221,7 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     );
     o.push_str("<table>\n<thead><tr><th scope=\"col\">Parameter</th><th scope=\"col\">Quote</th><th scope=\"col\">Verdict</th><th scope=\"col\">Reasons</th></tr></thead>\n<tbody>\n");
     for v in &results.verdicts {
-        let texts = findings::reasons(v);
+        let texts = findings::reasons_with(v, &results.fit.statistic);
         let reasons = if texts.is_empty() {
             format::ABSENT.to_string()
         } else if texts.len() == 1 {
@@ -240,7 +240,7 @@ pub fn page(results: &AuditResults, figures: &Figures) -> String {
     }
     for d in &results.derived {
         let v = &d.verdict;
-        let texts = findings::reasons(v);
+        let texts = findings::reasons_with(v, &results.fit.statistic);
         let reasons = if texts.is_empty() {
             format::ABSENT.to_string()
         } else {

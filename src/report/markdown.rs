@@ -137,6 +137,9 @@ pub fn summary(results: &AuditResults) -> String {
     for line in tables::end_issue_words(f) {
         let _ = writeln!(o, "\nAt the end point: {}.", escape(&line));
     }
+    if let Some(w) = tables::small_counts_warning(f) {
+        let _ = writeln!(o, "\nSmall counts: {}.", escape(&w));
+    }
     if !results.datasets.is_empty() {
         o.push_str("\n## Data sets\n\n");
         o.push_str(&table(&crate::report::datasets::table(results)));

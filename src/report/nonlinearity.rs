@@ -45,6 +45,12 @@ pub fn not_available_words(why: NotAvailable) -> &'static str {
             "not available: without sigma and without degrees of freedom the noise scale is unknown"
         }
         NotAvailable::NotFinite => "not available: the model or its derivatives are not finite at the solution",
+        NotAvailable::PoissonLikelihood => {
+            "not available for a Poisson fit: the curvature measures and Box's bias assume Gaussian weighted least squares with fixed weights"
+        }
+        NotAvailable::ErrorsInX => {
+            "not available with errors in x: the effective-variance weights depend on the parameters, which the curvature measures and Box's bias do not allow for"
+        }
     }
 }
 

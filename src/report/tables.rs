@@ -10,7 +10,7 @@ use crate::diagnostics::inverse::InverseProblem;
 use crate::diagnostics::profile::EndStatus;
 use crate::diagnostics::resample::{BcaWithheld, ResampleResult, ResampledParameter};
 use crate::diagnostics::verdict::Status;
-use crate::fit::{CoverageBasis, EndIssue, FitResult, ParamResult, StopReason};
+use crate::fit::{CoverageBasis, EndIssue, FitResult, Likelihood, ParamResult, StopReason};
 use crate::report::{findings, format};
 use crate::settings::{BootstrapScheme, WildWeights};
 
@@ -62,7 +62,11 @@ pub fn p_value_text(fit: &FitResult) -> String {
 
 /// Label of chi2: a chi-squared with stated sigma, a sum of squares without.
 pub fn chi2_label(fit: &FitResult) -> &'static str {
-    if fit.sigma_given {
+    if fit.likelihood == Likelihood::Poisson {
+        "Deviance (Poisson likelihood ratio)"
+    } else if fit.errors_in_x {
+        "Chi-squared (effective variance, errors in x)"
+    } else if fit.sigma_given {
         "Chi-squared"
     } else {
         "Sum of squared residuals (no sigma given)"
@@ -72,7 +76,9 @@ pub fn chi2_label(fit: &FitResult) -> &'static str {
 /// Label and value of `chi2 / dof`: the reduced chi-squared with stated
 /// sigma, the residual variance `s^2` without.
 pub fn dispersion(fit: &FitResult) -> (&'static str, String) {
-    if fit.sigma_given {
+    if fit.likelihood == Likelihood::Poisson {
+        ("Deviance / dof", format::sig(fit.reduced_chi2, 4))
+    } else if fit.sigma_given {
         (
             "Reduced chi-squared (chi-squared / dof)",
             format::sig(fit.reduced_chi2, 4),
@@ -146,7 +152,7 @@ pub fn verdicts(results: &AuditResults) -> Table {
             .verdicts
             .iter()
             .map(|v| {
-                let reasons = findings::reasons(v);
+                let reasons = findings::reasons_with(v, &results.fit.statistic);
                 vec![
                     v.parameter.clone(),
                     findings::quote_cell(results, v),
@@ -160,7 +166,7 @@ pub fn verdicts(results: &AuditResults) -> Table {
             })
             .chain(results.derived.iter().map(|d| {
                 let v = &d.verdict;
-                let reasons = findings::reasons(v);
+                let reasons = findings::reasons_with(v, &results.fit.statistic);
                 vec![
                     format!("{} (derived)", d.name),
                     findings::quote_text(v, Some(d.value), d.std_error),
@@ -394,13 +400,36 @@ pub fn expanded(p: &ParamResult) -> String {
     }
 }
 
+/// The warning on a Poisson fit with many small counts, if it applies.
+pub fn small_counts_warning(fit: &FitResult) -> Option<String> {
+    let sc = fit.small_counts?;
+    sc.warning.then(|| {
+        format!(
+            "{} of {} bins ({}) hold fewer than {} counts: the chi-squared approximation of the deviance's \
+             distribution is unreliable there, so its p-value is only indicative and the goodness-of-fit rule \
+             does not vote",
+            sc.below,
+            sc.bins,
+            format::percent(sc.share, 2),
+            crate::fit::SMALL_COUNT
+        )
+    })
+}
+
 /// Goodness of fit as (quantity, value) pairs.
 pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
     let mut out = vec![
         (s(chi2_label(fit)), format::chi2(fit.chi2)),
         (s("Degrees of freedom"), fit.dof.to_string()),
         (s(dispersion(fit).0), dispersion(fit).1),
-        (s("p-value, P(chi-squared_dof > observed)"), p_value_text(fit)),
+        (
+            s(if fit.likelihood == Likelihood::Poisson {
+                "p-value, P(chi-squared_dof > deviance) (chi-squared approximation)"
+            } else {
+                "p-value, P(chi-squared_dof > observed)"
+            }),
+            p_value_text(fit),
+        ),
         (s("Coverage factor k of value +- k u"), coverage_words(fit)),
         (
             s("Condition number of the weighted Jacobian"),
@@ -415,6 +444,8 @@ pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
             s("Covariance"),
             s(if fit.covariance_scaled {
                 "scaled by the reduced chi-squared"
+            } else if fit.likelihood == Likelihood::Poisson {
+                "absolute (Fisher information of the Poisson likelihood)"
             } else {
                 "absolute (from the stated uncertainties)"
             }),
@@ -434,6 +465,9 @@ pub fn goodness(fit: &FitResult) -> Vec<(String, String)> {
     ];
     for line in end_issue_words(fit) {
         out.push((s("At the end point"), line));
+    }
+    if let Some(w) = small_counts_warning(fit) {
+        out.push((s("Small counts"), w));
     }
     for (k, dir) in fit.undetermined.iter().enumerate() {
         let terms: Vec<String> = dir
@@ -852,6 +886,7 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
     let study = &results.study;
     let none = || s(format::ABSENT);
     let ran: Vec<&str> = results.diagnostics_run.iter().map(|d| d.cli_name()).collect();
+    let poisson = results.fit.likelihood == Likelihood::Poisson;
     let mut out = vec![
         (s("Tool"), format!("{} {}", pv.tool, pv.version)),
         (s("Command line"), pv.command_line.clone()),
@@ -872,7 +907,9 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
         (s("Points"), study.points.to_string()),
         (
             s("Uncertainties of the data"),
-            s(if study.sigma_given {
+            s(if poisson {
+                "counts (Poisson likelihood: the variance of a count is its mean)"
+            } else if study.sigma_given {
                 "given (absolute covariance)"
             } else {
                 "not given (covariance scaled)"
@@ -890,7 +927,11 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
             format!(
                 "{} replicates, {}",
                 st.bootstrap.replicates,
-                scheme_word(st.bootstrap.scheme, st.bootstrap.weights)
+                if poisson && st.bootstrap.scheme == BootstrapScheme::Residual {
+                    s("parametric Poisson (counts drawn at the fitted means)")
+                } else {
+                    scheme_word(st.bootstrap.scheme, st.bootstrap.weights)
+                }
             ),
         ),
         (
@@ -899,6 +940,7 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
                 "{} trials, {} noise{}",
                 st.monte_carlo.replicates,
                 match st.monte_carlo.student_t_dof {
+                    _ if poisson => s("Poisson-count"),
                     Some(nu) => format!("Student-t ({} degrees of freedom)", format::sig(nu, 3)),
                     None => s("normal"),
                 },

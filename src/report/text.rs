@@ -96,7 +96,19 @@ pub fn fit_table(title: Option<&str>, params: &[ParamSpec], fit: &FitResult) -> 
         ]);
     }
     out.push_str(&columns(&rows, &[1, 2, 3, 4]));
-    if fit.sigma_given {
+    if fit.likelihood == crate::fit::Likelihood::Poisson {
+        let _ = writeln!(
+            out,
+            "\ndeviance = {}   dof = {}   deviance/dof = {}   p-value = {} (chi-squared approximation)",
+            format::chi2(fit.chi2),
+            fit.dof,
+            format::sig(fit.reduced_chi2, 4),
+            tables::p_value_text(fit)
+        );
+        if let Some(w) = tables::small_counts_warning(fit) {
+            let _ = writeln!(out, "WARNING: {w}");
+        }
+    } else if fit.sigma_given {
         let _ = writeln!(
             out,
             "\nchi2 = {}   dof = {}   reduced chi2 = {}   p-value = {}",
@@ -171,11 +183,11 @@ pub fn derived_table(fit: &FitResult, derived: &[crate::diagnostics::derived::De
 /// The data sets of a joint fit: points, parameters (shared ones starred),
 /// chi2 contribution, its share, dof share and chi2 per dof share; empty
 /// for one data set.
-pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool) -> String {
+pub fn datasets_table(shares: &[crate::audit::DatasetShare], sigma_given: bool, poisson: bool) -> String {
     if shares.is_empty() {
         return String::new();
     }
-    let t = crate::report::datasets::table_of(shares, sigma_given);
+    let t = crate::report::datasets::table_for(shares, sigma_given, poisson);
     // The formula is long and already printed by `check`: the terminal
     // table leaves it out; headings start in lower case as in `fit_table`.
     let without_formula = |r: &[String]| -> Vec<String> {

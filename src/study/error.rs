@@ -439,6 +439,36 @@ pub enum StudyError {
         /// The value.
         value: f64,
     },
+    /// A negative sigma_x.
+    #[error(
+        "{at}: sigma_x {value} in column {column} ({}) is negative; every x uncertainty must be >= 0",
+        header(name)
+    )]
+    BadSigmaX {
+        /// File, line, column.
+        at: Box<At>,
+        /// Column number.
+        column: usize,
+        /// Header.
+        name: String,
+        /// The value.
+        value: f64,
+    },
+    /// A count of a Poisson fit that is negative or not a whole number.
+    #[error(
+        "{at}: count {value} in column {column} ({}) is not a whole number >= 0; `fit.likelihood = \"poisson\"` needs counts",
+        header(name)
+    )]
+    BadCount {
+        /// File, line, column.
+        at: Box<At>,
+        /// Column number.
+        column: usize,
+        /// Header.
+        name: String,
+        /// The value.
+        value: f64,
+    },
     /// Fewer points than free parameters + 1.
     #[error(
         "{at}: {points} data point{} cannot fit {free} free parameters: at least {needed} points are needed",

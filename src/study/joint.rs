@@ -73,6 +73,10 @@ pub struct DatasetEntry {
     /// Standard uncertainties: a column, or one number for every point.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sigma: Option<SigmaSpec>,
+    /// Standard uncertainties of x (errors in x). Not supported in a
+    /// study of several data sets: the loader refuses it, naming the key.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sigma_x: Option<SigmaSpec>,
     /// Aliases: identifier = CSV header.
     #[serde(default, with = "spec::ordered", skip_serializing_if = "Vec::is_empty")]
     pub columns: Vec<(String, String)>,
@@ -89,6 +93,7 @@ impl DatasetEntry {
             x: self.x.clone(),
             y: self.y.clone(),
             sigma: self.sigma.clone(),
+            sigma_x: None,
             columns: self.columns.clone(),
         }
     }
@@ -197,6 +202,15 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
                 &spec,
                 &key("file"),
                 "is missing or empty: name the data file (CSV), relative to the study file",
+            ));
+        }
+        if entry.sigma_x.is_some() {
+            return Err(invalid(
+                &spec,
+                &key("sigma_x"),
+                "is not supported in a study of several [[datasets]]: errors in x (the effective \
+                 variance) apply to a single data set ([data] and [model]); remove it, or fit that \
+                 data set on its own",
             ));
         }
         if entry.x.len() > model::joint::MAX_VARS {
@@ -511,6 +525,7 @@ fn concatenate(spec: &StudySpec, reads: &[Read]) -> Dataset {
         y_name: ys.join("/"),
         y,
         sigma: with_sigma.then_some(sigma),
+        sigma_x: None,
         groups,
     }
 }

@@ -475,6 +475,38 @@ fn invalid(spec: &StudySpec, key: &str, why: impl Into<String>) -> StudyError {
     }
 }
 
+/// Settings that do not apply to the chosen error model.
+fn check_likelihood(spec: &StudySpec, options: &FitOptions) -> Result<(), StudyError> {
+    if options.likelihood != crate::fit::Likelihood::Poisson {
+        return Ok(());
+    }
+    let why = "does not apply with `fit.likelihood = \"poisson\"`";
+    if spec.audit.bootstrap.scheme == crate::settings::BootstrapScheme::Wild {
+        return Err(invalid(
+            spec,
+            "audit.bootstrap.scheme",
+            format!(
+                "\"wild\" {why}: use \"residual\" (for counts the parametric Poisson bootstrap) or \"case\""
+            ),
+        ));
+    }
+    if spec.audit.monte_carlo.student_t_dof.is_some() {
+        return Err(invalid(
+            spec,
+            "audit.monte_carlo.student_t_dof",
+            format!("{why}: the Monte Carlo draws Poisson counts; remove it"),
+        ));
+    }
+    if !spec.inverse.is_empty() {
+        return Err(invalid(
+            spec,
+            "inverse",
+            format!("{why}: inverse predictions are made for Gaussian responses only"),
+        ));
+    }
+    Ok(())
+}
+
 /// Checks everything that does not need the data: settings, parameters,
 /// constants. Returns the parameters and the optimiser settings.
 fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyError> {
@@ -485,6 +517,7 @@ fn check_spec(spec: &StudySpec) -> Result<(Vec<ParamSpec>, FitOptions), StudyErr
         .fit
         .to_options()
         .map_err(|(key, why)| invalid(spec, &key, why))?;
+    check_likelihood(spec, &options)?;
     if spec.parameters.is_empty() {
         return Err(StudyError::NoParameters {
             at: Box::new(spec.at("parameters")),
@@ -784,6 +817,14 @@ fn dataset_from_table(
     if x_idx.contains(&y_idx) {
         return Err(invalid(spec, "data.y", "names a column that is also an x column"));
     }
+    let poisson = spec.fit.likelihood == Some(crate::fit::Likelihood::Poisson);
+    if poisson && d.sigma.is_some() {
+        return Err(invalid(
+            spec,
+            "data.sigma",
+            "is not allowed with `fit.likelihood = \"poisson\"`: the variance of a count is its mean; remove data.sigma",
+        ));
+    }
     let sigma_idx = match &d.sigma {
         Some(SigmaSpec::Column(c)) => {
             let j = resolve(spec, raw, "data.sigma", c)?;
@@ -808,12 +849,73 @@ fn dataset_from_table(
         }
         None => None,
     };
+    let sigma_x_idx = match &d.sigma_x {
+        None => None,
+        Some(spec_x) => {
+            if d.x.len() != 1 {
+                return Err(invalid(
+                    spec,
+                    "data.sigma_x",
+                    format!("needs exactly one x column; data.x names {}", d.x.len()),
+                ));
+            }
+            if poisson {
+                return Err(invalid(
+                    spec,
+                    "data.sigma_x",
+                    "is not allowed with `fit.likelihood = \"poisson\"`: errors in x apply to Gaussian fits",
+                ));
+            }
+            if d.sigma.is_none() {
+                return Err(invalid(
+                    spec,
+                    "data.sigma_x",
+                    "needs data.sigma too: the effective variance adds the x uncertainty to that of y",
+                ));
+            }
+            match spec_x {
+                SigmaSpec::Column(c) => {
+                    let j = resolve(spec, raw, "data.sigma_x", c)?;
+                    if j == y_idx || x_idx.contains(&j) || sigma_idx == Some(j) {
+                        return Err(invalid(
+                            spec,
+                            "data.sigma_x",
+                            "names a column that is also the y, an x or the sigma column",
+                        ));
+                    }
+                    Some(Some(j))
+                }
+                SigmaSpec::Value(v) => {
+                    if !(v.is_finite() && *v >= 0.0) {
+                        return Err(invalid(
+                            spec,
+                            "data.sigma_x",
+                            "must be a finite number >= 0 or a column name",
+                        ));
+                    }
+                    Some(None)
+                }
+            }
+        }
+    };
     raw.require_rows()?;
     let x = x_idx
         .iter()
         .map(|&j| raw.numeric_column(j))
         .collect::<Result<Vec<_>, _>>()?;
     let y = raw.numeric_column(y_idx)?;
+    if poisson {
+        for (v, &line) in y.iter().zip(&raw.lines) {
+            if !(*v >= 0.0 && v.fract() == 0.0) {
+                return Err(StudyError::BadCount {
+                    at: Box::new(At::cell(&raw.file, line, y_idx + 1)),
+                    column: y_idx + 1,
+                    name: raw.headers[y_idx].clone(),
+                    value: *v,
+                });
+            }
+        }
+    }
     let sigma = match (&d.sigma, sigma_idx) {
         (_, Some(j)) => {
             let s = raw.numeric_column(j)?;
@@ -832,6 +934,24 @@ fn dataset_from_table(
         (Some(SigmaSpec::Value(v)), None) => Some(vec![*v; y.len()]),
         _ => None,
     };
+    let sigma_x = match (&d.sigma_x, sigma_x_idx) {
+        (_, Some(Some(j))) => {
+            let s = raw.numeric_column(j)?;
+            for (v, &line) in s.iter().zip(&raw.lines) {
+                if *v < 0.0 {
+                    return Err(StudyError::BadSigmaX {
+                        at: Box::new(At::cell(&raw.file, line, j + 1)),
+                        column: j + 1,
+                        name: raw.headers[j].clone(),
+                        value: *v,
+                    });
+                }
+            }
+            Some(s)
+        }
+        (Some(SigmaSpec::Value(v)), _) => Some(vec![*v; y.len()]),
+        _ => None,
+    };
     Ok((
         Dataset {
             x_names: d.x.clone(),
@@ -839,6 +959,7 @@ fn dataset_from_table(
             y_name: d.y.clone(),
             y,
             sigma,
+            sigma_x,
             groups: Vec::new(),
         },
         y_idx,

@@ -6,7 +6,7 @@
 //! that later checks can name line and column.
 
 use super::error::{At, StudyError};
-use crate::fit::{CovarianceScaling, FitOptions, Method};
+use crate::fit::{CovarianceScaling, FitOptions, Likelihood, Method};
 use crate::settings::AuditSettings;
 use serde::de::{self, Deserializer, MapAccess, SeqAccess, Visitor};
 use serde::ser::{SerializeMap, Serializer};
@@ -112,6 +112,10 @@ pub struct DataSpec {
     /// Standard uncertainties: a column, or one number for every point.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sigma: Option<SigmaSpec>,
+    /// Standard uncertainties of the (one) x column, errors in x: a
+    /// column, or one number for every point.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sigma_x: Option<SigmaSpec>,
     /// Aliases: identifier = CSV header, for headers that are not names a
     /// formula can use (`columns = { temp = "Temp (°C)" }`).
     #[serde(default, with = "ordered", skip_serializing_if = "Vec::is_empty")]
@@ -235,6 +239,9 @@ pub struct FitSpec {
     /// Scaled gradient tolerance.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub gtol: Option<f64>,
+    /// The error model: `"gaussian"` (default) or `"poisson"` (counts).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub likelihood: Option<Likelihood>,
 }
 
 impl FitSpec {
@@ -265,6 +272,9 @@ impl FitSpec {
         }
         if let Some(g) = self.geodesic {
             o.geodesic = g;
+        }
+        if let Some(l) = self.likelihood {
+            o.likelihood = l;
         }
         for (key, val, slot) in [
             ("fit.ftol", self.ftol, &mut o.ftol),

@@ -391,6 +391,10 @@ pub fn cooling() -> AuditResults {
     let hat = &jw * (jw.transpose() * &jw).try_inverse().unwrap() * jw.transpose();
     let p_value = ChiSquared::new(dof as f64).unwrap().sf(chi2);
     let fit = FitResult {
+        likelihood: fitaudit::fit::Likelihood::Gaussian,
+        statistic: "chi2".to_string(),
+        small_counts: None,
+        errors_in_x: false,
         converged: true,
         stop_reason: StopReason::ChiSquaredChange,
         iterations: 9,

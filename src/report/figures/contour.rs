@@ -110,11 +110,16 @@ pub(crate) fn figure(
             .unwrap_or(f64::NAN);
         match p {
             Some(p) => format!(
-                "{what} \u{394}\u{3c7}\u{b2} = {} ({})",
+                "{what} {} = {} ({})",
+                super::fit::delta_symbol(results),
                 format::sig(lv, 3),
                 format::percent(p, 3)
             ),
-            None => format!("{what} \u{394}\u{3c7}\u{b2} = {}", format::sig(lv, 3)),
+            None => format!(
+                "{what} {} = {}",
+                super::fit::delta_symbol(results),
+                format::sig(lv, 3)
+            ),
         }
     };
     let entries =
@@ -145,8 +150,13 @@ pub(crate) fn figure(
         svg::legend(&side, &ch.legend)?;
         Ok(())
     })?;
+    let stat = if results.fit.likelihood == crate::fit::Likelihood::Poisson {
+        "deviance"
+    } else {
+        "chi-squared"
+    };
     let mut caption = format!(
-        "Profiled chi-squared contours of {a} and {b} (solid; the other parameters refitted at every grid \
+        "Profiled {stat} contours of {a} and {b} (solid; the other parameters refitted at every grid \
          node) and the covariance ellipses at the same levels (dashed), for two parameters jointly."
     );
     if total > 0 {
@@ -161,7 +171,8 @@ pub(crate) fn figure(
     if !clipped.is_empty() {
         let lv: Vec<String> = clipped.iter().map(|l| format::sig(*l, 3)).collect();
         caption.push_str(&format!(
-            " The contour at \u{394}\u{3c7}\u{b2} = {} runs beyond the frame.",
+            " The contour at {} = {} runs beyond the frame.",
+            super::fit::delta_symbol(results),
             lv.join(" and ")
         ));
     }

@@ -23,6 +23,7 @@ fn restricted(results: &AuditResults, g: usize) -> Option<AuditResults> {
         y_name: group.y_name.clone(),
         y: pick(&data.y),
         sigma: data.sigma.as_ref().map(|s| pick(s)),
+        sigma_x: data.sigma_x.as_ref().map(|s| pick(s)),
         groups: Vec::new(),
     };
     r.fit.fitted = pick(&results.fit.fitted);

@@ -8,10 +8,49 @@ use crate::audit::AuditResults;
 use crate::diagnostics::bands::NewObservation;
 use crate::report::ReportError;
 
-/// Axis title of the residuals drawn: normalised by the stated sigma, or,
-/// without sigma, standardised by the residual standard deviation `s`.
+/// Whether the record is a Poisson fit (its statistic is the deviance).
+pub(crate) fn is_poisson(results: &AuditResults) -> bool {
+    results.fit.likelihood == crate::fit::Likelihood::Poisson
+}
+
+/// The fit statistic as an axis or legend symbol: the deviance of a
+/// Poisson fit, otherwise chi-squared.
+pub(crate) fn stat_symbol(results: &AuditResults) -> &'static str {
+    if is_poisson(results) {
+        "deviance"
+    } else {
+        "\u{3c7}\u{b2}"
+    }
+}
+
+/// The change of the fit statistic from its minimum, as a symbol.
+pub(crate) fn delta_symbol(results: &AuditResults) -> &'static str {
+    if is_poisson(results) {
+        "\u{394} deviance"
+    } else {
+        "\u{394}\u{3c7}\u{b2}"
+    }
+}
+
+/// The fit statistic in words (`chi-squared` or `deviance`).
+pub(crate) fn stat_words(results: &AuditResults) -> &'static str {
+    if is_poisson(results) {
+        "deviance"
+    } else {
+        "chi-squared"
+    }
+}
+
+/// Axis title of the residuals drawn: the deviance residuals of a Poisson
+/// fit; normalised by the stated sigma (by the effective sigma with errors
+/// in x), or, without sigma, standardised by the residual standard
+/// deviation `s`.
 pub(crate) fn residual_label(results: &AuditResults) -> &'static str {
-    if results.data.has_sigma() {
+    if is_poisson(results) {
+        "deviance residual"
+    } else if results.data.sigma_x.is_some() {
+        "normalised residual (y \u{2212} f)/\u{3c3}_eff"
+    } else if results.data.has_sigma() {
         "normalised residual (y \u{2212} f)/\u{3c3}"
     } else {
         "standardised residual (y \u{2212} f)/s"
@@ -21,11 +60,12 @@ pub(crate) fn residual_label(results: &AuditResults) -> &'static str {
 /// The residuals the figures draw: `(y - f) / sigma` with stated sigma;
 /// without sigma `(y - f) / s` with `s = sqrt(sum of squares / dof)`, so
 /// that the reference lines at 0 and +-2 and the unit-normal Q-Q line mean
-/// the same in both cases (the raw residuals when `s` is 0).
+/// the same in both cases (the raw residuals when `s` is 0). A Poisson
+/// fit's deviance residuals are drawn as they are (unit scale already).
 pub(crate) fn plotted_residuals(results: &AuditResults) -> Vec<f64> {
     let r = &results.fit.residuals;
     let s = results.fit.reduced_chi2.sqrt();
-    if results.data.has_sigma() || !(s.is_finite() && s > 0.0) {
+    if is_poisson(results) || results.data.has_sigma() || !(s.is_finite() && s > 0.0) {
         r.clone()
     } else {
         r.iter().map(|v| v / s).collect()
@@ -34,7 +74,13 @@ pub(crate) fn plotted_residuals(results: &AuditResults) -> Vec<f64> {
 
 /// How the drawn residuals are scaled, for captions.
 pub(crate) fn residual_words(results: &AuditResults) -> String {
-    if results.data.has_sigma() {
+    if is_poisson(results) {
+        "the deviance residual sign(y \u{2212} f)\u{b7}\u{221a}(2 (y ln(y/f) \u{2212} (y \u{2212} f))) of each count"
+            .into()
+    } else if results.data.sigma_x.is_some() {
+        "the normalised residual (y \u{2212} f)/\u{3c3}_eff, with \u{3c3}_eff\u{b2} = \u{3c3}\u{b2} + (df/dx)\u{b2} \u{3c3}_x\u{b2} (errors in x)"
+            .into()
+    } else if results.data.has_sigma() {
         "the normalised residual (y \u{2212} f)/\u{3c3}".into()
     } else {
         format!(
@@ -106,6 +152,7 @@ fn band_words(results: &AuditResults) -> String {
         NewObservation::InterpolatedSigma => "\u{3c3} interpolated at x",
         NewObservation::ScaledSigma => "\u{3c3} interpolated at x times \u{221a}(\u{3c7}\u{b2}/dof)",
         NewObservation::ResidualVariance => "the residual standard deviation s",
+        NewObservation::PoissonCount => "\u{221a}f, the standard deviation of a Poisson count",
     };
     let mut w = format!(
         " with its pointwise {} confidence band (dashed, f \u{b1} k u_f, k = {}) and prediction band \

@@ -85,7 +85,7 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     };
     let name_b = match jb {
         Some(jb) => fit.parameters[jb].name.clone(),
-        None => "\u{3c7}\u{b2} at the end point".to_string(),
+        None => format!("{} at the end point", super::fit::stat_symbol(results)),
     };
     let ends: Vec<(f64, f64, Option<usize>)> = ms
         .runs
@@ -135,8 +135,9 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
             let label = if k < kmax || ms.minima.len() == kmax + 1 {
                 let m = &ms.minima[k];
                 format!(
-                    "minimum {}: \u{3c7}\u{b2} = {}, {}",
+                    "minimum {}: {} = {}, {}",
                     k + 1,
+                    super::fit::stat_symbol(results),
                     format::chi2(m.chi2),
                     format::percent(m.fraction, 2)
                 )
@@ -156,10 +157,13 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
 
         let mut d = svg::chart(
             &right,
-            Some("Minima: chi-squared and basin share"),
+            Some(&format!(
+                "Minima: {} and basin share",
+                super::fit::stat_words(results)
+            )),
             cr,
             (0.0, 1.05),
-            "\u{3c7}\u{b2} of the minimum",
+            &format!("{} of the minimum", super::fit::stat_symbol(results)),
             "share of starts ending at a minimum",
         )?;
         d.lines(
@@ -185,7 +189,10 @@ pub(crate) fn figure(results: &AuditResults) -> Result<Option<Figure>, ReportErr
     })?;
     let plane = match jb {
         Some(jb) => format!("{name_a} and {}", fit.parameters[jb].name),
-        None => format!("{name_a} and the chi-squared at the end point"),
+        None => format!(
+            "{name_a} and the {} at the end point",
+            super::fit::stat_words(results)
+        ),
     };
     let notice = if ms.base_is_best {
         String::new()

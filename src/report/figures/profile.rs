@@ -10,11 +10,17 @@ use crate::report::{format, tables, ReportError};
 
 /// The profile figure of one parameter, or None with fewer than two finite points.
 pub(crate) fn figure(
-    _results: &AuditResults,
+    results: &AuditResults,
     profile: &ProfileResult,
     p: &ParameterProfile,
     stem: &str,
 ) -> Result<Option<Figure>, ReportError> {
+    let poisson = results.fit.likelihood == crate::fit::Likelihood::Poisson;
+    let (stat, upper) = if poisson {
+        ("deviance", "Deviance")
+    } else {
+        ("chi-squared", "Chi-squared")
+    };
     let base = profile.chi2_min;
     let shift = |pts: &[[f64; 2]]| -> Vec<(f64, f64)> { pts.iter().map(|q| (q[0], q[1] - base)).collect() };
     let prof = shift(&p.points);
@@ -55,13 +61,15 @@ pub(crate) fn figure(
     let name = p.name.as_str();
     let threshold_label = if scale == 1.0 {
         format!(
-            "threshold \u{394}\u{3c7}\u{b2} = {} ({})",
+            "threshold {} = {} ({})",
+            super::fit::delta_symbol(results),
             format::sig(t, 4),
             format::percent(profile.level, 4)
         )
     } else {
         format!(
-            "threshold \u{394}\u{3c7}\u{b2} = {} \u{d7} {} ({})",
+            "threshold {} = {} \u{d7} {} ({})",
+            super::fit::delta_symbol(results),
             format::sig(profile.threshold, 4),
             format::sig(scale, 4),
             format::percent(profile.level, 4)
@@ -69,9 +77,9 @@ pub(crate) fn figure(
     };
     let text = svg::render(&file, (680, 500 + svg::LEGEND_HEIGHT), |root| {
         let (plot, side) = root.split_vertically(500);
-        let title = format!("Chi-squared profile of {name}");
-        let y_desc = "\u{394}\u{3c7}\u{b2} (profiled minus minimum)";
-        let mut c = svg::chart(&plot, Some(&title), xr, yr, name, y_desc)?;
+        let title = format!("{upper} profile of {name}");
+        let y_desc = format!("{} (profiled minus minimum)", super::fit::delta_symbol(results));
+        let mut c = svg::chart(&plot, Some(&title), xr, yr, name, &y_desc)?;
         let parabola = Stroke::of(Series::Analytic, 2);
         c.lines(std::slice::from_ref(&para), parabola, Some("covariance parabola"))?;
         c.lines(
@@ -127,9 +135,9 @@ pub(crate) fn figure(
     }
     Ok(Some(Figure {
         file,
-        title: format!("Chi-squared profile of {name}"),
+        title: format!("{upper} profile of {name}"),
         caption: format!(
-            "Minimum chi-squared with {name} held at each value and the other parameters refitted (solid), \
+            "Minimum {stat} with {name} held at each value and the other parameters refitted (solid), \
              against the parabola the covariance matrix predicts (dashed). The profile interval lies where \
              the profile crosses the dotted threshold ({}).{note}",
             format::percent(profile.level, 4)
