@@ -74,7 +74,7 @@ fn fit_table_rounds_values_at_the_uncertainty_and_flags_bounds() {
                 k                  0          \u{2014}              \u{2014}           \u{2014}  at lower bound 0\n\
                 c                2.5          \u{2014}              \u{2014}           \u{2014}  fixed\n\
                 \n\
-                chi2 = 12.5000   dof = 10   reduced chi2 = 1.250   p-value = 0.25\n\
+                chi2 = 12.5   dof = 10   reduced chi2 = 1.250   p-value = 0.25\n\
                 coverage factor k = 2.228 (Student's t, 10 dof, 95.00 % level)\n\
                 stopped: iteration limit reached after 1000 iterations; NOT converged\n";
     assert_eq!(t, want);

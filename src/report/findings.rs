@@ -96,11 +96,11 @@ pub fn sentence(f: &Finding) -> String {
             format!(
             "the multi-start search ({} starts) found no better minimum than the audited fit (chi2 = {}){}",
             num(n("starts")),
-            num(if has("chi2_audited") { n("chi2_audited") } else { n("chi2_base") }),
+            format::chi2(if has("chi2_audited") { n("chi2_audited") } else { n("chi2_base") }),
             if n("rebased") == 1.0 {
                 format!(
                     " (the audit is re-based there; the study's start reaches chi2 = {})",
-                    num(n("chi2_base"))
+                    format::chi2(n("chi2_base"))
                 )
             } else {
                 String::new()
@@ -115,8 +115,8 @@ pub fn sentence(f: &Finding) -> String {
             };
             let chi2s = format!(
                 "chi2 = {} against {} at the base fit",
-                num(n("chi2_best")),
-                num(n("chi2_base"))
+                format::chi2(n("chi2_best")),
+                format::chi2(n("chi2_base"))
             );
             match (has("value_at_best"), has("shift_se")) {
                 (true, true) if f.status == Status::Fails => format!(
@@ -248,7 +248,7 @@ pub fn sentence(f: &Finding) -> String {
             let stat = if has("deviance") { "deviance" } else { "chi2" };
             let head = format!(
                 "{stat} = {} for {} degrees of freedom (two-tailed {}, Birge ratio sqrt({stat}/dof) = {})",
-                num(n("chi2")),
+                format::chi2(n("chi2")),
                 num(n("dof")),
                 p_phrase(n("p_value")),
                 fixed2(b)

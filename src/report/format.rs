@@ -158,9 +158,13 @@ pub fn ratio(r: f64) -> String {
     sig(r, 3)
 }
 
-/// Chi-squared and similar sums: six significant digits.
+/// Chi-squared, deviances and similar sums, wherever the report prints
+/// one (tables, verdict sentences, notices, figures): six significant
+/// digits with trailing zeros dropped (`57.6755`, `3354.75`, `12.5`), so
+/// that two nearby minima stay distinguishable and one sum reads the same
+/// in every place.
 pub fn chi2(x: f64) -> String {
-    sig(x, 6)
+    trim_zeros(&sig(x, 6))
 }
 
 /// A p-value: two significant digits; `< 1e-300` below that (including an
