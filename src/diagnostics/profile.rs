@@ -255,13 +255,7 @@ pub fn crossing_ends(ctx: &Fitted, j: usize) -> CrossingEnds {
     let est = base[j];
     let s = step_scale(ctx, j);
     let threshold = q * scale;
-    let q_units = if q.is_finite() && q > 0.0 { q } else { 1.0 };
-    let target = Target {
-        aim: 1.69 * threshold,
-        accept: 1.2 * threshold,
-        first: s * (1.69 * q_units).sqrt(),
-        limit: SCAN_LIMIT_SCALES * s,
-    };
+    let target = walk_target(threshold, q, s);
     let mut ends = [(f64::NAN, EndStatus::Unresolved); 2];
     for (k, dir) in [-1.0, 1.0].into_iter().enumerate() {
         let walk = explore(&mut sc, j, dir, &base, chi2_min, target);
@@ -285,6 +279,20 @@ pub fn crossing_ends(ctx: &Fitted, j: usize) -> CrossingEnds {
         upper_status: ends[1].1,
         refits: sc.refits,
         failed: sc.failed,
+    }
+}
+
+/// The outward walk's aims for the crossing `threshold = q * scale`, with
+/// `s` the parameter's step scale: aim past the threshold (1.69 of it,
+/// accepting from 1.2), first step `s sqrt(1.69 q)`, at most
+/// [`SCAN_LIMIT_SCALES`] step scales out.
+fn walk_target(threshold: f64, q: f64, s: f64) -> Target {
+    let q_units = if q.is_finite() && q > 0.0 { q } else { 1.0 };
+    Target {
+        aim: 1.69 * threshold,
+        accept: 1.2 * threshold,
+        first: s * (1.69 * q_units).sqrt(),
+        limit: SCAN_LIMIT_SCALES * s,
     }
 }
 
@@ -318,13 +326,7 @@ fn profile_one(
     let est = base[j];
     let s = step_scale(ctx, j);
     let threshold = q * scale;
-    let q_units = if q.is_finite() && q > 0.0 { q } else { 1.0 };
-    let target = Target {
-        aim: 1.69 * threshold,
-        accept: 1.2 * threshold,
-        first: s * (1.69 * q_units).sqrt(),
-        limit: SCAN_LIMIT_SCALES * s,
-    };
+    let target = walk_target(threshold, q, s);
     let tol = BELOW_MINIMUM_TOLERANCE * chi2_min.max(threshold).max(f64::MIN_POSITIVE);
 
     let walks = [-1.0, 1.0].map(|dir| explore(&mut sc, j, dir, &base, chi2_min, target));

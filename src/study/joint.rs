@@ -43,7 +43,7 @@
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 
-use super::error::{self, At, Shadow, StudyError};
+use super::error::{self, At, StudyError};
 use super::spec::{self, DataSpec, SigmaSpec, StudySpec};
 use super::{
     check_spec, dataset_from_table, invalid, key_column_at, parse_raw, sha256_hex, Study, StudyWarning,
@@ -249,21 +249,7 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
                 at: Box::new(At::file(&file)),
             });
         }
-        // Parameters and constants must not hide an x column.
-        for xn in &data.x_names {
-            let kind = if spec.parameters.iter().any(|(n, _)| n == xn) {
-                Shadow::ParameterIsColumn
-            } else if spec.constants.iter().any(|(n, _)| n == xn) {
-                Shadow::ConstantIsColumn
-            } else {
-                continue;
-            };
-            return Err(StudyError::Shadowing {
-                at: Box::new(spec.at(&kind.key(xn))),
-                name: xn.clone(),
-                kind,
-            });
-        }
+        super::no_shadowed_x(&spec, &data.x_names)?;
         if sub.data.sigma.is_some() != spec.datasets[0].sigma.is_some() {
             return Err(invalid(
                 &spec,

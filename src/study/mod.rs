@@ -1250,17 +1250,10 @@ fn compile_derived(spec: &StudySpec, names: &[String]) -> Result<Vec<DerivedQuan
     Ok(out)
 }
 
-/// The checks that need both spec and data, compilation, and assembly.
-fn finish(
-    spec: StudySpec,
-    params: Vec<ParamSpec>,
-    options: FitOptions,
-    dataset: Dataset,
-    source: Option<DataSource>,
-    name: &str,
-) -> Result<Study, StudyError> {
-    // Parameters and constants must not hide an x column.
-    for xn in &dataset.x_names {
+/// Refuses a parameter or constant named like an x column of the data
+/// (it would hide the column in the formula), naming the study-file key.
+pub(crate) fn no_shadowed_x(spec: &StudySpec, x_names: &[String]) -> Result<(), StudyError> {
+    for xn in x_names {
         let kind = if spec.parameters.iter().any(|(n, _)| n == xn) {
             Shadow::ParameterIsColumn
         } else if spec.constants.iter().any(|(n, _)| n == xn) {
@@ -1274,6 +1267,19 @@ fn finish(
             kind,
         });
     }
+    Ok(())
+}
+
+/// The checks that need both spec and data, compilation, and assembly.
+fn finish(
+    spec: StudySpec,
+    params: Vec<ParamSpec>,
+    options: FitOptions,
+    dataset: Dataset,
+    source: Option<DataSource>,
+    name: &str,
+) -> Result<Study, StudyError> {
+    no_shadowed_x(&spec, &dataset.x_names)?;
     let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
     let symbols = Symbols {
         parameters: &names,
