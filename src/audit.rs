@@ -620,7 +620,34 @@ pub fn dataset_shares(
         .collect()
 }
 
-/// Data set `g`'s model on 400 points spanning its (single) x column.
+/// Points of the linear part of [`curve_grid`].
+pub const CURVE_LINEAR_POINTS: usize = 400;
+/// Points of the logarithmic part of [`curve_grid`].
+pub const CURVE_LOG_POINTS: usize = 200;
+
+/// The abscissae of a fitted curve over `[lo, hi]`: [`CURVE_LINEAR_POINTS`]
+/// evenly spaced, and, when the range is positive and spans more than a
+/// decade, [`CURVE_LOG_POINTS`] more evenly spaced in `log10 x`, sorted
+/// and without repeats. The curve (and the bands on the same grid) then
+/// reads smooth on a linear and on a logarithmic x axis alike; on a log
+/// axis a linear grid alone would leave the lowest decades with a point
+/// or two and draw the model there as a straight chord.
+pub fn curve_grid(lo: f64, hi: f64) -> Vec<f64> {
+    let n = CURVE_LINEAR_POINTS;
+    let mut xs: Vec<f64> = (0..n)
+        .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
+        .collect();
+    if lo > 0.0 && hi / lo > 10.0 {
+        let (a, b) = (lo.log10(), hi.log10());
+        let m = CURVE_LOG_POINTS;
+        xs.extend((1..m - 1).map(|i| 10f64.powf(a + (b - a) * i as f64 / (m - 1) as f64)));
+        xs.sort_by(f64::total_cmp);
+        xs.dedup();
+    }
+    xs
+}
+
+/// Data set `g`'s model on [`curve_grid`] over its (single) x column.
 fn group_curve(model: &dyn ModelFn, data: &Dataset, g: usize, params: &[f64]) -> Option<Curve> {
     let r = data.groups[g].range();
     let col = &data.x.first()?[r];
@@ -629,10 +656,8 @@ fn group_curve(model: &dyn ModelFn, data: &Dataset, g: usize, params: &[f64]) ->
     if !(lo.is_finite() && hi.is_finite()) {
         return None;
     }
-    let n = 400;
-    let xs: Vec<f64> = (0..n)
-        .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
-        .collect();
+    let xs = curve_grid(lo, hi);
+    let n = xs.len();
     let zeros = vec![0.0; n];
     let group = vec![g as f64; n];
     let last = data.x.len() - 1;
@@ -659,7 +684,8 @@ fn rebase(problem: &Problem, data: &Dataset, ms: &MultistartResult) -> Option<Fi
     (f.chi2.is_finite() && f.chi2 < ms.base_chi2).then_some(f)
 }
 
-/// The model on 400 points spanning the data, when there is one independent variable.
+/// The model on [`curve_grid`] over the data, when there is one
+/// independent variable.
 fn model_curve(model: &dyn ModelFn, data: &Dataset, fit: &FitResult) -> Option<Curve> {
     if data.x.len() != 1 || data.is_empty() {
         return None;
@@ -670,12 +696,9 @@ fn model_curve(model: &dyn ModelFn, data: &Dataset, fit: &FitResult) -> Option<C
     if !(lo.is_finite() && hi.is_finite()) {
         return None;
     }
-    let n = 400;
-    let xs: Vec<f64> = (0..n)
-        .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
-        .collect();
+    let xs = curve_grid(lo, hi);
     let params: Vec<f64> = fit.parameters.iter().map(|p| p.value).collect();
-    let mut ys = vec![0.0; n];
+    let mut ys = vec![0.0; xs.len()];
     let mut scratch = Vec::new();
     // Points where the model is not finite between the data stay in the
     // record as non-finite values (serialised as null) rather than hidden.

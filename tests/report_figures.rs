@@ -358,3 +358,32 @@ fn histogram_intervals_are_bars_in_a_strip_not_crowded_lines() {
         assert_eq!(t.iter().filter(|s| *s == want).count(), 1, "{want} in {t:?}");
     }
 }
+
+#[test]
+fn the_curve_grid_is_fine_in_every_decade_of_a_positive_range() {
+    use fitaudit::audit::{curve_grid, CURVE_LINEAR_POINTS, CURVE_LOG_POINTS};
+    // A dilution series over five decades: a linear grid alone would put
+    // one point below 0.25 (a straight chord across four decades on a log
+    // axis); every decade must hold a fair share of the log part.
+    let xs = curve_grid(0.01, 1000.0);
+    assert_eq!(xs.len(), CURVE_LINEAR_POINTS + CURVE_LOG_POINTS - 2);
+    assert!(xs.windows(2).all(|w| w[0] < w[1]));
+    assert_eq!((xs[0], *xs.last().unwrap()), (0.01, 1000.0));
+    for e in -2..3 {
+        let (a, b) = (10f64.powi(e), 10f64.powi(e + 1));
+        let inside = xs.iter().filter(|x| **x >= a && **x < b).count();
+        assert!(
+            inside >= CURVE_LOG_POINTS / 5 - 2,
+            "{inside} points in [{a}, {b})"
+        );
+    }
+    // A range through zero or within a decade keeps the even grid.
+    for (lo, hi) in [(0.0, 1000.0), (-1.0, 1.0), (2.0, 15.0)] {
+        let xs = curve_grid(lo, hi);
+        assert_eq!(xs.len(), CURVE_LINEAR_POINTS);
+        let step = (hi - lo) / (CURVE_LINEAR_POINTS - 1) as f64;
+        assert!(xs
+            .windows(2)
+            .all(|w| ((w[1] - w[0]) - step).abs() < 1e-9 * step.max(1.0)));
+    }
+}

@@ -326,24 +326,30 @@ impl Scale {
     }
 
     /// The scale a `[report]` setting asks for on these values: `auto`
-    /// chooses logarithmic when every finite value is positive and the
-    /// largest exceeds the smallest by more than [`AUTO_LOG_RATIO`].
+    /// chooses logarithmic when every finite value is positive, the
+    /// largest exceeds the smallest by more than [`AUTO_LOG_RATIO`], and a
+    /// linear axis would crowd them: more than half of them lie in the
+    /// lowest tenth of their range (a dilution series, a decay over many
+    /// lifetimes). Evenly spaced values over decades (times from 0.01 s to
+    /// 10 s in equal steps) stay linear.
     pub fn choose(setting: crate::study::AxisScale, values: impl IntoIterator<Item = f64>) -> Scale {
         use crate::study::AxisScale;
         match setting {
             AxisScale::Linear => Scale::Linear,
             AxisScale::Log => Scale::Log,
             AxisScale::Auto => {
-                let (mut lo, mut hi, mut n) = (f64::INFINITY, 0.0f64, 0usize);
+                let mut finite = Vec::new();
                 for v in values.into_iter().filter(|v| v.is_finite()) {
                     if v <= 0.0 {
                         return Scale::Linear;
                     }
-                    lo = lo.min(v);
-                    hi = hi.max(v);
-                    n += 1;
+                    finite.push(v);
                 }
-                if n >= 2 && hi / lo > AUTO_LOG_RATIO {
+                let lo = finite.iter().copied().fold(f64::INFINITY, f64::min);
+                let hi = finite.iter().copied().fold(0.0, f64::max);
+                let low_tenth = lo + 0.1 * (hi - lo);
+                let crowded = finite.iter().filter(|v| **v < low_tenth).count();
+                if finite.len() >= 2 && hi / lo > AUTO_LOG_RATIO && 2 * crowded > finite.len() {
                     Scale::Log
                 } else {
                     Scale::Linear
@@ -718,6 +724,18 @@ pub(crate) fn interval_strip(
     Ok(())
 }
 
+/// The label of a tick at chart coordinate `v` on an axis of `span` chart
+/// units. Over two decades or more, a log axis labels only its decades
+/// (the grid lines between stay, unlabelled), so that every label is a
+/// round `10^e`; a shorter log axis labels each tick with its value.
+fn tick_label(scale: Scale, v: f64, span: f64) -> String {
+    match scale {
+        Scale::Linear => format::tick(v, span),
+        Scale::Log if span >= 2.0 && (v - v.round()).abs() > 1e-9 => String::new(),
+        Scale::Log => format::log_tick(v),
+    }
+}
+
 /// Builds a chart on `area` with axis titles and tick labels formatted by
 /// [`format::tick`], both axes linear.
 pub(crate) fn chart<'a, 'b>(
@@ -741,7 +759,8 @@ pub(crate) fn chart<'a, 'b>(
 
 /// Builds a chart on `area` with the given axis scales; `x` and `y` are in
 /// chart coordinates ([`Scale::extent`]). A log axis labels its ticks
-/// with the values (`10^t`, [`format::log_tick`]).
+/// with the values (`10^t`, [`format::log_tick`]), only the decades when
+/// it spans two or more.
 pub(crate) fn chart_scaled<'a, 'b>(
     area: &'a Area<'b>,
     caption: Option<&str>,
@@ -758,12 +777,8 @@ pub(crate) fn chart_scaled<'a, 'b>(
     }
     let mut chart = builder.build_cartesian_2d(x.0..x.1, y.0..y.1)?;
     let (xs, ys) = (x.1 - x.0, y.1 - y.0);
-    let label = move |scale: Scale, v: f64, span: f64| match scale {
-        Scale::Linear => format::tick(v, span),
-        Scale::Log => format::log_tick(v),
-    };
-    let fx = move |v: &f64| label(scales.0, *v, xs);
-    let fy = move |v: &f64| label(scales.1, *v, ys);
+    let fx = move |v: &f64| tick_label(scales.0, *v, xs);
+    let fy = move |v: &f64| tick_label(scales.1, *v, ys);
     chart
         .configure_mesh()
         .x_desc(x_desc)
@@ -827,6 +842,17 @@ mod tests {
     use super::*;
 
     #[test]
+    fn log_axes_over_two_decades_label_only_decades() {
+        // Chart coordinates are log10 of the value (identity).
+        assert_eq!(tick_label(Scale::Log, 2.0, 3.0), "100");
+        assert_eq!(tick_label(Scale::Log, -1.0, 3.0), "0.1");
+        assert_eq!(tick_label(Scale::Log, 2.5, 3.0), "");
+        // Under two decades every tick keeps its value.
+        assert_eq!(tick_label(Scale::Log, 0.5, 1.5), "3.16");
+        assert_eq!(tick_label(Scale::Linear, 2.5, 3.0), "2.5");
+    }
+
+    #[test]
     fn legend_labels_wrap_at_spaces_keeping_units() {
         assert_eq!(
             wrap("profiled level (68.3 %)", 16),
@@ -869,6 +895,12 @@ mod tests {
         use crate::study::AxisScale;
         // 0.1 to 100 spans three decades: logarithmic; 1 to 50 does not.
         assert_eq!(Scale::choose(AxisScale::Auto, [0.1, 1.0, 100.0]), Scale::Log);
+        // A dilution series crowds a linear axis; equal steps over the same
+        // decades do not.
+        let doses = [0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0, 30.0, 100.0];
+        assert_eq!(Scale::choose(AxisScale::Auto, doses), Scale::Log);
+        let times: Vec<f64> = (1..=100).map(|i| 0.05 * i as f64).collect();
+        assert_eq!(Scale::choose(AxisScale::Auto, times), Scale::Linear);
         assert_eq!(Scale::choose(AxisScale::Auto, [1.0, 50.0]), Scale::Linear);
         // A zero or negative value keeps it linear; the settings override.
         assert_eq!(Scale::choose(AxisScale::Auto, [0.0, 1.0, 1000.0]), Scale::Linear);
