@@ -302,3 +302,30 @@ fn monte_carlo_moves_x_as_well_as_y() {
         bs.parameters[1].std
     );
 }
+
+#[test]
+fn coverage_moves_x_and_says_so() {
+    // All the scatter from x (sigma_y tiny): a straight line's analytic
+    // interval covers at the level only if the simulated data sets move x
+    // as the effective variance assumes (a y-only simulation would cover
+    // almost always, its spread being sigma_y-size). 400 data sets: SE
+    // 0.023 at 68.27 %.
+    let tape = line_tape();
+    let data = line_data(0.01, 0.2);
+    let f = fit::fit(&problem(&tape), &data).unwrap();
+    let mut settings = AuditSettings::default();
+    settings.coverage.replicates = 400;
+    let ctx = Fitted {
+        problem: problem(&tape),
+        data: &data,
+        fit: &f,
+        settings: &settings,
+    };
+    let c = diagnostics::coverage::run(&ctx, &NoProgress);
+    assert!(c.moves_x);
+    assert_eq!(c.noise, "normal");
+    let slope = &c.parameters[1].intervals[0];
+    assert_eq!(slope.kind, diagnostics::coverage::CoverageKind::Analytic);
+    let se = (0.6827f64 * 0.3173 / slope.counted as f64).sqrt();
+    assert!((slope.coverage - 0.6827).abs() < 3.5 * se, "{}", slope.coverage);
+}

@@ -119,12 +119,16 @@ pub struct CoverageSetup {
     pub level: f64,
     /// Replicates requested.
     pub replicates: usize,
-    /// `"normal"` or `"student-t"`.
+    /// `"normal"`, `"student-t"` or `"poisson"` (counts drawn at the
+    /// fitted means, for a Poisson fit).
     pub noise: String,
     /// Degrees of freedom of the Student-t noise.
     pub student_t_dof: Option<f64>,
     /// The noise factor `s` (as the Monte Carlo's).
     pub noise_scale: f64,
+    /// Errors in x: the observed x are drawn off the fitted x too.
+    #[serde(default)]
+    pub moves_x: bool,
 }
 
 /// Coverage of one interval kind of one parameter.
@@ -193,12 +197,18 @@ pub struct CoverageResult {
     pub failures: BTreeMap<String, usize>,
     /// Nominal level of every interval.
     pub level: f64,
-    /// `"normal"` or `"student-t"`.
+    /// `"normal"`, `"student-t"` or `"poisson"` (counts drawn at the
+    /// fitted means, for a Poisson fit).
     pub noise: String,
-    /// Degrees of freedom of Student-t noise (`null` for normal).
+    /// Degrees of freedom of Student-t noise (`null` for normal and
+    /// Poisson).
     pub student_t_dof: Option<f64>,
     /// The noise factor `s` of `s sigma_i e_i`.
     pub noise_scale: f64,
+    /// Errors in x (`data.sigma_x`): each data set's x were drawn too, `x_i
+    /// + s sigma_x,i e_i`, the curve staying at the fitted x.
+    #[serde(default)]
+    pub moves_x: bool,
     /// Refits spent over all replicates.
     pub refits: usize,
     /// One entry per free parameter.
@@ -218,7 +228,9 @@ fn student_t_dof(ctx: &Fitted) -> Option<f64> {
 pub fn setup(ctx: &Fitted) -> CoverageSetup {
     let free = ctx.free_mask();
     let values = ctx.values();
-    let dof = student_t_dof(ctx);
+    let poisson = ctx.problem.options.likelihood == crate::fit::Likelihood::Poisson;
+    // Counts are drawn from the Poisson law whatever the Student-t setting.
+    let dof = student_t_dof(ctx).filter(|_| !poisson);
     CoverageSetup {
         names: (0..free.len())
             .filter(|&j| free[j])
@@ -227,7 +239,15 @@ pub fn setup(ctx: &Fitted) -> CoverageSetup {
         truth: (0..free.len()).filter(|&j| free[j]).map(|j| values[j]).collect(),
         level: ctx.settings.level,
         replicates: ctx.settings.coverage.replicates,
-        noise: if dof.is_some() { "student-t" } else { "normal" }.to_string(),
+        noise: if poisson {
+            "poisson"
+        } else if dof.is_some() {
+            "student-t"
+        } else {
+            "normal"
+        }
+        .to_string(),
+        moves_x: ctx.data.sigma_x.is_some(),
         student_t_dof: dof,
         noise_scale: super::monte_carlo::noise_scale(ctx),
     }
@@ -528,6 +548,7 @@ pub fn summarise(setup: &CoverageSetup, outcomes: &[ReplicateOutcome]) -> Covera
         noise: setup.noise.clone(),
         student_t_dof: setup.student_t_dof,
         noise_scale: setup.noise_scale,
+        moves_x: setup.moves_x,
         refits: outcomes.iter().map(|o| o.refits).sum(),
         parameters,
     }
@@ -569,6 +590,7 @@ mod tests {
             noise: "normal".into(),
             student_t_dof: None,
             noise_scale: 1.0,
+            moves_x: false,
         }
     }
 

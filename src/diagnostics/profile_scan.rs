@@ -4,7 +4,7 @@
 //! how far a profile must be scanned.
 
 use super::Fitted;
-use crate::fit::{DataView, FitResult, Refitter};
+use crate::fit::{DataView, FitOptions, FitResult, Problem, Refitter};
 
 /// Largest distance scanned from the estimate, in units of the parameter's
 /// step scale (its standard error when known). A profile still below its
@@ -24,6 +24,14 @@ const MAX_TIGHTEN: usize = 4;
 /// point, so this is never the binding limit for finite scales).
 const MAX_EXPLORATION_STEPS: usize = 60;
 
+/// Below this chi-squared quantile (audit levels under about 8 %) the
+/// profile threshold comes near the precision at which a warm-started
+/// refit stops (its end-point test promises a chi-squared within 1e-6 of a
+/// chi-squared unit of the minimum), so the scans' refits iterate down to
+/// the optimiser's tolerances instead; above it the early stop costs less
+/// than 1e-4 of the threshold.
+pub(crate) const TIGHT_REFIT_QUANTILE: f64 = 0.01;
+
 /// A profile point: chi-squared and all parameters after the refit.
 #[derive(Debug, Clone, PartialEq)]
 pub(crate) struct Node {
@@ -36,6 +44,9 @@ pub(crate) struct Node {
 /// Refits the fitted problem with parameters held, counting failures.
 pub(crate) struct Scanner<'c> {
     ctx: &'c Fitted<'c>,
+    /// The fitted problem, with refits that iterate to the tolerances when
+    /// the level's threshold is small ([`TIGHT_REFIT_QUANTILE`]).
+    problem: Problem<'c>,
     xs: Vec<&'c [f64]>,
     sigma: Vec<f64>,
     free: Vec<bool>,
@@ -50,8 +61,19 @@ pub(crate) struct Scanner<'c> {
 impl<'c> Scanner<'c> {
     /// A scanner (with its own refit workspace) for `ctx`.
     pub fn new(ctx: &'c Fitted<'c>) -> Self {
+        let q = super::profile::threshold_for(ctx.fit, ctx.settings.level);
+        let tight = q.is_finite() && q < TIGHT_REFIT_QUANTILE;
+        let problem = Problem {
+            model: ctx.problem.model,
+            params: ctx.problem.params.clone(),
+            options: FitOptions {
+                stop_at_optimality: ctx.problem.options.stop_at_optimality && !tight,
+                ..ctx.problem.options.clone()
+            },
+        };
         Scanner {
             ctx,
+            problem,
             xs: ctx.data.x_slices(),
             sigma: ctx.data.sigma_or_ones(),
             free: ctx.free_mask(),
@@ -80,9 +102,7 @@ impl<'c> Scanner<'c> {
             sigma_x: self.ctx.data.sigma_x.as_deref().unwrap_or(&[]),
         };
         self.refits += 1;
-        let out = self
-            .refitter
-            .refit(&self.ctx.problem, &view, &self.start, &self.free);
+        let out = self.refitter.refit(&self.problem, &view, &self.start, &self.free);
         let params = self.refitter.params();
         if out.converged && out.chi2.is_finite() && params.iter().all(|p| p.is_finite()) {
             Some(Node {

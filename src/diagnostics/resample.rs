@@ -67,7 +67,9 @@
 //!   stay in every statistic (the robust spread ignores them).
 //! - **Percentile sanity.** `percentile_excludes_estimate` is true when
 //!   the base estimate lies outside the percentile interval: the fit is
-//!   unstable under resampling.
+//!   unstable under resampling. Below [`SANITY_LEVEL`] the check reads
+//!   the interval at that level instead (a central interval of, say, 10 %
+//!   excludes the estimate by chance alone).
 //! - With fewer than two successful replicates the statistics are NaN
 //!   (serialised as null): there is nothing to summarise, and the failure
 //!   share makes the verdict fail.
@@ -184,6 +186,12 @@ pub const BCA_ACCELERATION_LIMIT: f64 = 0.25;
 /// A BCa end read within this many replicates of either extreme rests on
 /// too few replicates to be trusted (common practice, without a source).
 pub const BCA_TAIL_REPLICATES: f64 = 5.0;
+
+/// Lowest level at which the percentile sanity check reads the resampled
+/// interval (68.27 %, one standard deviation): at a lower audit level the
+/// check uses this one, so that its false-alarm rate is the one measured at
+/// the default level (README, "Verdicts").
+pub const SANITY_LEVEL: f64 = crate::fit::DEFAULT_LEVEL;
 
 /// Replicates farther than this many robust spreads from the median are
 /// runaways (for normal estimates the chance is below 1e-20).
@@ -743,6 +751,15 @@ pub fn summarise(
             _ => None,
         };
         let runaways = count_runaways(&col, robust_std);
+        // The sanity check reads the interval at the level, but never at
+        // less than SANITY_LEVEL: a narrower central interval excludes the
+        // estimate by chance, its ends lying within the sampling error of
+        // the replicates' median.
+        let (sane_lower, sane_upper) = match (b >= 2 && level < SANITY_LEVEL, info.jcgm) {
+            (false, _) => (lower, upper),
+            (true, true) => symmetric_interval(&col, SANITY_LEVEL),
+            (true, false) => percentile_interval(&col, SANITY_LEVEL),
+        };
         let below = estimate - lower;
         let asymmetry = (below > 0.0 && (upper - estimate).is_finite()).then(|| (upper - estimate) / below);
         out.push(ResampledParameter {
@@ -767,7 +784,7 @@ pub fn summarise(
             robust_ratio,
             null_dof: robust_ratio.and_then(|_| null_dof(b, info.scatter_dof)),
             runaways,
-            percentile_excludes_estimate: b >= 2 && (estimate < lower || estimate > upper),
+            percentile_excludes_estimate: b >= 2 && (estimate < sane_lower || estimate > sane_upper),
             shortest_lower,
             shortest_upper,
         });

@@ -1438,6 +1438,7 @@ mod tests {
             noise: "normal".into(),
             student_t_dof: None,
             noise_scale: 1.0,
+            moves_x: false,
             refits: 0,
             parameters: vec![ParameterCoverage {
                 name: name.into(),

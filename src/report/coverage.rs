@@ -123,9 +123,15 @@ pub fn quote_key_words(key: &str) -> String {
 /// One line on the simulation itself: replicates, failures, noise, cost.
 pub fn summary_line(results: &AuditResults) -> Option<String> {
     let c = results.coverage.as_ref()?;
-    let noise = match c.student_t_dof {
-        Some(nu) => format!("Student-t noise with {} degrees of freedom", format::sig(nu, 3)),
-        None => "normal noise".to_string(),
+    let law = match (c.noise.as_str(), c.student_t_dof) {
+        ("poisson", _) => "Poisson counts at the fitted means".to_string(),
+        (_, Some(nu)) => format!("Student-t noise with {} degrees of freedom", format::sig(nu, 3)),
+        _ => "normal noise".to_string(),
+    };
+    let noise = if c.moves_x {
+        format!("{law} in y and in x (errors in x)")
+    } else {
+        law
     };
     Some(format!(
         "{} of {} simulated data sets refitted ({} failed{}), {noise}, noise scale {}; {} refits in all.",

@@ -378,10 +378,18 @@ pub fn quote_text(v: &Verdict, value: Option<f64>, se: Option<f64>) -> String {
     let p = value.map(|value| (value, se));
     match (&v.quote, v.no_quote) {
         (Some(q), _) => {
+            // The ends at the precision of the standard uncertainty, or of
+            // the half-width when that is smaller (a low level), so that
+            // they never round to one number.
+            let half = 0.5 * (q.upper - q.lower);
+            let place_of = match se {
+                Some(u) if half.is_finite() && half > 0.0 => Some(u.min(half)),
+                _ => se,
+            };
             let ends = format!(
                 "[{}, {}]",
-                format::at_precision_of(q.lower, se),
-                format::at_precision_of(q.upper, se)
+                format::at_precision_of(q.lower, place_of),
+                format::at_precision_of(q.upper, place_of)
             );
             let level = format::percent(q.level, 4);
             match (q.kind, p) {

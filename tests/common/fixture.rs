@@ -782,6 +782,7 @@ pub fn coverage(se: &[f64], level: f64) -> fitaudit::diagnostics::coverage::Cove
             noise: "normal".into(),
             student_t_dof: None,
             noise_scale: 1.0,
+            moves_x: false,
         },
         &outcomes,
     )
