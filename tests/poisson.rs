@@ -290,6 +290,16 @@ fn counts_must_be_whole_and_non_negative_and_take_no_sigma() {
     ));
 }
 
+/// The Poisson fit of the constant-rate model to [`constant_data`].
+fn constant_fit(model: &NativeModel<PointFn>, data: &Dataset) -> fit::FitResult {
+    let problem = Problem {
+        model,
+        params: vec![ParamSpec::free("c", 1.0)],
+        options: poisson_options(),
+    };
+    fit::fit(&problem, data).unwrap()
+}
+
 fn constant_ctx<'a>(
     model: &'a NativeModel<PointFn>,
     data: &'a Dataset,
@@ -312,12 +322,7 @@ fn constant_ctx<'a>(
 fn monte_carlo_and_bootstrap_draw_poisson_counts_and_profiles_use_the_deviance() {
     let model = constant_model();
     let data = constant_data();
-    let problem = Problem {
-        model: &model,
-        params: vec![ParamSpec::free("c", 1.0)],
-        options: poisson_options(),
-    };
-    let f = fit::fit(&problem, &data).unwrap();
+    let f = constant_fit(&model, &data);
     let settings = AuditSettings::default();
     let ctx = constant_ctx(&model, &data, &f, &settings);
     let mean = 2.1;
@@ -403,12 +408,7 @@ fn coverage_draws_counts_and_matches_the_exact_poisson_coverage() {
     use statrs::distribution::{ChiSquared, ContinuousCDF, Discrete, Poisson as PoissonLaw};
     let model = constant_model();
     let data = constant_data();
-    let problem = Problem {
-        model: &model,
-        params: vec![ParamSpec::free("c", 1.0)],
-        options: poisson_options(),
-    };
-    let f = fit::fit(&problem, &data).unwrap();
+    let f = constant_fit(&model, &data);
     let mut settings = AuditSettings::default();
     settings.coverage.replicates = 2000;
     // A Student-t setting has no meaning for counts and is not recorded.
