@@ -789,7 +789,10 @@ fn merge_study(
 
 /// Merges parts into the full report at `out`.
 pub fn merge(paths: &[PathBuf], out: &Path, command_line: &str) -> Result<Merged, BatchError> {
-    crate::output::preflight(out)?;
+    // The parts are inputs: a destination that is (or holds) one of them
+    // would replace it with the merged report.
+    let inputs: Vec<&Path> = paths.iter().map(PathBuf::as_path).collect();
+    crate::output::preflight_protecting(out, &inputs)?;
     let parts = paths
         .iter()
         .map(|p| read_part(p).map(|f| (p.clone(), f)))

@@ -113,8 +113,9 @@ pub enum OutputError {
     },
     /// The destination is or contains an input of the run.
     #[error(
-        "output folder {folder} contains {input}, an input of this run; replacing the folder would \
-         delete it: choose an --out outside the folders of the study and its data"
+        "output folder {folder} is or contains {input}, an input of this run; replacing the folder \
+         would delete it: choose an --out outside the folders of the study, its data and the parts \
+         being merged"
     )]
     ContainsInput {
         /// The destination.

@@ -262,6 +262,15 @@ fn parts_that_do_not_belong_together_are_refused_naming_them() {
     // A folder that is not a part.
     let e = refused(&[p1.clone(), dir.path().to_path_buf(), p3.clone()], &out);
     assert!(e.contains("part.cbor"), "{e}");
+    // An --out naming one of the parts (or a folder holding one) would
+    // replace that part with the merged report: refused, the part kept.
+    for dest in [p2.clone(), dir.path().to_path_buf()] {
+        let o = merge(&[p1.clone(), p2.clone(), p3.clone()], &dest);
+        let e = String::from_utf8_lossy(&o.stderr).into_owned();
+        assert_eq!(o.status.code(), Some(2), "{e}");
+        assert!(e.contains("an input of this run"), "{e}");
+        assert!(fitaudit::batch::read_part(&p2).is_ok(), "the part is kept");
+    }
     // A study file changed after the shards ran.
     let text = std::fs::read_to_string(&study).unwrap();
     std::fs::write(&study, text.replace("Decay decay", "Decay decay, edited")).unwrap();
