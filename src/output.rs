@@ -114,8 +114,8 @@ pub enum OutputError {
     /// The destination is or contains an input of the run.
     #[error(
         "output folder {folder} is or contains {input}, an input of this run; replacing the folder \
-         would delete it: choose an --out outside the folders of the study, its data and the parts \
-         being merged"
+         would delete it: choose an --out outside the folders of this run's inputs (study and data \
+         files, parts to merge)"
     )]
     ContainsInput {
         /// The destination.
