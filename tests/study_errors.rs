@@ -599,7 +599,8 @@ fn x_columns_that_are_all_constant_are_an_error() {
 
 #[test]
 fn a_model_not_finite_at_the_starts_names_the_data_line() {
-    // log(0) = -inf at t = 0, which is the second data row (line 4).
+    // log(0) = -inf at t = 0, which is the second data row (line 4); the
+    // one x column `t` is the first field of the row (column 1).
     let text = STUDY.replace("dT*exp(-t/tau)", "dT*log(t/tau)");
     let csv = "t,temp,u\n# first\n100,58.2,0.2\n0,70.1,0.2\n200,49.9,0.3\n300,44.3,0.2\n";
     let (_c, r) = load(&text, csv);
@@ -615,7 +616,7 @@ fn a_model_not_finite_at_the_starts_names_the_data_line() {
     has(
         &e.to_string(),
         &[
-            "cooling.csv, line 4",
+            "cooling.csv, line 4, column 1",
             "model value is not finite",
             "t = 0",
             "point 2",

@@ -140,6 +140,8 @@ struct Read {
     data: Dataset,
     file: PathBuf,
     lines: Vec<usize>,
+    /// 1-based field numbers of its x columns.
+    x_columns: Vec<usize>,
     sha256: String,
     parameters: Vec<String>,
 }
@@ -243,7 +245,7 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             }
         })?;
         let raw = parse_raw(&bytes, &file)?;
-        let (data, _, _) = dataset_from_table(&sub, &raw).map_err(|e| rekey(e, &prefix))?;
+        let (data, columns) = dataset_from_table(&sub, &raw).map_err(|e| rekey(e, &prefix))?;
         if data.is_empty() {
             return Err(StudyError::NoDataRows {
                 at: Box::new(At::file(&file)),
@@ -307,6 +309,7 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             data,
             file,
             lines: raw.lines.clone(),
+            x_columns: columns.x.iter().map(|j| j + 1).collect(),
             sha256: sha256_hex(&bytes),
             parameters: local_names,
         });
@@ -352,7 +355,10 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             .expect("every point lies in a data set");
         let local = i - group.start;
         return Err(StudyError::NotFiniteAtStart {
-            at: Box::new(At::line(&reads[g].file, reads[g].lines[local])),
+            at: Box::new(match reads[g].x_columns.as_slice() {
+                [c] => At::cell(&reads[g].file, reads[g].lines[local], *c),
+                _ => At::line(&reads[g].file, reads[g].lines[local]),
+            }),
             study: Box::new(At::file(&spec.origin)),
             point: i + 1,
             x: reads[g]

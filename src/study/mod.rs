@@ -342,6 +342,8 @@ struct DataSource {
     /// 1-based field numbers of the y and sigma columns.
     y_column: usize,
     sigma_column: Option<usize>,
+    /// 1-based field numbers of the x columns.
+    x_columns: Vec<usize>,
 }
 
 impl Study {
@@ -390,13 +392,14 @@ impl Study {
             source,
         })?;
         let raw = parse_raw(&bytes, &file)?;
-        let (dataset, y_idx, sigma_idx) = dataset_from_table(&spec, &raw)?;
+        let (dataset, columns) = dataset_from_table(&spec, &raw)?;
         let source = DataSource {
             file,
             lines: raw.lines.clone(),
             sha256: sha256_hex(&bytes),
-            y_column: y_idx + 1,
-            sigma_column: sigma_idx.map(|j| j + 1),
+            y_column: columns.y + 1,
+            sigma_column: columns.sigma.map(|j| j + 1),
+            x_columns: columns.x.iter().map(|j| j + 1).collect(),
         };
         finish(spec, params, options, dataset, Some(source), name)
     }
@@ -728,10 +731,15 @@ fn resolve(spec: &StudySpec, raw: &RawTable, key: &str, name: &str) -> Result<us
     }
 }
 
-fn dataset_from_table(
-    spec: &StudySpec,
-    raw: &RawTable,
-) -> Result<(Dataset, usize, Option<usize>), StudyError> {
+/// The 0-based field numbers of the data's columns in the CSV table, for
+/// errors that point at a cell.
+struct ColumnIndices {
+    x: Vec<usize>,
+    y: usize,
+    sigma: Option<usize>,
+}
+
+fn dataset_from_table(spec: &StudySpec, raw: &RawTable) -> Result<(Dataset, ColumnIndices), StudyError> {
     let d = &spec.data;
     for (i, (alias, header)) in d.columns.iter().enumerate() {
         let key = format!("data.columns.{alias}");
@@ -962,8 +970,11 @@ fn dataset_from_table(
             sigma_x,
             groups: Vec::new(),
         },
-        y_idx,
-        sigma_idx,
+        ColumnIndices {
+            x: x_idx,
+            y: y_idx,
+            sigma: sigma_idx,
+        },
     ))
 }
 
@@ -1373,7 +1384,10 @@ fn finish(
     let mut scratch = Vec::new();
     if let Err(bad) = tape.eval(&starts, &xs, &mut values, Some(&mut jac), &mut scratch) {
         let i = bad.point.min(n - 1);
+        // With one x column the x cell of the row is named: the model, at
+        // the starts, fails at this x.
         let at = Box::new(match &source {
+            Some(s) if s.x_columns.len() == 1 => At::cell(&s.file, s.lines[i], s.x_columns[0]),
             Some(s) => At::line(&s.file, s.lines[i]),
             None => At::file(&spec.origin),
         });
