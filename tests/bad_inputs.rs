@@ -740,6 +740,17 @@ fn cases() -> Vec<Case> {
             expect: &["audit.monte_carlo.student_t_dof"],
         },
         Case {
+            name: "poisson: Student-t coverage noise",
+            study: counts_study(
+                "monte_carlo = { replicates = 20 }",
+                "monte_carlo = { replicates = 20 }\ncoverage = { student_t_dof = 5 }",
+            ),
+            csv: Some(count_rows().into_bytes()),
+            args: FIT,
+            code: 2,
+            expect: &["audit.coverage.student_t_dof", "Poisson counts"],
+        },
+        Case {
             name: "unknown likelihood",
             study: counts_study("likelihood = \"poisson\"", "likelihood = \"binomial\""),
             csv: Some(count_rows().into_bytes()),

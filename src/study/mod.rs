@@ -500,6 +500,13 @@ fn check_likelihood(spec: &StudySpec, options: &FitOptions) -> Result<(), StudyE
             format!("{why}: the Monte Carlo draws Poisson counts; remove it"),
         ));
     }
+    if spec.audit.coverage.student_t_dof.is_some() {
+        return Err(invalid(
+            spec,
+            "audit.coverage.student_t_dof",
+            format!("{why}: the coverage simulation draws Poisson counts; remove it"),
+        ));
+    }
     if !spec.inverse.is_empty() {
         return Err(invalid(
             spec,
