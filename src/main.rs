@@ -41,6 +41,10 @@ enum Command {
         /// `steepest` the iteration cap is at least 100000.
         #[arg(long, value_enum)]
         method: Option<MethodArg>,
+        /// Confidence level of `U = k u` and of the derived quantities'
+        /// intervals, from 0.001 to 0.9999 (overrides audit.level).
+        #[arg(long)]
+        level: Option<f64>,
     },
     /// Validate the study file and its data, fit nothing, and say what was read.
     Check {
@@ -217,8 +221,17 @@ fn main() -> ExitCode {
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
-        Command::Fit { study, json, method } => {
-            let mut study = study::load(&study)?;
+        Command::Fit {
+            study,
+            json,
+            method,
+            level,
+        } => {
+            let overrides = fitaudit::batch::Overrides {
+                level,
+                ..Default::default()
+            };
+            let mut study = overrides.load(&study)?;
             if let Some(m) = method {
                 study.fit_options.method = match m {
                     MethodArg::Lm => Method::Lm,

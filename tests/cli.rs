@@ -234,3 +234,28 @@ fn check_echoes_sigma_and_scheme_and_level_flag_is_checked() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("audit.level"));
 }
+
+/// `fit --level` sets the level of `U = k u` like `audit.level`: with
+/// stated sigma k is the normal quantile, 1.960 at 95 % (z_0.975 =
+/// 1.959964, any table of the normal distribution), and it is validated
+/// like the study key.
+#[test]
+fn fit_level_flag_sets_the_coverage_factor() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let study = format!("{root}/demo-data/cooling.toml");
+    let out = fitaudit()
+        .args(["fit", "--json", "--level", "0.95", &study])
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let k = v["fit"]["coverage_factor"].as_f64().unwrap();
+    assert!((k - 1.959964).abs() < 1e-6, "k = {k}");
+    assert_eq!(v["fit"]["coverage_basis"], "normal");
+    let out = fitaudit()
+        .args(["fit", "--level", "0.00001", &study])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("audit.level"));
+}
