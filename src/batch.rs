@@ -440,6 +440,11 @@ pub struct StudyPart {
     /// The study as the shard recorded it (paths as given there), for the
     /// merged record (None when it did not load).
     pub info: Option<audit::StudyInfo>,
+    /// The data files of its `[[datasets]]` as the shard resolved them
+    /// (relative to the study as given there), for the merged record;
+    /// empty for a study of one data set.
+    #[serde(default)]
+    pub group_files: Vec<Option<String>>,
     /// Which slice of its work this part holds (None: none of it).
     pub slice: Option<Slice>,
     /// The raw outcomes of that slice.
@@ -495,6 +500,7 @@ pub fn run_shard(req: &Request, slice: Slice, batch: bool) -> Result<PartFile, B
             data_sha256: None,
             settings: None,
             info: None,
+            group_files: Vec::new(),
             slice: mine,
             work: None,
             error: None,
@@ -508,6 +514,7 @@ pub fn run_shard(req: &Request, slice: Slice, batch: bool) -> Result<PartFile, B
             }
             Ok(s) => {
                 part.data_sha256 = s.data_sha256.clone();
+                part.group_files = s.dataset.groups.iter().map(|g| g.file.clone()).collect();
                 part.settings = Some(s.audit.clone());
                 let input = audit::input_from_study(&s);
                 part.info = Some(input.info.clone());
@@ -732,6 +739,14 @@ fn reload(sp: &StudyPart) -> Result<Study, BatchError> {
     }
     if let Some(settings) = &sp.settings {
         s.audit = settings.clone();
+    }
+    // The merge reads the study from its absolute path; the record names
+    // the data files as the shard resolved them (their contents are the
+    // same: the digests matched).
+    if sp.group_files.len() == s.dataset.groups.len() {
+        for (g, f) in s.dataset.groups.iter_mut().zip(&sp.group_files) {
+            g.file = f.clone();
+        }
     }
     Ok(s)
 }

@@ -417,3 +417,62 @@ fn poisson_and_errors_in_x_shards_merge_to_the_single_run() {
     std::fs::write(&xerr, text).unwrap();
     assert_merge_equals_single(dir.path(), &xerr, "xerr", 2);
 }
+
+#[test]
+fn joint_study_shards_merge_to_the_single_run_and_a_changed_data_file_is_refused() {
+    // Two invented lines sharing a slope, each in its own file; the study
+    // is named relative to the working folder, as a job script would, so
+    // the record's data-set file names must come from the shards, not from
+    // the merge's own reading of the study by its absolute path.
+    let dir = tempfile::tempdir().unwrap();
+    for (name, a) in [("left", 1.0), ("right", 3.0)] {
+        let mut csv = String::from("x,y,u\n");
+        for i in 0..8 {
+            let x = i as f64;
+            let y = a + 0.5 * x + 0.05 * (3.1 * i as f64 + a).sin();
+            csv.push_str(&format!("{x},{y},0.05\n"));
+        }
+        std::fs::write(dir.path().join(format!("{name}.csv")), csv).unwrap();
+    }
+    std::fs::write(
+        dir.path().join("joint.toml"),
+        "title = \"Two lines\"\n[[datasets]]\nname = \"left\"\nfile = \"left.csv\"\nx = \"x\"\ny = \"y\"\n\
+         sigma = \"u\"\nformula = \"a1 + b*x\"\n[[datasets]]\nname = \"right\"\nfile = \"right.csv\"\n\
+         x = \"x\"\ny = \"y\"\nsigma = \"u\"\nformula = \"a2 + b*x\"\n[parameters]\na1 = { start = 0 }\n\
+         a2 = { start = 0 }\nb = { start = 1 }\n[audit]\nseed = 3\nbootstrap = { replicates = 30 }\n\
+         monte_carlo = { replicates = 30 }\nprofile = { points = 7 }\ncontours = { grid = 5 }\n\
+         multistart = { starts = 4, max_starts = 8 }\n",
+    )
+    .unwrap();
+    let run = |extra: &[&str], out: &str| {
+        let o = fitaudit()
+            .current_dir(dir.path())
+            .args(["audit", "joint.toml", "--quiet", "--out", out])
+            .args(extra)
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    };
+    run(&[], "single");
+    run(&["--shard", "1/2"], "p1");
+    run(&["--shard", "2/2"], "p2");
+    let parts = [dir.path().join("p1"), dir.path().join("p2")];
+    let out = dir.path().join("merged");
+    let o = merge(&parts, &out);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (want_text, want) = stripped(&dir.path().join("single/results.json"));
+    let (text, got) = stripped(&out.join("results.json"));
+    assert_eq!(got, want, "joint: merge differs from the single run");
+    assert_eq!(text, want_text);
+    assert_eq!(got["data"]["groups"][0]["file"], "./left.csv");
+    assert!(got["study"]["data_sha256"].is_string());
+    // A data file edited after the shards ran: its digest changes the
+    // study's data digest, and the merge refuses.
+    let path = dir.path().join("right.csv");
+    let edited = std::fs::read_to_string(&path)
+        .unwrap()
+        .replace(",0.05\n", ",0.050\n");
+    std::fs::write(&path, edited).unwrap();
+    let e = refused(&parts, &dir.path().join("merged-again"));
+    assert!(e.contains("changed since the shards ran"), "{e}");
+}

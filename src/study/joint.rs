@@ -386,6 +386,12 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
         .map(|e| format!("{}: {}", e.name, e.formula))
         .collect::<Vec<_>>()
         .join("; ");
+    // One digest for all the data: SHA-256 of each file's digest in entry
+    // order, so that a change to any data file changes it (what a merge of
+    // shards and the provenance compare); each file's own digest is in its
+    // group.
+    let combined: String = reads.iter().map(|r| format!("{}\n", r.sha256)).collect();
+    let data_sha256 = Some(sha256_hex(combined.as_bytes()));
     let level = spec.audit.level;
     Ok(Study {
         path: spec.origin.clone(),
@@ -406,7 +412,7 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
         inverse: Vec::new(),
         inverse_model: None,
         study_sha256: None,
-        data_sha256: None,
+        data_sha256,
         data_lines: None,
         warnings,
     })
