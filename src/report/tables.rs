@@ -898,11 +898,33 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
             s("Study file SHA-256"),
             study.study_sha256.clone().unwrap_or_else(none),
         ),
-        (s("Data file"), study.data_file.clone().unwrap_or_else(none)),
-        (
+    ];
+    let groups = &results.data.groups;
+    if groups.len() > 1 || (study.data_file.is_none() && !groups.is_empty()) {
+        // Several [[datasets]]: each file with its own digest, then the
+        // digest of the digests (what a merge of shards compares).
+        for g in groups {
+            out.push((
+                format!("Data file of {}", g.name),
+                format!(
+                    "{} (SHA-256 {})",
+                    g.file.clone().unwrap_or_else(none),
+                    g.sha256.clone().unwrap_or_else(none)
+                ),
+            ));
+        }
+        out.push((
+            s("SHA-256 of the data files' digests"),
+            study.data_sha256.clone().unwrap_or_else(none),
+        ));
+    } else {
+        out.push((s("Data file"), study.data_file.clone().unwrap_or_else(none)));
+        out.push((
             s("Data file SHA-256"),
             study.data_sha256.clone().unwrap_or_else(none),
-        ),
+        ));
+    }
+    out.extend([
         (s("Formula"), study.formula.clone()),
         (s("Points"), study.points.to_string()),
         (
@@ -998,7 +1020,7 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
                 }
             ),
         ),
-    ];
+    ]);
     if let Some(t) = &study.title {
         out.insert(5, (s("Title"), t.clone()));
     }
