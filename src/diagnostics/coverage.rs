@@ -228,9 +228,9 @@ fn student_t_dof(ctx: &Fitted) -> Option<f64> {
 pub fn setup(ctx: &Fitted) -> CoverageSetup {
     let free = ctx.free_mask();
     let values = ctx.values();
-    let poisson = ctx.problem.options.likelihood == crate::fit::Likelihood::Poisson;
+    let noise = super::monte_carlo::noise_name(ctx, student_t_dof(ctx));
     // Counts are drawn from the Poisson law whatever the Student-t setting.
-    let dof = student_t_dof(ctx).filter(|_| !poisson);
+    let dof = student_t_dof(ctx).filter(|_| noise != "poisson");
     CoverageSetup {
         names: (0..free.len())
             .filter(|&j| free[j])
@@ -239,14 +239,7 @@ pub fn setup(ctx: &Fitted) -> CoverageSetup {
         truth: (0..free.len()).filter(|&j| free[j]).map(|j| values[j]).collect(),
         level: ctx.settings.level,
         replicates: ctx.settings.coverage.replicates,
-        noise: if poisson {
-            "poisson"
-        } else if dof.is_some() {
-            "student-t"
-        } else {
-            "normal"
-        }
-        .to_string(),
+        noise: noise.to_string(),
         moves_x: ctx.data.sigma_x.is_some(),
         student_t_dof: dof,
         noise_scale: super::monte_carlo::noise_scale(ctx),

@@ -91,9 +91,17 @@ pub fn run_with(ctx: &Fitted, settings: &MonteCarloSettings, progress: &dyn Prog
 /// The scheme's name as recorded in the result: `poisson` for a fit of
 /// counts, else that of the noise law.
 pub fn scheme_name(ctx: &Fitted, settings: &MonteCarloSettings) -> &'static str {
+    noise_name(ctx, settings.student_t_dof)
+}
+
+/// The name of the noise [`Noise::new`] draws for `ctx` with
+/// `student_t_dof`: `poisson` for a fit of counts (whatever the Student-t
+/// setting), `student-t` when degrees of freedom are given, else `normal`.
+/// The Monte Carlo and the coverage simulation record it.
+pub fn noise_name(ctx: &Fitted, student_t_dof: Option<f64>) -> &'static str {
     if ctx.problem.options.likelihood == Likelihood::Poisson {
         "poisson"
-    } else if settings.student_t_dof.is_some() {
+    } else if student_t_dof.is_some() {
         "student-t"
     } else {
         "normal"

@@ -900,8 +900,8 @@ pub fn provenance(results: &AuditResults) -> Vec<(String, String)> {
         ),
     ];
     let groups = &results.data.groups;
-    if groups.len() > 1 || (study.data_file.is_none() && !groups.is_empty()) {
-        // Several [[datasets]]: each file with its own digest, then the
+    if !groups.is_empty() {
+        // A study of [[datasets]]: each file with its own digest, then the
         // digest of the digests (what a merge of shards compares).
         for g in groups {
             out.push((

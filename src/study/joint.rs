@@ -355,10 +355,11 @@ pub(super) fn from_spec(spec: StudySpec, base_dir: &Path, name: &str) -> Result<
             .expect("every point lies in a data set");
         let local = i - group.start;
         return Err(StudyError::NotFiniteAtStart {
-            at: Box::new(match reads[g].x_columns.as_slice() {
-                [c] => At::cell(&reads[g].file, reads[g].lines[local], *c),
-                _ => At::line(&reads[g].file, reads[g].lines[local]),
-            }),
+            at: Box::new(super::x_cell_or_line(
+                &reads[g].file,
+                reads[g].lines[local],
+                &reads[g].x_columns,
+            )),
             study: Box::new(At::file(&spec.origin)),
             point: i + 1,
             x: reads[g]

@@ -1288,6 +1288,16 @@ pub(crate) fn no_shadowed_x(spec: &StudySpec, x_names: &[String]) -> Result<(), 
     Ok(())
 }
 
+/// Where a model that is not finite at the starts points: the row's x
+/// cell when the data have one x column (the model, at the starts, fails
+/// at this x), else the row.
+fn x_cell_or_line(file: &Path, line: usize, x_columns: &[usize]) -> At {
+    match x_columns {
+        [c] => At::cell(file, line, *c),
+        _ => At::line(file, line),
+    }
+}
+
 /// The checks that need both spec and data, compilation, and assembly.
 fn finish(
     spec: StudySpec,
@@ -1391,11 +1401,8 @@ fn finish(
     let mut scratch = Vec::new();
     if let Err(bad) = tape.eval(&starts, &xs, &mut values, Some(&mut jac), &mut scratch) {
         let i = bad.point.min(n - 1);
-        // With one x column the x cell of the row is named: the model, at
-        // the starts, fails at this x.
         let at = Box::new(match &source {
-            Some(s) if s.x_columns.len() == 1 => At::cell(&s.file, s.lines[i], s.x_columns[0]),
-            Some(s) => At::line(&s.file, s.lines[i]),
+            Some(s) => x_cell_or_line(&s.file, s.lines[i], &s.x_columns),
             None => At::file(&spec.origin),
         });
         return Err(StudyError::NotFiniteAtStart {
